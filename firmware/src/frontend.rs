@@ -1,0 +1,48 @@
+//! The board-facing trait.
+
+/// What kind of failure a front end reports (in the style of embedded-hal's error kinds).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
+pub enum FrontEndErrorKind {
+    /// The channel does not exist on this converter.
+    BadChannel,
+    /// The sample-time index is not supported.
+    BadSampleTime,
+    /// The converter did not finish (timeout, overrun).
+    Timeout,
+    /// Anything else.
+    Other,
+}
+
+/// Error type of an [`AnalogFrontEnd`].
+pub trait FrontEndError: core::fmt::Debug {
+    /// The kind of failure.
+    fn kind(&self) -> FrontEndErrorKind;
+}
+
+impl FrontEndError for core::convert::Infallible {
+    fn kind(&self) -> FrontEndErrorKind {
+        match *self {}
+    }
+}
+
+/// One SAR ADC as the experiments need it.
+///
+/// `convert` must sample `channel` for exactly the sample time at position `sample` of the
+/// board's table, then convert, and return the raw code; it returns when the conversion is done.
+/// Nothing else may be converted in between, or the host's model of "the previous channel" is
+/// wrong.
+pub trait AnalogFrontEnd {
+    /// Error type.
+    type Error: FrontEndError;
+
+    /// One conversion.
+    fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, Self::Error>;
+}
+
+impl<T: AnalogFrontEnd + ?Sized> AnalogFrontEnd for &mut T {
+    type Error = T::Error;
+    fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, Self::Error> {
+        T::convert(self, channel, sample)
+    }
+}

@@ -1,0 +1,27 @@
+//! Wire messages, framing and the sampling-network model shared by the ohmsight firmware,
+//! the simulated board and the host.
+//!
+//! - [`frame`]: postcard payload + CRC-32, COBS-encoded, `0x00`-delimited frames.
+//! - [`messages`]: requests (host → board) and responses (board → host), versioned by
+//!   [`PROTOCOL_VERSION`].
+//! - [`sequence`]: the exact conversion sequence of every experiment, one implementation that the
+//!   firmware executes and the host simulates, so "the previous channel" is always known.
+//! - [`analog`]: the sampling network of one ADC channel solved exactly per phase (closed-form
+//!   2×2 matrix exponential, no ODE stepping).
+//!
+//! `no_std`; the `std` feature adds `std::error::Error` impls.
+#![cfg_attr(not(any(test, feature = "std")), no_std)]
+#![deny(missing_docs)]
+
+pub mod analog;
+pub mod frame;
+pub mod messages;
+pub mod sequence;
+
+pub use frame::{decode_frame, encode_frame, FrameAccumulator, FrameError, MAX_FRAME, MAX_PAYLOAD};
+pub use messages::*;
+pub use sequence::{Step, StepRecord, Steps, Timing};
+
+/// Version of the wire protocol. The host refuses a board that answers with another version
+/// unless told to try anyway.
+pub const PROTOCOL_VERSION: u16 = 1;

@@ -1,0 +1,397 @@
+//! Requests, responses and the board's front-end description.
+//!
+//! Everything on the wire is an integer: the target side never needs floating point. Times are
+//! picoseconds or nanoseconds, capacitances attofarads, resistances milliohms, voltages
+//! microvolts, as each field name says.
+
+use heapless::{String, Vec};
+use serde::{Deserialize, Serialize};
+
+/// Most channels a board can describe.
+pub const MAX_CHANNELS: usize = 24;
+/// Most selectable sample times.
+pub const MAX_SAMPLE_TIMES: usize = 16;
+/// Most precharge sources.
+pub const MAX_PRECHARGES: usize = 4;
+/// Most periods in one period sweep.
+pub const MAX_PERIODS: usize = 12;
+/// Most raw codes in one [`Response::Samples`] message.
+pub const SAMPLES_PER_MESSAGE: usize = 48;
+/// Most raw codes one noise record may ask for (the target buffers them).
+pub const MAX_RAW_SAMPLES: u16 = 1024;
+/// Most aggregate cells one experiment produces.
+pub const MAX_CELLS: usize = 32;
+/// Longest burst of back-to-back conversions in a repeat burst.
+pub const MAX_BURST: u8 = 32;
+/// Most conversions one experiment may take (keeps every run bounded in time).
+pub const MAX_CONVERSIONS: u32 = 65_536;
+/// Longest wait the engine accepts in any one place (4 s), in nanoseconds.
+pub const MAX_WAIT_NS: u32 = 4_000_000_000;
+
+/// Host → board.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub enum Request {
+    /// First exchange: the host's protocol version. Answered by [`Response::Hello`].
+    Hello {
+        /// [`crate::PROTOCOL_VERSION`] of the host.
+        protocol: u16,
+    },
+    /// Asks for the electrical description. Answered by [`Response::FrontEnd`].
+    Describe,
+    /// Asks for one channel's description. Answered by [`Response::Channel`].
+    Channel {
+        /// Position in the board's channel list (not the hardware channel number).
+        position: u8,
+    },
+    /// Runs one experiment. Answered by its records, then [`Response::Done`] or [`Response::Error`].
+    Run {
+        /// Echoed in every record of this run.
+        seq: u16,
+        /// What to run.
+        experiment: Experiment,
+    },
+}
+
+/// Board → host.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub enum Response {
+    /// Answer to [`Request::Hello`].
+    Hello {
+        /// The board's [`crate::PROTOCOL_VERSION`].
+        protocol: u16,
+        /// Firmware version string.
+        firmware: String<16>,
+        /// Board name (profile name).
+        board: String<24>,
+        /// Unit identifier (serial number or chip unique id folded to 64 bits).
+        unit_id: u64,
+        /// How many channels [`Request::Channel`] can describe.
+        channels: u8,
+    },
+    /// Answer to [`Request::Describe`].
+    FrontEnd(FrontEnd),
+    /// Answer to [`Request::Channel`].
+    Channel(ChannelInfo),
+    /// One aggregate cell of a run.
+    Cell {
+        /// The run's sequence number.
+        seq: u16,
+        /// Cell index (meaning per experiment, see [`crate::sequence`]).
+        index: u16,
+        /// The aggregate.
+        agg: Aggregate,
+    },
+    /// Raw codes of a noise record, in order.
+    Samples {
+        /// The run's sequence number.
+        seq: u16,
+        /// Index of the first code in this message.
+        offset: u16,
+        /// The codes.
+        codes: Vec<u16, SAMPLES_PER_MESSAGE>,
+    },
+    /// The run finished; every record has been sent.
+    Done {
+        /// The run's sequence number.
+        seq: u16,
+        /// Conversions performed, precharge conversions included.
+        conversions: u32,
+    },
+    /// The request was refused or failed; nothing more follows for it.
+    Error {
+        /// The run's sequence number (0 for requests without one).
+        seq: u16,
+        /// What went wrong.
+        kind: ErrorKind,
+    },
+}
+
+/// Why the board refused or abandoned a request.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[non_exhaustive]
+pub enum ErrorKind {
+    /// A channel number the board does not have.
+    BadChannel,
+    /// A sample-time index past the table.
+    BadSampleIndex,
+    /// The experiment would take too many conversions, cells or samples, or too long a wait.
+    TooLarge,
+    /// The experiment has nothing to do (empty list, zero repeats).
+    Empty,
+    /// The channel may not be driven or used as a precharge source on this board.
+    NotAllowed,
+    /// The board cannot do this (e.g. no pull resistors).
+    Unsupported,
+    /// The converter itself failed.
+    Converter,
+    /// The request frame could not be decoded.
+    BadFrame,
+    /// Position past the channel list.
+    BadPosition,
+    /// The host speaks another protocol version.
+    Version,
+}
+
+impl core::fmt::Display for ErrorKind {
+    fn fmt(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+        f.write_str(match self {
+            ErrorKind::BadChannel => "no such channel on this board",
+            ErrorKind::BadSampleIndex => "sample-time index past the board's table",
+            ErrorKind::TooLarge => "experiment too large (conversions, cells, samples or wait)",
+            ErrorKind::Empty => "experiment has nothing to do",
+            ErrorKind::NotAllowed => "channel not declared safe for this use",
+            ErrorKind::Unsupported => "the board cannot do this",
+            ErrorKind::Converter => "the converter failed",
+            ErrorKind::BadFrame => "the board could not decode the request frame",
+            ErrorKind::BadPosition => "no channel at that position",
+            ErrorKind::Version => "protocol version not supported by the board",
+        })
+    }
+}
+
+/// Integer aggregate of the codes that fell in one cell.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+pub struct Aggregate {
+    /// Number of codes.
+    pub count: u32,
+    /// Sum of codes.
+    pub sum: u64,
+    /// Sum of squared codes.
+    pub sum_sq: u64,
+    /// Smallest code.
+    pub min: u16,
+    /// Largest code.
+    pub max: u16,
+}
+
+impl Aggregate {
+    /// Adds one code.
+    pub fn add(&mut self, code: u16) {
+        if self.count == 0 {
+            self.min = code;
+            self.max = code;
+        } else {
+            self.min = self.min.min(code);
+            self.max = self.max.max(code);
+        }
+        self.count += 1;
+        self.sum += u64::from(code);
+        self.sum_sq += u64::from(code) * u64::from(code);
+    }
+}
+
+/// The board's analog front end, as the host needs it to model the sampling network.
+///
+/// Values come from the board profile (datasheet or calibration); `*_tolerance_ppm` is the
+/// profile's ±2σ uncertainty of that value, used as a prior by the fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FrontEnd {
+    /// Resolution in bits.
+    pub bits: u8,
+    /// Reference (full-scale) voltage, µV.
+    pub vref_microvolts: u32,
+    /// Selectable sample (acquisition) times, ps, ascending; the sample index is a position here.
+    pub sample_ps: Vec<u32, MAX_SAMPLE_TIMES>,
+    /// Conversion time after the sampling switch opens, ps.
+    pub conversion_ps: u32,
+    /// Hold (sampling) capacitance, aF.
+    pub hold_attofarads: u32,
+    /// ±2σ uncertainty of the hold capacitance, ppm.
+    pub hold_tolerance_ppm: u32,
+    /// Multiplexer + sampling-switch resistance, mΩ.
+    pub switch_milliohms: u32,
+    /// ±2σ uncertainty of the switch resistance, ppm.
+    pub switch_tolerance_ppm: u32,
+    /// ADC noise referred to the input, milli-LSB rms (quantization excluded).
+    pub noise_millilsb: u32,
+    /// Input leakage bound, pA.
+    pub leakage_picoamps: u32,
+    /// Pull resistance for pull tests, mΩ; 0 when the board has no usable pulls.
+    pub pull_milliohms: u32,
+    /// Channels that may be converted to precharge the hold capacitor to a known level.
+    pub precharges: Vec<Precharge, MAX_PRECHARGES>,
+}
+
+/// A channel that sets the hold capacitor to a known level when converted.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Precharge {
+    /// Hardware channel number.
+    pub channel: u8,
+    /// Nominal level, µV (the host measures the real one).
+    pub nominal_microvolts: u32,
+}
+
+/// What a channel is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum ChannelRole {
+    /// An external pin to survey.
+    Pin,
+    /// An internal or tied channel used as a precharge source.
+    Precharge,
+    /// Any other internal channel (temperature sensor, supply divider…).
+    Internal,
+}
+
+/// One channel of the board.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ChannelInfo {
+    /// Hardware channel number (what the experiments name).
+    pub channel: u8,
+    /// Free-text label from the board profile.
+    pub label: String<24>,
+    /// What the channel is.
+    pub role: ChannelRole,
+}
+
+/// One experiment: a deterministic sequence of conversions (see [`crate::sequence`]).
+///
+/// Every experiment starts with `settle_ns` of idle time so the nodes are at rest.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub enum Experiment {
+    /// For each repeat, each sample index, each precharge: convert the precharge channel at
+    /// `precharge_sample`, then the target at that sample index, then wait `rest_ns`.
+    /// Cell `s * precharges.len() + p` collects the target's codes.
+    PrechargeSweep {
+        /// Channel under test.
+        target: u8,
+        /// Precharge channels.
+        precharges: Vec<u8, MAX_PRECHARGES>,
+        /// Sample index used for the precharge conversions.
+        precharge_sample: u8,
+        /// Sample indices to test.
+        samples: Vec<u8, MAX_SAMPLE_TIMES>,
+        /// Repeats of the whole pattern.
+        repeats: u16,
+        /// Idle time after each target conversion, ns.
+        rest_ns: u32,
+        /// Idle time before the first conversion, ns.
+        settle_ns: u32,
+    },
+    /// `repeats` × [A, B] then `repeats` × [B, B], all at `sample`, `rest_ns` after each pair.
+    /// Cells: 0 = A in [A,B], 1 = B after A, 2 = first B of [B,B], 3 = B after B.
+    OrderSwap {
+        /// The channel converted before B.
+        a: u8,
+        /// The channel whose memory is measured.
+        b: u8,
+        /// Sample index for all conversions.
+        sample: u8,
+        /// Repeats of each pattern.
+        repeats: u16,
+        /// Idle time after each pair, ns.
+        rest_ns: u32,
+        /// Idle time before the first conversion, ns.
+        settle_ns: u32,
+    },
+    /// `repeats` × [precharge, then `length` back-to-back target conversions, then `rest_ns`].
+    /// Cell `j` collects the j-th conversion of the burst.
+    RepeatBurst {
+        /// Channel under test.
+        target: u8,
+        /// Precharge channel.
+        precharge: u8,
+        /// Sample index for the precharge conversion.
+        precharge_sample: u8,
+        /// Sample index for the target conversions.
+        sample: u8,
+        /// Conversions per burst.
+        length: u8,
+        /// Repeats of the burst.
+        repeats: u16,
+        /// Idle time after each burst, ns.
+        rest_ns: u32,
+        /// Idle time before the first conversion, ns.
+        settle_ns: u32,
+    },
+    /// For each period P: `repeats` × [precharge, target], one pair started every P
+    /// (back to back when P is shorter than the pair). Cell `i` collects period `i`.
+    PeriodSweep {
+        /// Channel under test.
+        target: u8,
+        /// Precharge channel.
+        precharge: u8,
+        /// Sample index for the precharge conversion.
+        precharge_sample: u8,
+        /// Sample index for the target conversion.
+        sample: u8,
+        /// Periods, ns.
+        periods_ns: Vec<u32, MAX_PERIODS>,
+        /// Pairs per period.
+        repeats: u16,
+        /// Idle time before the first conversion, ns.
+        settle_ns: u32,
+    },
+    /// `count` conversions of the target, one every `period_ns`; raw codes come back.
+    NoiseRecord {
+        /// Channel under test.
+        target: u8,
+        /// Sample index.
+        sample: u8,
+        /// Conversion period, ns.
+        period_ns: u32,
+        /// Number of codes (≤ [`MAX_RAW_SAMPLES`]).
+        count: u16,
+        /// Idle time before the first conversion, ns.
+        settle_ns: u32,
+    },
+}
+
+impl Experiment {
+    /// Short name for progress lines and errors.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Experiment::PrechargeSweep { .. } => "precharge sweep",
+            Experiment::OrderSwap { .. } => "order swap",
+            Experiment::RepeatBurst { .. } => "repeat burst",
+            Experiment::PeriodSweep { .. } => "period sweep",
+            Experiment::NoiseRecord { .. } => "noise record",
+        }
+    }
+
+    /// The largest experiment message, for frame-size tests.
+    #[doc(hidden)]
+    pub fn largest_for_tests() -> Self {
+        let mut periods_ns = Vec::new();
+        while periods_ns.push(u32::MAX).is_ok() {}
+        Experiment::PeriodSweep {
+            target: u8::MAX,
+            precharge: u8::MAX,
+            precharge_sample: u8::MAX,
+            sample: u8::MAX,
+            periods_ns,
+            repeats: u16::MAX,
+            settle_ns: u32::MAX,
+        }
+    }
+}
+
+impl FrontEnd {
+    /// The largest description, for frame-size tests.
+    #[doc(hidden)]
+    pub fn largest_for_tests() -> Self {
+        let mut sample_ps = Vec::new();
+        while sample_ps.push(u32::MAX).is_ok() {}
+        let mut precharges = Vec::new();
+        while precharges
+            .push(Precharge {
+                channel: u8::MAX,
+                nominal_microvolts: u32::MAX,
+            })
+            .is_ok()
+        {}
+        FrontEnd {
+            bits: u8::MAX,
+            vref_microvolts: u32::MAX,
+            sample_ps,
+            conversion_ps: u32::MAX,
+            hold_attofarads: u32::MAX,
+            hold_tolerance_ppm: u32::MAX,
+            switch_milliohms: u32::MAX,
+            switch_tolerance_ppm: u32::MAX,
+            noise_millilsb: u32::MAX,
+            leakage_picoamps: u32::MAX,
+            pull_milliohms: u32::MAX,
+            precharges,
+        }
+    }
+}

@@ -1,0 +1,538 @@
+//! The exact conversion sequence of each experiment.
+//!
+//! One implementation serves both sides: the firmware engine executes [`Steps`] on the board,
+//! the host fit simulates the same [`Steps`] on the model. Integer arithmetic only.
+
+use crate::messages::{
+    ErrorKind, Experiment, MAX_BURST, MAX_CELLS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_WAIT_NS,
+};
+
+/// The board timing the sequence needs.
+#[derive(Debug, Clone, Copy)]
+pub struct Timing<'a> {
+    /// Selectable sample times, ps.
+    pub sample_ps: &'a [u32],
+    /// Conversion time, ps.
+    pub conversion_ps: u32,
+}
+
+impl Timing<'_> {
+    /// Time one conversion keeps the ADC busy (sampling + conversion), ps.
+    pub fn busy_ps(&self, sample: u8) -> u64 {
+        u64::from(self.sample_ps[usize::from(sample)]) + u64::from(self.conversion_ps)
+    }
+
+    /// Idle time that makes a group of conversions busy for `busy_ps` start every `period_ns`;
+    /// zero when the group is longer than the period.
+    pub fn gap_ns(period_ns: u32, busy_ps: u64) -> u32 {
+        let period_ps = u64::from(period_ns) * 1000;
+        (period_ps.saturating_sub(busy_ps) / 1000) as u32
+    }
+}
+
+/// Where the code of a step goes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum StepRecord {
+    /// Not recorded (precharge conversions).
+    None,
+    /// Added to the aggregate cell with this index.
+    Cell(u16),
+    /// Stored as raw sample number this.
+    Raw(u16),
+}
+
+/// One conversion and the idle time after it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Step {
+    /// Channel to convert.
+    pub channel: u8,
+    /// Sample-time index.
+    pub sample: u8,
+    /// Idle time after the conversion, ns.
+    pub wait_after_ns: u32,
+    /// Where the code goes.
+    pub record: StepRecord,
+}
+
+/// The validated step sequence of one experiment (random access, no allocation).
+#[derive(Debug, Clone)]
+pub struct Steps<'a> {
+    exp: &'a Experiment,
+    timing: Timing<'a>,
+    len: u32,
+    /// Idle time before each period block (period sweep) or the gap (noise record), ns.
+    gap_ns: [u32; crate::messages::MAX_PERIODS],
+}
+
+impl<'a> Steps<'a> {
+    /// Checks the experiment against the board timing and the protocol limits.
+    pub fn new(exp: &'a Experiment, timing: Timing<'a>) -> Result<Self, ErrorKind> {
+        let n_samples = timing.sample_ps.len();
+        let sample_ok = |s: u8| usize::from(s) < n_samples;
+        let mut gap_ns = [0u32; crate::messages::MAX_PERIODS];
+        let check_wait = |w: u32| {
+            if w > MAX_WAIT_NS {
+                Err(ErrorKind::TooLarge)
+            } else {
+                Ok(())
+            }
+        };
+        let len: u64 = match exp {
+            Experiment::PrechargeSweep {
+                precharges,
+                precharge_sample,
+                samples,
+                repeats,
+                rest_ns,
+                settle_ns,
+                ..
+            } => {
+                if precharges.is_empty() || samples.is_empty() || *repeats == 0 {
+                    return Err(ErrorKind::Empty);
+                }
+                if !sample_ok(*precharge_sample) || !samples.iter().all(|&s| sample_ok(s)) {
+                    return Err(ErrorKind::BadSampleIndex);
+                }
+                if precharges.len() * samples.len() > MAX_CELLS {
+                    return Err(ErrorKind::TooLarge);
+                }
+                check_wait(*rest_ns)?;
+                check_wait(*settle_ns)?;
+                u64::from(*repeats) * (samples.len() * precharges.len() * 2) as u64
+            }
+            Experiment::OrderSwap {
+                sample,
+                repeats,
+                rest_ns,
+                settle_ns,
+                ..
+            } => {
+                if *repeats == 0 {
+                    return Err(ErrorKind::Empty);
+                }
+                if !sample_ok(*sample) {
+                    return Err(ErrorKind::BadSampleIndex);
+                }
+                check_wait(*rest_ns)?;
+                check_wait(*settle_ns)?;
+                4 * u64::from(*repeats)
+            }
+            Experiment::RepeatBurst {
+                precharge_sample,
+                sample,
+                length,
+                repeats,
+                rest_ns,
+                settle_ns,
+                ..
+            } => {
+                if *length == 0 || *repeats == 0 {
+                    return Err(ErrorKind::Empty);
+                }
+                if !sample_ok(*precharge_sample) || !sample_ok(*sample) {
+                    return Err(ErrorKind::BadSampleIndex);
+                }
+                if *length > MAX_BURST {
+                    return Err(ErrorKind::TooLarge);
+                }
+                check_wait(*rest_ns)?;
+                check_wait(*settle_ns)?;
+                u64::from(*repeats) * (u64::from(*length) + 1)
+            }
+            Experiment::PeriodSweep {
+                precharge_sample,
+                sample,
+                periods_ns,
+                repeats,
+                settle_ns,
+                ..
+            } => {
+                if periods_ns.is_empty() || *repeats == 0 {
+                    return Err(ErrorKind::Empty);
+                }
+                if !sample_ok(*precharge_sample) || !sample_ok(*sample) {
+                    return Err(ErrorKind::BadSampleIndex);
+                }
+                check_wait(*settle_ns)?;
+                let busy = timing.busy_ps(*precharge_sample) + timing.busy_ps(*sample);
+                for (g, &p) in gap_ns.iter_mut().zip(periods_ns.iter()) {
+                    check_wait(p)?;
+                    *g = Timing::gap_ns(p, busy);
+                }
+                u64::from(*repeats) * 2 * periods_ns.len() as u64
+            }
+            Experiment::NoiseRecord {
+                sample,
+                period_ns,
+                count,
+                settle_ns,
+                ..
+            } => {
+                if *count == 0 {
+                    return Err(ErrorKind::Empty);
+                }
+                if !sample_ok(*sample) {
+                    return Err(ErrorKind::BadSampleIndex);
+                }
+                if *count > MAX_RAW_SAMPLES {
+                    return Err(ErrorKind::TooLarge);
+                }
+                check_wait(*period_ns)?;
+                check_wait(*settle_ns)?;
+                gap_ns[0] = Timing::gap_ns(*period_ns, timing.busy_ps(*sample));
+                u64::from(*count)
+            }
+        };
+        if len > u64::from(MAX_CONVERSIONS) {
+            return Err(ErrorKind::TooLarge);
+        }
+        Ok(Self {
+            exp,
+            timing,
+            len: len as u32,
+            gap_ns,
+        })
+    }
+
+    /// Number of conversions.
+    pub fn len(&self) -> u32 {
+        self.len
+    }
+
+    /// True when there are no steps (never, for a validated experiment).
+    pub fn is_empty(&self) -> bool {
+        self.len == 0
+    }
+
+    /// Idle time before the first conversion, ns.
+    pub fn settle_ns(&self) -> u32 {
+        match *self.exp {
+            Experiment::PrechargeSweep { settle_ns, .. }
+            | Experiment::OrderSwap { settle_ns, .. }
+            | Experiment::RepeatBurst { settle_ns, .. }
+            | Experiment::PeriodSweep { settle_ns, .. }
+            | Experiment::NoiseRecord { settle_ns, .. } => settle_ns,
+        }
+    }
+
+    /// Number of aggregate cells (0 for a noise record).
+    pub fn cells(&self) -> u16 {
+        match self.exp {
+            Experiment::PrechargeSweep {
+                precharges,
+                samples,
+                ..
+            } => (precharges.len() * samples.len()) as u16,
+            Experiment::OrderSwap { .. } => 4,
+            Experiment::RepeatBurst { length, .. } => u16::from(*length),
+            Experiment::PeriodSweep { periods_ns, .. } => periods_ns.len() as u16,
+            Experiment::NoiseRecord { .. } => 0,
+        }
+    }
+
+    /// Number of raw samples (0 unless a noise record).
+    pub fn raw_samples(&self) -> u16 {
+        match self.exp {
+            Experiment::NoiseRecord { count, .. } => *count,
+            _ => 0,
+        }
+    }
+
+    /// Channels the experiment converts: (channels under test, channels used as precharge).
+    pub fn channels(&self) -> ([Option<u8>; 2], &'a [u8]) {
+        match self.exp {
+            Experiment::PrechargeSweep {
+                target, precharges, ..
+            } => ([Some(*target), None], precharges.as_slice()),
+            Experiment::OrderSwap { a, b, .. } => ([Some(*a), Some(*b)], &[]),
+            Experiment::RepeatBurst {
+                target, precharge, ..
+            }
+            | Experiment::PeriodSweep {
+                target, precharge, ..
+            } => ([Some(*target), None], core::slice::from_ref(precharge)),
+            Experiment::NoiseRecord { target, .. } => ([Some(*target), None], &[]),
+        }
+    }
+
+    /// Nominal duration of the whole experiment (settle, conversions and waits), ps.
+    pub fn nominal_ps(&self) -> u64 {
+        let mut t = u64::from(self.settle_ns()) * 1000;
+        for i in 0..self.len {
+            let s = self.step(i);
+            t += self.timing.busy_ps(s.sample) + u64::from(s.wait_after_ns) * 1000;
+        }
+        t
+    }
+
+    /// Step `i` (`i < len()`).
+    pub fn step(&self, i: u32) -> Step {
+        debug_assert!(i < self.len);
+        match self.exp {
+            Experiment::PrechargeSweep {
+                target,
+                precharges,
+                precharge_sample,
+                samples,
+                rest_ns,
+                ..
+            } => {
+                let np = precharges.len() as u32;
+                let block = samples.len() as u32 * np * 2;
+                let j = i % block;
+                let pair = j / 2;
+                if j % 2 == 0 {
+                    Step {
+                        channel: precharges[(pair % np) as usize],
+                        sample: *precharge_sample,
+                        wait_after_ns: 0,
+                        record: StepRecord::None,
+                    }
+                } else {
+                    Step {
+                        channel: *target,
+                        sample: samples[(pair / np) as usize],
+                        wait_after_ns: *rest_ns,
+                        record: StepRecord::Cell(pair as u16),
+                    }
+                }
+            }
+            Experiment::OrderSwap {
+                a,
+                b,
+                sample,
+                repeats,
+                rest_ns,
+                ..
+            } => {
+                let first_phase = i < 2 * u32::from(*repeats);
+                let second = i % 2 == 1;
+                let channel = if first_phase && !second { *a } else { *b };
+                let cell = if first_phase { 0 } else { 2 } + u16::from(second);
+                Step {
+                    channel,
+                    sample: *sample,
+                    wait_after_ns: if second { *rest_ns } else { 0 },
+                    record: StepRecord::Cell(cell),
+                }
+            }
+            Experiment::RepeatBurst {
+                target,
+                precharge,
+                precharge_sample,
+                sample,
+                length,
+                rest_ns,
+                ..
+            } => {
+                let block = u32::from(*length) + 1;
+                let j = i % block;
+                if j == 0 {
+                    Step {
+                        channel: *precharge,
+                        sample: *precharge_sample,
+                        wait_after_ns: 0,
+                        record: StepRecord::None,
+                    }
+                } else {
+                    Step {
+                        channel: *target,
+                        sample: *sample,
+                        wait_after_ns: if j == block - 1 { *rest_ns } else { 0 },
+                        record: StepRecord::Cell((j - 1) as u16),
+                    }
+                }
+            }
+            Experiment::PeriodSweep {
+                target,
+                precharge,
+                precharge_sample,
+                sample,
+                repeats,
+                ..
+            } => {
+                let per = 2 * u32::from(*repeats);
+                let p = (i / per) as usize;
+                if i % 2 == 0 {
+                    Step {
+                        channel: *precharge,
+                        sample: *precharge_sample,
+                        wait_after_ns: 0,
+                        record: StepRecord::None,
+                    }
+                } else {
+                    Step {
+                        channel: *target,
+                        sample: *sample,
+                        wait_after_ns: self.gap_ns[p],
+                        record: StepRecord::Cell(p as u16),
+                    }
+                }
+            }
+            Experiment::NoiseRecord { target, sample, .. } => Step {
+                channel: *target,
+                sample: *sample,
+                wait_after_ns: self.gap_ns[0],
+                record: StepRecord::Raw(i as u16),
+            },
+        }
+    }
+
+    /// All steps in order.
+    pub fn iter(&self) -> impl Iterator<Item = Step> + '_ {
+        (0..self.len).map(move |i| self.step(i))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use heapless::Vec;
+
+    const SAMPLE_PS: [u32; 3] = [100_000, 500_000, 2_000_000];
+    const T: Timing = Timing {
+        sample_ps: &SAMPLE_PS,
+        conversion_ps: 600_000,
+    };
+
+    #[test]
+    fn precharge_sweep_alternates_precharge_and_target() {
+        let exp = Experiment::PrechargeSweep {
+            target: 3,
+            precharges: Vec::from_slice(&[16, 17]).unwrap(),
+            precharge_sample: 2,
+            samples: Vec::from_slice(&[0, 1]).unwrap(),
+            repeats: 2,
+            rest_ns: 700,
+            settle_ns: 5,
+        };
+        let s = Steps::new(&exp, T).unwrap();
+        assert_eq!(s.len(), 16);
+        assert_eq!(s.cells(), 4);
+        let v: std::vec::Vec<_> = s.iter().collect();
+        assert_eq!(
+            v[0],
+            Step {
+                channel: 16,
+                sample: 2,
+                wait_after_ns: 0,
+                record: StepRecord::None
+            }
+        );
+        assert_eq!(
+            v[1],
+            Step {
+                channel: 3,
+                sample: 0,
+                wait_after_ns: 700,
+                record: StepRecord::Cell(0)
+            }
+        );
+        assert_eq!(v[2].channel, 17);
+        assert_eq!(v[3].record, StepRecord::Cell(1));
+        assert_eq!(
+            v[5],
+            Step {
+                channel: 3,
+                sample: 1,
+                wait_after_ns: 700,
+                record: StepRecord::Cell(2)
+            }
+        );
+        assert_eq!(v[9], v[1], "second repeat repeats the first");
+    }
+
+    #[test]
+    fn period_sweep_waits_the_rest_of_the_period() {
+        let exp = Experiment::PeriodSweep {
+            target: 1,
+            precharge: 16,
+            precharge_sample: 2,
+            sample: 0,
+            periods_ns: Vec::from_slice(&[1_000, 10_000]).unwrap(),
+            repeats: 3,
+            settle_ns: 0,
+        };
+        let s = Steps::new(&exp, T).unwrap();
+        // busy = (2.0 + 0.6) + (0.1 + 0.6) µs = 3.3 µs: the 1 µs period runs back to back.
+        assert_eq!(s.step(1).wait_after_ns, 0);
+        assert_eq!(
+            s.step(7),
+            Step {
+                channel: 1,
+                sample: 0,
+                wait_after_ns: 6_700,
+                record: StepRecord::Cell(1)
+            }
+        );
+        assert_eq!(s.nominal_ps(), 6 * 3_300_000 + 3 * 6_700_000);
+    }
+
+    #[test]
+    fn order_swap_cells() {
+        let exp = Experiment::OrderSwap {
+            a: 2,
+            b: 5,
+            sample: 1,
+            repeats: 2,
+            rest_ns: 10,
+            settle_ns: 0,
+        };
+        let s = Steps::new(&exp, T).unwrap();
+        let ch: std::vec::Vec<_> = s.iter().map(|x| (x.channel, x.record)).collect();
+        use StepRecord::Cell;
+        assert_eq!(
+            ch,
+            [
+                (2, Cell(0)),
+                (5, Cell(1)),
+                (2, Cell(0)),
+                (5, Cell(1)),
+                (5, Cell(2)),
+                (5, Cell(3)),
+                (5, Cell(2)),
+                (5, Cell(3))
+            ]
+        );
+    }
+
+    #[test]
+    fn bad_parameters_are_refused() {
+        let burst = |length, sample| Experiment::RepeatBurst {
+            target: 0,
+            precharge: 1,
+            precharge_sample: 0,
+            sample,
+            length,
+            repeats: 4,
+            rest_ns: 0,
+            settle_ns: 0,
+        };
+        assert_eq!(Steps::new(&burst(0, 0), T).unwrap_err(), ErrorKind::Empty);
+        assert_eq!(
+            Steps::new(&burst(4, 3), T).unwrap_err(),
+            ErrorKind::BadSampleIndex
+        );
+        assert_eq!(
+            Steps::new(&burst(MAX_BURST + 1, 0), T).unwrap_err(),
+            ErrorKind::TooLarge
+        );
+        let big = Experiment::NoiseRecord {
+            target: 0,
+            sample: 0,
+            period_ns: 1,
+            count: MAX_RAW_SAMPLES + 1,
+            settle_ns: 0,
+        };
+        assert_eq!(Steps::new(&big, T).unwrap_err(), ErrorKind::TooLarge);
+        let long = Experiment::OrderSwap {
+            a: 0,
+            b: 1,
+            sample: 0,
+            repeats: u16::MAX,
+            rest_ns: 0,
+            settle_ns: 0,
+        };
+        assert_eq!(Steps::new(&long, T).unwrap_err(), ErrorKind::TooLarge);
+    }
+}
