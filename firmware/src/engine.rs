@@ -5,9 +5,8 @@ use embedded_hal::delay::DelayNs;
 use embedded_io::{Read, Write};
 use heapless::{String, Vec};
 use ohmsight_protocol::{
-    encode_frame, Aggregate, ChannelInfo, ErrorKind, FrameAccumulator, FrontEnd, Request, Response,
-    StepRecord, Steps, Timing, MAX_CELLS, MAX_CHANNELS, MAX_FRAME, MAX_RAW_SAMPLES,
-    PROTOCOL_VERSION, SAMPLES_PER_MESSAGE,
+    encode_frame, Aggregate, ChannelInfo, ErrorKind, FrameAccumulator, FrontEnd, Request, Response, StepRecord, Steps,
+    Timing, MAX_CELLS, MAX_CHANNELS, MAX_FRAME, MAX_RAW_SAMPLES, PROTOCOL_VERSION, SAMPLES_PER_MESSAGE,
 };
 
 /// Version string the firmware reports in its hello.
@@ -69,10 +68,7 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
     }
 
     /// Serves the link forever: the firmware's main loop. Returns only on a link error.
-    pub fn run<L: Read + Write>(
-        &mut self,
-        link: &mut L,
-    ) -> Result<core::convert::Infallible, L::Error> {
+    pub fn run<L: Read + Write>(&mut self, link: &mut L) -> Result<core::convert::Infallible, L::Error> {
         let mut buf = [0u8; 64];
         loop {
             let n = link.read(&mut buf)?;
@@ -86,13 +82,7 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
             match self.rx.push::<Request>(b) {
                 None => {}
                 Some(Ok(req)) => self.handle(&req, out)?,
-                Some(Err(_)) => self.send(
-                    out,
-                    &Response::Error {
-                        seq: 0,
-                        kind: ErrorKind::BadFrame,
-                    },
-                )?,
+                Some(Err(_)) => self.send(out, &Response::Error { seq: 0, kind: ErrorKind::BadFrame })?,
             }
         }
         out.flush()
@@ -104,13 +94,7 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
             Request::Hello { protocol } => {
                 if *protocol != PROTOCOL_VERSION {
                     // Answer with our version anyway so the host can say what it met.
-                    self.send(
-                        out,
-                        &Response::Error {
-                            seq: 0,
-                            kind: ErrorKind::Version,
-                        },
-                    )?;
+                    self.send(out, &Response::Error { seq: 0, kind: ErrorKind::Version })?;
                 }
                 let mut firmware = String::new();
                 let _ = firmware.push_str(&FIRMWARE_VERSION[..FIRMWARE_VERSION.len().min(16)]);
@@ -127,21 +111,13 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
                 let fe = Response::FrontEnd(self.board.front_end.clone());
                 self.send(out, &fe)
             }
-            Request::Channel { position } => {
-                match self.board.channels.get(usize::from(*position)) {
-                    Some(c) => {
-                        let c = Response::Channel(c.clone());
-                        self.send(out, &c)
-                    }
-                    None => self.send(
-                        out,
-                        &Response::Error {
-                            seq: 0,
-                            kind: ErrorKind::BadPosition,
-                        },
-                    ),
+            Request::Channel { position } => match self.board.channels.get(usize::from(*position)) {
+                Some(c) => {
+                    let c = Response::Channel(c.clone());
+                    self.send(out, &c)
                 }
-            }
+                None => self.send(out, &Response::Error { seq: 0, kind: ErrorKind::BadPosition }),
+            },
             Request::Run { seq, experiment } => {
                 let seq = *seq;
                 match self.run_experiment(seq, experiment, out) {
@@ -165,18 +141,13 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
         out: &mut W,
     ) -> Result<Result<u32, ErrorKind>, W::Error> {
         let fe_desc = &self.board.front_end;
-        let timing = Timing {
-            sample_ps: &fe_desc.sample_ps,
-            conversion_ps: fe_desc.conversion_ps,
-        };
+        let timing = Timing { sample_ps: &fe_desc.sample_ps, conversion_ps: fe_desc.conversion_ps };
         let steps = match Steps::new(exp, timing) {
             Ok(s) => s,
             Err(k) => return Ok(Err(k)),
         };
         let (tested, precharges) = steps.channels();
-        if !tested.iter().flatten().all(|&c| self.has_channel(c))
-            || !precharges.iter().all(|&c| self.has_channel(c))
-        {
+        if !tested.iter().flatten().all(|&c| self.has_channel(c)) || !precharges.iter().all(|&c| self.has_channel(c)) {
             return Ok(Err(ErrorKind::BadChannel));
         }
         let n_cells = usize::from(steps.cells());
@@ -210,14 +181,7 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
         self.conversions = self.conversions.wrapping_add(done);
         for index in 0..n_cells {
             let agg = self.cells[index];
-            self.send(
-                out,
-                &Response::Cell {
-                    seq,
-                    index: index as u16,
-                    agg,
-                },
-            )?;
+            self.send(out, &Response::Cell { seq, index: index as u16, agg })?;
         }
         let mut offset = 0u16;
         while offset < n_raw {
@@ -264,18 +228,8 @@ mod tests {
 
     fn board() -> BoardDescription {
         let mut channels = Vec::new();
-        for (ch, role) in [
-            (0, ChannelRole::Pin),
-            (1, ChannelRole::Pin),
-            (9, ChannelRole::Precharge),
-        ] {
-            channels
-                .push(ChannelInfo {
-                    channel: ch,
-                    label: String::try_from("x").unwrap(),
-                    role,
-                })
-                .unwrap();
+        for (ch, role) in [(0, ChannelRole::Pin), (1, ChannelRole::Pin), (9, ChannelRole::Precharge)] {
+            channels.push(ChannelInfo { channel: ch, label: String::try_from("x").unwrap(), role }).unwrap();
         }
         BoardDescription {
             name: String::try_from("test").unwrap(),
@@ -292,11 +246,7 @@ mod tests {
                 noise_millilsb: 500,
                 leakage_picoamps: 1000,
                 pull_milliohms: 0,
-                precharges: Vec::from_slice(&[Precharge {
-                    channel: 9,
-                    nominal_microvolts: 0,
-                }])
-                .unwrap(),
+                precharges: Vec::from_slice(&[Precharge { channel: 9, nominal_microvolts: 0 }]).unwrap(),
             },
             channels,
         }
@@ -304,11 +254,7 @@ mod tests {
 
     fn responses(bytes: &[u8]) -> StdVec<Response> {
         let mut acc = FrameAccumulator::new();
-        bytes
-            .iter()
-            .filter_map(|&b| acc.push::<Response>(b))
-            .map(|r| r.unwrap())
-            .collect()
+        bytes.iter().filter_map(|&b| acc.push::<Response>(b)).map(|r| r.unwrap()).collect()
     }
 
     fn frame(req: &Request) -> StdVec<u8> {
@@ -321,9 +267,7 @@ mod tests {
     fn hello_describe_and_a_burst() {
         let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
         let mut out = StdVec::new();
-        let mut bytes = frame(&Request::Hello {
-            protocol: PROTOCOL_VERSION,
-        });
+        let mut bytes = frame(&Request::Hello { protocol: PROTOCOL_VERSION });
         bytes.extend(frame(&Request::Describe));
         let exp = Experiment::RepeatBurst {
             target: 1,
@@ -335,50 +279,19 @@ mod tests {
             rest_ns: 50,
             settle_ns: 1000,
         };
-        bytes.extend(frame(&Request::Run {
-            seq: 5,
-            experiment: exp,
-        }));
+        bytes.extend(frame(&Request::Run { seq: 5, experiment: exp }));
         e.feed(&bytes, &mut out).unwrap();
         let r = responses(&out);
-        assert!(matches!(
-            r[0],
-            Response::Hello {
-                protocol: PROTOCOL_VERSION,
-                channels: 3,
-                unit_id: 7,
-                ..
-            }
-        ));
+        assert!(matches!(r[0], Response::Hello { protocol: PROTOCOL_VERSION, channels: 3, unit_id: 7, .. }));
         assert!(matches!(r[1], Response::FrontEnd(_)));
         assert_eq!(r.len(), 2 + 3 + 1);
         for (j, resp) in r[2..5].iter().enumerate() {
-            let Response::Cell { seq: 5, index, agg } = resp else {
-                panic!("{resp:?}")
-            };
+            let Response::Cell { seq: 5, index, agg } = resp else { panic!("{resp:?}") };
             assert_eq!(usize::from(*index), j);
             assert_eq!((agg.count, agg.sum, agg.min, agg.max), (2, 200, 100, 100));
         }
-        assert_eq!(
-            r[5],
-            Response::Done {
-                seq: 5,
-                conversions: 8
-            }
-        );
-        assert_eq!(
-            e.fe.log,
-            [
-                (9, 1),
-                (1, 0),
-                (1, 0),
-                (1, 0),
-                (9, 1),
-                (1, 0),
-                (1, 0),
-                (1, 0)
-            ]
-        );
+        assert_eq!(r[5], Response::Done { seq: 5, conversions: 8 });
+        assert_eq!(e.fe.log, [(9, 1), (1, 0), (1, 0), (1, 0), (9, 1), (1, 0), (1, 0), (1, 0)]);
         assert_eq!(e.delay.0, 1000 + 2 * 50);
     }
 
@@ -386,17 +299,8 @@ mod tests {
     fn bad_requests_get_error_records_and_the_engine_keeps_answering() {
         let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
         let mut out = StdVec::new();
-        let unknown = Experiment::NoiseRecord {
-            target: 4,
-            sample: 0,
-            period_ns: 10,
-            count: 8,
-            settle_ns: 0,
-        };
-        let mut bytes = frame(&Request::Run {
-            seq: 1,
-            experiment: unknown,
-        });
+        let unknown = Experiment::NoiseRecord { target: 4, sample: 0, period_ns: 10, count: 8, settle_ns: 0 };
+        let mut bytes = frame(&Request::Run { seq: 1, experiment: unknown });
         bytes.extend_from_slice(&[0x13, 0x37, 0x00]); // garbage frame
         bytes.extend_from_slice(&frame(&Request::Hello { protocol: 1 })[..3]); // truncated …
         bytes.push(0); // … then cut off by a delimiter
@@ -404,89 +308,30 @@ mod tests {
         bytes.extend(frame(&Request::Hello { protocol: 99 }));
         e.feed(&bytes, &mut out).unwrap();
         let r = responses(&out);
-        assert_eq!(
-            r[0],
-            Response::Error {
-                seq: 1,
-                kind: ErrorKind::BadChannel
-            }
-        );
-        assert_eq!(
-            r[1],
-            Response::Error {
-                seq: 0,
-                kind: ErrorKind::BadFrame
-            }
-        );
-        assert_eq!(
-            r[2],
-            Response::Error {
-                seq: 0,
-                kind: ErrorKind::BadFrame
-            }
-        );
-        assert_eq!(
-            r[3],
-            Response::Error {
-                seq: 0,
-                kind: ErrorKind::BadPosition
-            }
-        );
-        assert_eq!(
-            r[4],
-            Response::Error {
-                seq: 0,
-                kind: ErrorKind::Version
-            }
-        );
+        assert_eq!(r[0], Response::Error { seq: 1, kind: ErrorKind::BadChannel });
+        assert_eq!(r[1], Response::Error { seq: 0, kind: ErrorKind::BadFrame });
+        assert_eq!(r[2], Response::Error { seq: 0, kind: ErrorKind::BadFrame });
+        assert_eq!(r[3], Response::Error { seq: 0, kind: ErrorKind::BadPosition });
+        assert_eq!(r[4], Response::Error { seq: 0, kind: ErrorKind::Version });
         assert!(matches!(r[5], Response::Hello { .. }));
-        assert!(
-            e.fe.log.is_empty(),
-            "nothing was converted for refused requests"
-        );
+        assert!(e.fe.log.is_empty(), "nothing was converted for refused requests");
     }
 
     #[test]
     fn noise_record_streams_raw_codes_in_order() {
         let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
         let mut out = StdVec::new();
-        let exp = Experiment::NoiseRecord {
-            target: 0,
-            sample: 1,
-            period_ns: 10_000,
-            count: 100,
-            settle_ns: 0,
-        };
-        e.feed(
-            &frame(&Request::Run {
-                seq: 2,
-                experiment: exp,
-            }),
-            &mut out,
-        )
-        .unwrap();
+        let exp = Experiment::NoiseRecord { target: 0, sample: 1, period_ns: 10_000, count: 100, settle_ns: 0 };
+        e.feed(&frame(&Request::Run { seq: 2, experiment: exp }), &mut out).unwrap();
         let r = responses(&out);
         let mut codes = StdVec::new();
         for resp in &r[..r.len() - 1] {
-            let Response::Samples {
-                seq: 2,
-                offset,
-                codes: c,
-            } = resp
-            else {
-                panic!()
-            };
+            let Response::Samples { seq: 2, offset, codes: c } = resp else { panic!() };
             assert_eq!(usize::from(*offset), codes.len());
             codes.extend_from_slice(c);
         }
         assert_eq!(codes, [1u16; 100]);
-        assert_eq!(
-            r.last(),
-            Some(&Response::Done {
-                seq: 2,
-                conversions: 100
-            })
-        );
+        assert_eq!(r.last(), Some(&Response::Done { seq: 2, conversions: 100 }));
         // 100 gaps of 10 µs − (1 µs + 0.5 µs) busy.
         assert_eq!(e.delay.0, 100 * 8_500);
     }

@@ -1,1 +1,137 @@
-fn main() {}
+//! `ohmsight`: the command-line tool. Logic lives in the library; this file parses arguments
+//! and maps outcomes to exit codes.
+//!
+//! Exit codes: 0 success; 1 the survey could not be done (link, board); 2 bad input (file,
+//! arguments).
+
+use clap::{Parser, Subcommand};
+use ohmsight::link::{InProcessLink, Link, SerialLink};
+use ohmsight::session::Session;
+use ohmsight::survey::{survey, SurveyOptions};
+use ohmsight::{report, scenario};
+use std::io::Write;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+#[derive(Parser)]
+#[command(
+    name = "ohmsight",
+    version,
+    about = "Measure the analog side of a microcontroller's ADC pins from the MCU itself",
+    long_about = "ohmsight runs controlled ADC experiments on a board (or on its built-in simulated board) \
+and fits a physical model of the sampling network: per pin, source resistance and node capacitance with \
+95% intervals, driven / floating / at-rail, noise and mains hum, memory of the previous channel, and the \
+shortest sample time that settles to half an LSB."
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Survey every pin of a board: fit source resistance, node capacitance, verdicts, settling.
+    ///
+    /// With no link option the built-in demo scenario runs on the simulated board.
+    Survey(SurveyArgs),
+}
+
+#[derive(clap::Args)]
+struct SurveyArgs {
+    /// Simulated board wired as described in this scenario file (TOML).
+    #[arg(long, value_name = "FILE.toml", conflicts_with = "port")]
+    scenario: Option<PathBuf>,
+    /// Serial port of a board running the ohmsight firmware (e.g. /dev/ttyACM0).
+    #[arg(long, value_name = "PATH")]
+    port: Option<String>,
+    /// Baud rate of the serial port.
+    #[arg(long, value_name = "N", default_value_t = 115_200, requires = "port")]
+    baud: u32,
+    /// Seed of the simulated board's noise (overrides the scenario's).
+    #[arg(long, value_name = "N", conflicts_with = "port")]
+    seed: Option<u64>,
+    /// Survey only this channel (repeat for several).
+    #[arg(long = "channel", value_name = "N")]
+    channels: Vec<u8>,
+    /// Print one JSON document on stdout instead of the table.
+    #[arg(long)]
+    json: bool,
+    /// No progress bar.
+    #[arg(long, short)]
+    quiet: bool,
+    /// Talk to a board of another protocol version anyway.
+    #[arg(long)]
+    any_version: bool,
+}
+
+/// Exit status for bad input.
+const EXIT_INPUT: u8 = 2;
+/// Exit status for a failed survey.
+const EXIT_FAILED: u8 = 1;
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli) {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("ohmsight: {e:#}");
+            ExitCode::from(EXIT_FAILED)
+        }
+    }
+}
+
+fn run(cli: Cli) -> anyhow::Result<ExitCode> {
+    match cli.command {
+        Command::Survey(args) => run_survey(args),
+    }
+}
+
+fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
+    let opts = SurveyOptions {
+        any_version: args.any_version,
+        progress: !args.quiet && std::io::IsTerminal::is_terminal(&std::io::stderr()),
+        channels: args.channels.clone(),
+    };
+    let (text, json) = if let Some(port) = &args.port {
+        let link = match SerialLink::open(port, args.baud) {
+            Ok(l) => l,
+            Err(e) => {
+                eprintln!("ohmsight: {e}");
+                return Ok(ExitCode::from(EXIT_INPUT));
+            }
+        };
+        let mut session = Session::new(link);
+        session.link_bytes_per_s = u64::from(args.baud / 10);
+        render(&mut session, &opts)?
+    } else {
+        let mut sc = match &args.scenario {
+            Some(path) => match scenario::load(path) {
+                Ok(s) => s,
+                Err(e) => {
+                    eprintln!("ohmsight: {e}");
+                    return Ok(ExitCode::from(EXIT_INPUT));
+                }
+            },
+            None => scenario::demo(),
+        };
+        if let Some(seed) = args.seed {
+            sc.seed = seed;
+        }
+        let mut session = Session::new(InProcessLink::new(&sc));
+        render(&mut session, &opts)?
+    };
+    let mut stdout = std::io::stdout().lock();
+    let out = if args.json { json + "\n" } else { text };
+    match stdout.write_all(out.as_bytes()).and_then(|_| stdout.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => return Err(e.into()),
+        _ => {}
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn render<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> anyhow::Result<(String, String)> {
+    let name = session.link().name();
+    let r = survey(session, opts)?;
+    let json = serde_json::to_string_pretty(&report::survey_json(&r, &name))?;
+    Ok((report::survey_text(&r, &name), json))
+}

@@ -93,9 +93,7 @@ impl Network {
     /// Node voltage at rest (switch open for a long time); `None` for a floating pin, whose
     /// rest level is wherever its charge left it.
     pub fn rest_volts(&self) -> Option<f64> {
-        self.source_ohms
-            .is_finite()
-            .then(|| self.source_volts - self.leak_amps * self.source_ohms)
+        self.source_ohms.is_finite().then(|| self.source_volts - self.leak_amps * self.source_ohms)
     }
 
     /// Exact map of a switch-closed (sampling) phase of `t` seconds.
@@ -125,10 +123,7 @@ impl Network {
                 int_m[i][j] = (ps * mf[i][j] - pf * ms[i][j]) / span;
             }
         }
-        Sampling {
-            phi: phi_m,
-            gamma: [int_m[0][0] * b0, int_m[1][0] * b0],
-        }
+        Sampling { phi: phi_m, gamma: [int_m[0][0] * b0, int_m[1][0] * b0] }
     }
 
     /// Exact map of a switch-open phase of `t` seconds (the hold capacitor keeps its charge).
@@ -147,12 +142,8 @@ impl Sampling {
     /// Applies the map.
     pub fn apply(&self, s: State) -> State {
         State {
-            node_volts: self.phi[0][0] * s.node_volts
-                + self.phi[0][1] * s.hold_volts
-                + self.gamma[0],
-            hold_volts: self.phi[1][0] * s.node_volts
-                + self.phi[1][1] * s.hold_volts
-                + self.gamma[1],
+            node_volts: self.phi[0][0] * s.node_volts + self.phi[0][1] * s.hold_volts + self.gamma[0],
+            hold_volts: self.phi[1][0] * s.node_volts + self.phi[1][1] * s.hold_volts + self.gamma[1],
         }
     }
 }
@@ -160,10 +151,7 @@ impl Sampling {
 impl Open {
     /// Applies the map.
     pub fn apply(&self, s: State) -> State {
-        State {
-            node_volts: self.a * s.node_volts + self.c,
-            hold_volts: s.hold_volts,
-        }
+        State { node_volts: self.a * s.node_volts + self.c, hold_volts: s.hold_volts }
     }
 }
 
@@ -208,18 +196,12 @@ mod tests {
                 x[i] += h / 6.0 * (k1[i] + 2.0 * k2[i] + 2.0 * k3[i] + k4[i]);
             }
         }
-        State {
-            node_volts: x[0],
-            hold_volts: x[1],
-        }
+        State { node_volts: x[0], hold_volts: x[1] }
     }
 
     #[test]
     fn closed_form_matches_rk4_across_regimes() {
-        let start = State {
-            node_volts: 1.0,
-            hold_volts: 0.0,
-        };
+        let start = State { node_volts: 1.0, hold_volts: 0.0 };
         for &(rs, cn, t) in &[
             (1e3, 5e-12, 200e-9),
             (100e3, 10e-12, 2e-6),
@@ -230,14 +212,8 @@ mod tests {
             let n = net(rs, cn);
             let exact = n.sampling(t).apply(start);
             let num = rk4(&n, start, t, 200_000);
-            assert!(
-                (exact.hold_volts - num.hold_volts).abs() < 1e-9,
-                "Rs={rs} Cn={cn}: {exact:?} vs {num:?}"
-            );
-            assert!(
-                (exact.node_volts - num.node_volts).abs() < 1e-9,
-                "Rs={rs} Cn={cn}"
-            );
+            assert!((exact.hold_volts - num.hold_volts).abs() < 1e-9, "Rs={rs} Cn={cn}: {exact:?} vs {num:?}");
+            assert!((exact.node_volts - num.node_volts).abs() < 1e-9, "Rs={rs} Cn={cn}");
         }
     }
 
@@ -246,10 +222,7 @@ mod tests {
         // Textbook charge conservation: with no DC path, Cn·Vn + Ch·Vh is constant and the two
         // capacitors end at the charge-weighted mean.
         let n = net(f64::INFINITY, 10e-12);
-        let s0 = State {
-            node_volts: 2.0,
-            hold_volts: 0.5,
-        };
+        let s0 = State { node_volts: 2.0, hold_volts: 0.5 };
         let q0 = n.node_farads * s0.node_volts + n.hold_farads * s0.hold_volts;
         for &t in &[1e-9, 30e-9, 1e-6] {
             let s = n.sampling(t).apply(s0);
@@ -265,16 +238,9 @@ mod tests {
     fn large_filter_capacitor_shares_charge_instantly() {
         // ΔV = (Vn − Vh)·Ch/(Ch + Cn) once the switch has settled (≫ Rm·Ch), before Rs recovers.
         let n = net(1e6, 100e-9);
-        let s = n.sampling(2e-6).apply(State {
-            node_volts: 1.0,
-            hold_volts: 0.0,
-        });
+        let s = n.sampling(2e-6).apply(State { node_volts: 1.0, hold_volts: 0.0 });
         let want = 1.0 - 1.0 * 4e-12 / (4e-12 + 100e-9);
-        assert!(
-            (s.node_volts - want).abs() < 1e-8,
-            "{} vs {want}",
-            s.node_volts
-        );
+        assert!((s.node_volts - want).abs() < 1e-8, "{} vs {want}", s.node_volts);
         assert!((s.hold_volts - s.node_volts).abs() < 1e-9);
     }
 
@@ -287,42 +253,26 @@ mod tests {
         n.hold_farads = 8e-12;
         let tau = 11e3 * 8e-12;
         for &t in &[20e-9, 88e-9, 400e-9] {
-            let s = n.sampling(t).apply(State {
-                node_volts: 0.0,
-                hold_volts: 0.0,
-            });
+            let s = n.sampling(t).apply(State { node_volts: 0.0, hold_volts: 0.0 });
             let want = 1.0 - libm::exp(-t / tau);
-            assert!(
-                (s.hold_volts - want).abs() < 1e-5,
-                "t={t}: {} vs {want}",
-                s.hold_volts
-            );
+            assert!((s.hold_volts - want).abs() < 1e-5, "t={t}: {} vs {want}", s.hold_volts);
         }
     }
 
     #[test]
     fn open_phase_recovers_through_rs_and_drifts_when_floating() {
         let n = net(1e6, 10e-12); // τ = 10 µs
-        let s = n.open(10e-6).apply(State {
-            node_volts: 0.0,
-            hold_volts: 0.3,
-        });
+        let s = n.open(10e-6).apply(State { node_volts: 0.0, hold_volts: 0.3 });
         assert!((s.node_volts - (1.0 - libm::exp(-1.0))).abs() < 1e-12);
         assert_eq!(s.hold_volts, 0.3);
         let mut f = net(f64::INFINITY, 10e-12);
         f.leak_amps = 10e-12; // 10 pA out of 10 pF: −1 V/s
-        let s = f.open(1e-3).apply(State {
-            node_volts: 1.0,
-            hold_volts: 0.0,
-        });
+        let s = f.open(1e-3).apply(State { node_volts: 1.0, hold_volts: 0.0 });
         assert!((s.node_volts - 0.999).abs() < 1e-12);
         // The same leak on a driven pin settles at Vs − I·Rs.
         let mut d = net(1e6, 10e-12);
         d.leak_amps = 10e-12;
-        let s = d.open(1.0).apply(State {
-            node_volts: 0.0,
-            hold_volts: 0.0,
-        });
+        let s = d.open(1.0).apply(State { node_volts: 0.0, hold_volts: 0.0 });
         assert!((s.node_volts - (1.0 - 10e-12 * 1e6)).abs() < 1e-12);
         assert_eq!(d.rest_volts(), Some(1.0 - 1e-5));
     }
@@ -345,10 +295,7 @@ mod tests {
         let ln = libm::log(libm::pow(2.0, f64::from(bits + 2)));
         for &(cycles, r_table, step) in &table {
             let r_rule = cycles / (f * c * ln) - r_adc;
-            assert!(
-                (r_rule - r_table).abs() <= step / 2.0,
-                "{cycles} cycles: rule {r_rule} vs table {r_table}"
-            );
+            assert!((r_rule - r_table).abs() <= step / 2.0, "{cycles} cycles: rule {r_rule} vs table {r_table}");
             // Our exact model, with a negligible node capacitance, settles a full-scale step to
             // exactly 2^-(N+2) of full scale at that sample time when Rs is the rule's value.
             let n = Network {
@@ -359,15 +306,9 @@ mod tests {
                 hold_farads: c,
                 leak_amps: 0.0,
             };
-            let s = n.sampling(cycles / f).apply(State {
-                node_volts: 1.0,
-                hold_volts: 0.0,
-            });
+            let s = n.sampling(cycles / f).apply(State { node_volts: 1.0, hold_volts: 0.0 });
             let err = (1.0 - s.hold_volts) * libm::pow(2.0, f64::from(bits + 2));
-            assert!(
-                (err - 1.0).abs() < 1e-3,
-                "{cycles} cycles: residual {err} quarter-LSB"
-            );
+            assert!((err - 1.0).abs() < 1e-3, "{cycles} cycles: residual {err} quarter-LSB");
         }
     }
 }

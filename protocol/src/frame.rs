@@ -53,9 +53,7 @@ impl std::error::Error for FrameError {}
 /// Encodes `msg` into `out` as one complete frame (delimiter included); returns its length.
 pub fn encode_frame<T: Serialize>(msg: &T, out: &mut [u8]) -> Result<usize, FrameError> {
     let mut raw = [0u8; MAX_PAYLOAD + 4];
-    let n = postcard::to_slice(msg, &mut raw[..MAX_PAYLOAD])
-        .map_err(|_| FrameError::EncodeTooLarge)?
-        .len();
+    let n = postcard::to_slice(msg, &mut raw[..MAX_PAYLOAD]).map_err(|_| FrameError::EncodeTooLarge)?.len();
     let crc = FRAME_CRC.checksum(&raw[..n]);
     raw[n..n + 4].copy_from_slice(&crc.to_le_bytes());
     let body = n + 4;
@@ -100,11 +98,7 @@ impl Default for FrameAccumulator {
 impl FrameAccumulator {
     /// An empty accumulator.
     pub const fn new() -> Self {
-        Self {
-            buf: [0; MAX_FRAME],
-            len: 0,
-            overflowed: false,
-        }
+        Self { buf: [0; MAX_FRAME], len: 0, overflowed: false }
     }
 
     /// Feeds one byte. Returns `None` while a frame is incomplete, `Some(Ok(msg))` for a good
@@ -164,19 +158,13 @@ mod tests {
         assert_eq!(&out[..n], &want[..]);
         // The leading zero byte of the payload must have been replaced: only the delimiter is 0.
         assert_eq!(out[..n].iter().filter(|&&b| b == 0).count(), 1);
-        assert_eq!(
-            out[0], 0x01,
-            "COBS code byte: the first zero is right at the start"
-        );
+        assert_eq!(out[0], 0x01, "COBS code byte: the first zero is right at the start");
     }
 
     #[test]
     fn round_trip_through_accumulator_with_garbage_before() {
         let mut out = [0u8; MAX_FRAME];
-        let msg = Response::Done {
-            seq: 7,
-            conversions: 123_456,
-        };
+        let msg = Response::Done { seq: 7, conversions: 123_456 };
         let n = encode_frame(&msg, &mut out).unwrap();
         let mut acc = FrameAccumulator::new();
         let mut got = std::vec::Vec::new();
@@ -186,24 +174,14 @@ mod tests {
             }
         }
         assert_eq!(got.len(), 2);
-        assert!(
-            got[0].is_err(),
-            "garbage before the frame is reported, not swallowed"
-        );
+        assert!(got[0].is_err(), "garbage before the frame is reported, not swallowed");
         assert_eq!(got[1], Ok(msg));
     }
 
     #[test]
     fn corrupted_byte_is_caught() {
         let mut out = [0u8; MAX_FRAME];
-        let n = encode_frame(
-            &Response::Done {
-                seq: 1,
-                conversions: 99,
-            },
-            &mut out,
-        )
-        .unwrap();
+        let n = encode_frame(&Response::Done { seq: 1, conversions: 99 }, &mut out).unwrap();
         for i in 0..n - 1 {
             let mut bad = out;
             bad[i] ^= 0x10;
@@ -218,14 +196,7 @@ mod tests {
     #[test]
     fn truncated_frame_is_an_error_not_a_panic() {
         let mut out = [0u8; MAX_FRAME];
-        let n = encode_frame(
-            &Response::Done {
-                seq: 1,
-                conversions: 99,
-            },
-            &mut out,
-        )
-        .unwrap();
+        let n = encode_frame(&Response::Done { seq: 1, conversions: 99 }, &mut out).unwrap();
         for cut in 0..n - 1 {
             let mut part = out;
             let _ = decode_frame::<Response>(&mut part[..cut]);
@@ -234,10 +205,7 @@ mod tests {
         for _ in 0..MAX_FRAME + 10 {
             assert!(acc.push::<Response>(0x41).is_none());
         }
-        assert_eq!(
-            acc.push::<Response>(0),
-            Some(Err(FrameError::DecodeOverflow))
-        );
+        assert_eq!(acc.push::<Response>(0), Some(Err(FrameError::DecodeOverflow)));
         assert!(!acc.is_mid_frame());
     }
 
@@ -248,24 +216,9 @@ mod tests {
         for _ in 0..SAMPLES_PER_MESSAGE {
             codes.push(u16::MAX).unwrap();
         }
-        encode_frame(
-            &Response::Samples {
-                seq: u16::MAX,
-                offset: u16::MAX,
-                codes,
-            },
-            &mut out,
-        )
-        .unwrap();
+        encode_frame(&Response::Samples { seq: u16::MAX, offset: u16::MAX, codes }, &mut out).unwrap();
         encode_frame(&Response::FrontEnd(FrontEnd::largest_for_tests()), &mut out).unwrap();
-        encode_frame(
-            &Request::Run {
-                seq: u16::MAX,
-                experiment: Experiment::largest_for_tests(),
-            },
-            &mut out,
-        )
-        .unwrap();
+        encode_frame(&Request::Run { seq: u16::MAX, experiment: Experiment::largest_for_tests() }, &mut out).unwrap();
     }
 
     #[test]

@@ -372,13 +372,7 @@ impl FrontEnd {
         let mut sample_ps = Vec::new();
         while sample_ps.push(u32::MAX).is_ok() {}
         let mut precharges = Vec::new();
-        while precharges
-            .push(Precharge {
-                channel: u8::MAX,
-                nominal_microvolts: u32::MAX,
-            })
-            .is_ok()
-        {}
+        while precharges.push(Precharge { channel: u8::MAX, nominal_microvolts: u32::MAX }).is_ok() {}
         FrontEnd {
             bits: u8::MAX,
             vref_microvolts: u32::MAX,

@@ -3,9 +3,7 @@
 //! One implementation serves both sides: the firmware engine executes [`Steps`] on the board,
 //! the host fit simulates the same [`Steps`] on the model. Integer arithmetic only.
 
-use crate::messages::{
-    ErrorKind, Experiment, MAX_BURST, MAX_CELLS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_WAIT_NS,
-};
+use crate::messages::{ErrorKind, Experiment, MAX_BURST, MAX_CELLS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_WAIT_NS};
 
 /// The board timing the sequence needs.
 #[derive(Debug, Clone, Copy)]
@@ -79,13 +77,7 @@ impl<'a> Steps<'a> {
         };
         let len: u64 = match exp {
             Experiment::PrechargeSweep {
-                precharges,
-                precharge_sample,
-                samples,
-                repeats,
-                rest_ns,
-                settle_ns,
-                ..
+                precharges, precharge_sample, samples, repeats, rest_ns, settle_ns, ..
             } => {
                 if precharges.is_empty() || samples.is_empty() || *repeats == 0 {
                     return Err(ErrorKind::Empty);
@@ -100,13 +92,7 @@ impl<'a> Steps<'a> {
                 check_wait(*settle_ns)?;
                 u64::from(*repeats) * (samples.len() * precharges.len() * 2) as u64
             }
-            Experiment::OrderSwap {
-                sample,
-                repeats,
-                rest_ns,
-                settle_ns,
-                ..
-            } => {
+            Experiment::OrderSwap { sample, repeats, rest_ns, settle_ns, .. } => {
                 if *repeats == 0 {
                     return Err(ErrorKind::Empty);
                 }
@@ -117,15 +103,7 @@ impl<'a> Steps<'a> {
                 check_wait(*settle_ns)?;
                 4 * u64::from(*repeats)
             }
-            Experiment::RepeatBurst {
-                precharge_sample,
-                sample,
-                length,
-                repeats,
-                rest_ns,
-                settle_ns,
-                ..
-            } => {
+            Experiment::RepeatBurst { precharge_sample, sample, length, repeats, rest_ns, settle_ns, .. } => {
                 if *length == 0 || *repeats == 0 {
                     return Err(ErrorKind::Empty);
                 }
@@ -139,14 +117,7 @@ impl<'a> Steps<'a> {
                 check_wait(*settle_ns)?;
                 u64::from(*repeats) * (u64::from(*length) + 1)
             }
-            Experiment::PeriodSweep {
-                precharge_sample,
-                sample,
-                periods_ns,
-                repeats,
-                settle_ns,
-                ..
-            } => {
+            Experiment::PeriodSweep { precharge_sample, sample, periods_ns, repeats, settle_ns, .. } => {
                 if periods_ns.is_empty() || *repeats == 0 {
                     return Err(ErrorKind::Empty);
                 }
@@ -161,13 +132,7 @@ impl<'a> Steps<'a> {
                 }
                 u64::from(*repeats) * 2 * periods_ns.len() as u64
             }
-            Experiment::NoiseRecord {
-                sample,
-                period_ns,
-                count,
-                settle_ns,
-                ..
-            } => {
+            Experiment::NoiseRecord { sample, period_ns, count, settle_ns, .. } => {
                 if *count == 0 {
                     return Err(ErrorKind::Empty);
                 }
@@ -186,12 +151,7 @@ impl<'a> Steps<'a> {
         if len > u64::from(MAX_CONVERSIONS) {
             return Err(ErrorKind::TooLarge);
         }
-        Ok(Self {
-            exp,
-            timing,
-            len: len as u32,
-            gap_ns,
-        })
+        Ok(Self { exp, timing, len: len as u32, gap_ns })
     }
 
     /// Number of conversions.
@@ -218,11 +178,7 @@ impl<'a> Steps<'a> {
     /// Number of aggregate cells (0 for a noise record).
     pub fn cells(&self) -> u16 {
         match self.exp {
-            Experiment::PrechargeSweep {
-                precharges,
-                samples,
-                ..
-            } => (precharges.len() * samples.len()) as u16,
+            Experiment::PrechargeSweep { precharges, samples, .. } => (precharges.len() * samples.len()) as u16,
             Experiment::OrderSwap { .. } => 4,
             Experiment::RepeatBurst { length, .. } => u16::from(*length),
             Experiment::PeriodSweep { periods_ns, .. } => periods_ns.len() as u16,
@@ -241,16 +197,11 @@ impl<'a> Steps<'a> {
     /// Channels the experiment converts: (channels under test, channels used as precharge).
     pub fn channels(&self) -> ([Option<u8>; 2], &'a [u8]) {
         match self.exp {
-            Experiment::PrechargeSweep {
-                target, precharges, ..
-            } => ([Some(*target), None], precharges.as_slice()),
+            Experiment::PrechargeSweep { target, precharges, .. } => ([Some(*target), None], precharges.as_slice()),
             Experiment::OrderSwap { a, b, .. } => ([Some(*a), Some(*b)], &[]),
-            Experiment::RepeatBurst {
-                target, precharge, ..
+            Experiment::RepeatBurst { target, precharge, .. } | Experiment::PeriodSweep { target, precharge, .. } => {
+                ([Some(*target), None], core::slice::from_ref(precharge))
             }
-            | Experiment::PeriodSweep {
-                target, precharge, ..
-            } => ([Some(*target), None], core::slice::from_ref(precharge)),
             Experiment::NoiseRecord { target, .. } => ([Some(*target), None], &[]),
         }
     }
@@ -269,14 +220,7 @@ impl<'a> Steps<'a> {
     pub fn step(&self, i: u32) -> Step {
         debug_assert!(i < self.len);
         match self.exp {
-            Experiment::PrechargeSweep {
-                target,
-                precharges,
-                precharge_sample,
-                samples,
-                rest_ns,
-                ..
-            } => {
+            Experiment::PrechargeSweep { target, precharges, precharge_sample, samples, rest_ns, .. } => {
                 let np = precharges.len() as u32;
                 let block = samples.len() as u32 * np * 2;
                 let j = i % block;
@@ -297,14 +241,7 @@ impl<'a> Steps<'a> {
                     }
                 }
             }
-            Experiment::OrderSwap {
-                a,
-                b,
-                sample,
-                repeats,
-                rest_ns,
-                ..
-            } => {
+            Experiment::OrderSwap { a, b, sample, repeats, rest_ns, .. } => {
                 let first_phase = i < 2 * u32::from(*repeats);
                 let second = i % 2 == 1;
                 let channel = if first_phase && !second { *a } else { *b };
@@ -316,24 +253,11 @@ impl<'a> Steps<'a> {
                     record: StepRecord::Cell(cell),
                 }
             }
-            Experiment::RepeatBurst {
-                target,
-                precharge,
-                precharge_sample,
-                sample,
-                length,
-                rest_ns,
-                ..
-            } => {
+            Experiment::RepeatBurst { target, precharge, precharge_sample, sample, length, rest_ns, .. } => {
                 let block = u32::from(*length) + 1;
                 let j = i % block;
                 if j == 0 {
-                    Step {
-                        channel: *precharge,
-                        sample: *precharge_sample,
-                        wait_after_ns: 0,
-                        record: StepRecord::None,
-                    }
+                    Step { channel: *precharge, sample: *precharge_sample, wait_after_ns: 0, record: StepRecord::None }
                 } else {
                     Step {
                         channel: *target,
@@ -343,23 +267,11 @@ impl<'a> Steps<'a> {
                     }
                 }
             }
-            Experiment::PeriodSweep {
-                target,
-                precharge,
-                precharge_sample,
-                sample,
-                repeats,
-                ..
-            } => {
+            Experiment::PeriodSweep { target, precharge, precharge_sample, sample, repeats, .. } => {
                 let per = 2 * u32::from(*repeats);
                 let p = (i / per) as usize;
                 if i % 2 == 0 {
-                    Step {
-                        channel: *precharge,
-                        sample: *precharge_sample,
-                        wait_after_ns: 0,
-                        record: StepRecord::None,
-                    }
+                    Step { channel: *precharge, sample: *precharge_sample, wait_after_ns: 0, record: StepRecord::None }
                 } else {
                     Step {
                         channel: *target,
@@ -390,10 +302,7 @@ mod tests {
     use heapless::Vec;
 
     const SAMPLE_PS: [u32; 3] = [100_000, 500_000, 2_000_000];
-    const T: Timing = Timing {
-        sample_ps: &SAMPLE_PS,
-        conversion_ps: 600_000,
-    };
+    const T: Timing = Timing { sample_ps: &SAMPLE_PS, conversion_ps: 600_000 };
 
     #[test]
     fn precharge_sweep_alternates_precharge_and_target() {
@@ -410,35 +319,11 @@ mod tests {
         assert_eq!(s.len(), 16);
         assert_eq!(s.cells(), 4);
         let v: std::vec::Vec<_> = s.iter().collect();
-        assert_eq!(
-            v[0],
-            Step {
-                channel: 16,
-                sample: 2,
-                wait_after_ns: 0,
-                record: StepRecord::None
-            }
-        );
-        assert_eq!(
-            v[1],
-            Step {
-                channel: 3,
-                sample: 0,
-                wait_after_ns: 700,
-                record: StepRecord::Cell(0)
-            }
-        );
+        assert_eq!(v[0], Step { channel: 16, sample: 2, wait_after_ns: 0, record: StepRecord::None });
+        assert_eq!(v[1], Step { channel: 3, sample: 0, wait_after_ns: 700, record: StepRecord::Cell(0) });
         assert_eq!(v[2].channel, 17);
         assert_eq!(v[3].record, StepRecord::Cell(1));
-        assert_eq!(
-            v[5],
-            Step {
-                channel: 3,
-                sample: 1,
-                wait_after_ns: 700,
-                record: StepRecord::Cell(2)
-            }
-        );
+        assert_eq!(v[5], Step { channel: 3, sample: 1, wait_after_ns: 700, record: StepRecord::Cell(2) });
         assert_eq!(v[9], v[1], "second repeat repeats the first");
     }
 
@@ -456,28 +341,13 @@ mod tests {
         let s = Steps::new(&exp, T).unwrap();
         // busy = (2.0 + 0.6) + (0.1 + 0.6) µs = 3.3 µs: the 1 µs period runs back to back.
         assert_eq!(s.step(1).wait_after_ns, 0);
-        assert_eq!(
-            s.step(7),
-            Step {
-                channel: 1,
-                sample: 0,
-                wait_after_ns: 6_700,
-                record: StepRecord::Cell(1)
-            }
-        );
+        assert_eq!(s.step(7), Step { channel: 1, sample: 0, wait_after_ns: 6_700, record: StepRecord::Cell(1) });
         assert_eq!(s.nominal_ps(), 6 * 3_300_000 + 3 * 6_700_000);
     }
 
     #[test]
     fn order_swap_cells() {
-        let exp = Experiment::OrderSwap {
-            a: 2,
-            b: 5,
-            sample: 1,
-            repeats: 2,
-            rest_ns: 10,
-            settle_ns: 0,
-        };
+        let exp = Experiment::OrderSwap { a: 2, b: 5, sample: 1, repeats: 2, rest_ns: 10, settle_ns: 0 };
         let s = Steps::new(&exp, T).unwrap();
         let ch: std::vec::Vec<_> = s.iter().map(|x| (x.channel, x.record)).collect();
         use StepRecord::Cell;
@@ -509,30 +379,12 @@ mod tests {
             settle_ns: 0,
         };
         assert_eq!(Steps::new(&burst(0, 0), T).unwrap_err(), ErrorKind::Empty);
-        assert_eq!(
-            Steps::new(&burst(4, 3), T).unwrap_err(),
-            ErrorKind::BadSampleIndex
-        );
-        assert_eq!(
-            Steps::new(&burst(MAX_BURST + 1, 0), T).unwrap_err(),
-            ErrorKind::TooLarge
-        );
-        let big = Experiment::NoiseRecord {
-            target: 0,
-            sample: 0,
-            period_ns: 1,
-            count: MAX_RAW_SAMPLES + 1,
-            settle_ns: 0,
-        };
+        assert_eq!(Steps::new(&burst(4, 3), T).unwrap_err(), ErrorKind::BadSampleIndex);
+        assert_eq!(Steps::new(&burst(MAX_BURST + 1, 0), T).unwrap_err(), ErrorKind::TooLarge);
+        let big =
+            Experiment::NoiseRecord { target: 0, sample: 0, period_ns: 1, count: MAX_RAW_SAMPLES + 1, settle_ns: 0 };
         assert_eq!(Steps::new(&big, T).unwrap_err(), ErrorKind::TooLarge);
-        let long = Experiment::OrderSwap {
-            a: 0,
-            b: 1,
-            sample: 0,
-            repeats: u16::MAX,
-            rest_ns: 0,
-            settle_ns: 0,
-        };
+        let long = Experiment::OrderSwap { a: 0, b: 1, sample: 0, repeats: u16::MAX, rest_ns: 0, settle_ns: 0 };
         assert_eq!(Steps::new(&long, T).unwrap_err(), ErrorKind::TooLarge);
     }
 }

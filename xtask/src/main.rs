@@ -1,1 +1,182 @@
-fn main() {}
+//! Build automation and benchmarks: `cargo xtask <command>`.
+//!
+//! - `bench`: a 16-pin survey on the simulated board; prints wall time, conversions and link bytes.
+//! - `study`: one pin surveyed over several seeds, optionally with some of the simulated board's
+//!   non-idealities switched off; prints the estimates against the truth.
+
+use anyhow::{bail, Context, Result};
+use ohmsight::link::InProcessLink;
+use ohmsight::session::Session;
+use ohmsight::survey::{survey, SurveyOptions};
+use ohmsight::units;
+use ohmsight_virtual::{BoardProfile, PinSetup, Realism, Scenario, Source};
+use std::time::Instant;
+
+fn main() -> Result<()> {
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    match args.first().map(String::as_str) {
+        Some("bench") => bench(),
+        Some("study") => study(&args[1..]),
+        _ => {
+            eprintln!("usage: cargo xtask bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
+            bail!("unknown or missing command")
+        }
+    }
+}
+
+fn pin(channel: u8, source: Source, node_farads: f64) -> PinSetup {
+    PinSetup {
+        channel,
+        label: heapless::String::try_from(format!("ch{channel}").as_str()).unwrap_or_default(),
+        source,
+        node_farads,
+        hum_volts: 0.0,
+        hum_hz: 50.0,
+        noise_volts: 0.0,
+    }
+}
+
+/// A 16-pin board: a ladder of source resistances and node capacitances.
+fn bench() -> Result<()> {
+    let mut pins = heapless::Vec::new();
+    let ohms = [100.0, 1e3, 3.3e3, 10e3, 33e3, 100e3, 330e3, 1e6, 3.3e6, 10e6, 1e3, 47e3, 1e6, 10e3];
+    let farads =
+        [10e-12, 10e-12, 5e-12, 20e-12, 10e-12, 10e-12, 15e-12, 10e-12, 10e-12, 10e-12, 1e-9, 100e-9, 100e-9, 10e-12];
+    for (i, (&r, &c)) in ohms.iter().zip(&farads).enumerate() {
+        let v = 0.3 + 0.18 * i as f64;
+        pins.push(pin(i as u8, Source::Driven { volts: v, ohms: r }, c)).ok();
+    }
+    pins.push(pin(14, Source::Floating, 8e-12)).ok();
+    pins.push(pin(15, Source::Driven { volts: 0.0, ohms: 50.0 }, 10e-12)).ok();
+    let sc =
+        Scenario { name: "bench16".try_into().unwrap_or_default(), seed: 11, board: BoardProfile::default(), pins };
+    let t0 = Instant::now();
+    let mut session = Session::new(InProcessLink::new(&sc));
+    let r = survey(&mut session, &SurveyOptions::default()).context("survey")?;
+    let wall = t0.elapsed().as_secs_f64();
+    println!("16-pin survey on the simulated board");
+    println!(
+        "  wall time        {wall:.2} s  ({} worker threads for the fits)",
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    );
+    println!("  conversions      {}", r.link.conversions);
+    println!("  link bytes       {} to the board, {} back", r.link.bytes_sent, r.link.bytes_received);
+    println!("  board time       {:.2} s (nominal)", r.board_seconds);
+    let evals: usize = r.pins.iter().filter_map(|p| p.fit.as_ref()).map(|f| f.evaluations).sum();
+    println!("  model evaluations {evals}");
+    Ok(())
+}
+
+fn study(args: &[String]) -> Result<()> {
+    let mut ohms = 100e3;
+    let mut farads = 10e-12;
+    let mut volts = 1.2;
+    let mut seeds = 5u64;
+    let mut realism = Realism::full();
+    let mut board = BoardProfile::default();
+    let mut floating = false;
+    let mut it = args.iter();
+    while let Some(a) = it.next() {
+        let mut val = || it.next().context("missing value");
+        match a.as_str() {
+            "--ohms" => ohms = val()?.parse()?,
+            "--farads" => farads = val()?.parse()?,
+            "--volts" => volts = val()?.parse()?,
+            "--seeds" => seeds = val()?.parse()?,
+            "--floating" => floating = true,
+            "--hold-tol" => board.hold_tolerance = val()?.parse()?,
+            "--switch-tol" => board.switch_tolerance = val()?.parse()?,
+            "--ideal" => realism = Realism::ideal(),
+            "--off" => {
+                for k in val()?.split(',') {
+                    match k {
+                        "spread" => realism.unit_spread = false,
+                        "converter" => realism.converter_errors = false,
+                        "ktc" => realism.ktc = false,
+                        "charge" => realism.charge_effects = false,
+                        "leakage" => realism.leakage = false,
+                        "overhead" => realism.overhead = false,
+                        other => bail!("unknown effect {other}"),
+                    }
+                }
+            }
+            "--board" => {
+                if val()? == "fast" {
+                    board.hold_farads = 8e-12;
+                    board.switch_ohms = 1e3;
+                    board.adc_clock_hz = 14e6;
+                    board.sample_cycles =
+                        heapless::Vec::from_slice(&[1.5, 7.5, 13.5, 28.5, 41.5, 55.5, 71.5, 239.5]).unwrap_or_default();
+                    board.conversion_cycles = 12.5;
+                }
+            }
+            other => bail!("unknown option {other}"),
+        }
+    }
+    let source = if floating { Source::Floating } else { Source::Driven { volts, ohms } };
+    println!(
+        "truth: {} {}  Cn {}",
+        if floating { "floating".to_string() } else { units::ohms(ohms) },
+        units::volts(volts),
+        units::farads(farads)
+    );
+    let mut inside = 0;
+    let mut zs: Vec<f64> = Vec::new();
+    for seed in 0..seeds {
+        let mut pins = heapless::Vec::new();
+        pins.push(pin(0, source, farads)).ok();
+        let sc =
+            Scenario { name: "study".try_into().unwrap_or_default(), seed: 1000 + seed, board: board.clone(), pins };
+        let mut link = InProcessLink::with_realism(&sc, realism);
+        let (ch, rm) = link.board().true_hold_and_switch();
+        let mut session = Session::new(link);
+        let r = survey(&mut session, &SurveyOptions::default())?;
+        let p = &r.pins[0];
+        let rs = p.source_ohms;
+        let ok = rs.low.is_none_or(|l| l <= ohms) && rs.high.is_none_or(|h| h >= ohms);
+        inside += usize::from(ok);
+        let fit = p.fit.as_ref();
+        if let (Some(f), Some(e)) = (fit, rs.estimate) {
+            zs.push((e / ohms).ln() / f.sigma_ln_rs);
+        }
+        if let Some(f) = fit.filter(|_| std::env::var_os("STUDY_OBJECTIVE").is_some()) {
+            let truth = ohmsight::model::PinParams {
+                source_ohms: ohms,
+                node_farads: farads,
+                source_volts: volts,
+                hold_farads: ch,
+                switch_ohms: rm,
+                overhead_s: if realism.overhead { 130e-9 } else { 0.0 },
+            };
+            let input = ohmsight::fit::FitInput { board: &r.model, events: &p.events };
+            let at_fit = ohmsight::fit::objective_at(&input, &f.params);
+            let at_truth = ohmsight::fit::objective_at(&input, &truth);
+            println!("  objective at fit {at_fit:.1}, at truth {at_truth:.1}, cells {}", f.dof + 3);
+        }
+        println!(
+            "seed {seed}: {:8} Rs {:28} Cn {:28} Vs {:?}  chi2/dof {:.2}  σlnRs {:.3}  δ {:.0} ns Ch {:+.1}% Rm {:+.1}% (true {:+.1}% {:+.1}%) {}",
+            p.verdict.as_str(),
+            ohmsight::report::interval_text(&rs, units::ohms),
+            ohmsight::report::interval_text(&p.node_farads, units::farads),
+            p.source_volts.map(|v| (v * 1e4).round() / 1e4),
+            fit.map_or(0.0, |f| f.chi2 / f.dof.max(1) as f64),
+            fit.map_or(0.0, |f| f.sigma_ln_rs),
+            fit.map_or(0.0, |f| f.params.overhead_s * 1e9),
+            fit.map_or(0.0, |f| (f.params.hold_farads / board.hold_farads - 1.0) * 100.0),
+            fit.map_or(0.0, |f| (f.params.switch_ohms / board.switch_ohms - 1.0) * 100.0),
+            (ch / board.hold_farads - 1.0) * 100.0,
+            (rm / board.switch_ohms - 1.0) * 100.0,
+            if ok { "" } else { "  <-- truth outside" }
+        );
+    }
+    println!("truth inside the 95% interval: {inside}/{seeds}");
+    if !zs.is_empty() {
+        let rms = (zs.iter().map(|z| z * z).sum::<f64>() / zs.len() as f64).sqrt();
+        let mean = zs.iter().sum::<f64>() / zs.len() as f64;
+        println!(
+            "z = ln(Rs_fit/Rs_true)/σ: mean {mean:+.2}, rms {rms:.2} over {} fits (1.00 if the σ is right)",
+            zs.len()
+        );
+    }
+    Ok(())
+}

@@ -31,9 +31,7 @@ pub struct VirtualClock {
 impl VirtualClock {
     /// A clock at zero.
     pub const fn new() -> Self {
-        Self {
-            now_ps: Cell::new(0),
-        }
+        Self { now_ps: Cell::new(0) }
     }
     /// Current virtual time, ps.
     pub fn now_ps(&self) -> u64 {
@@ -69,6 +67,57 @@ impl FrontEndError for VirtualError {
             VirtualError::BadChannel => FrontEndErrorKind::BadChannel,
             VirtualError::BadSampleTime => FrontEndErrorKind::BadSampleTime,
         }
+    }
+}
+
+/// Which non-idealities the simulated board applies (all of them by default).
+///
+/// Turning them off one at a time shows what each costs the fit; surveys always use
+/// [`Realism::full`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Realism {
+    /// Hold capacitance and switch resistance differ from the profile.
+    pub unit_spread: bool,
+    /// Offset, gain error, INL, ADC noise above the datasheet figure.
+    pub converter_errors: bool,
+    /// kT/C noise on the hold capacitor.
+    pub ktc: bool,
+    /// Switch charge injection and residual charge after conversion.
+    pub charge_effects: bool,
+    /// Input leakage.
+    pub leakage: bool,
+    /// Firmware overhead and jitter between conversions.
+    pub overhead: bool,
+}
+
+impl Realism {
+    /// Everything on.
+    pub const fn full() -> Self {
+        Self {
+            unit_spread: true,
+            converter_errors: true,
+            ktc: true,
+            charge_effects: true,
+            leakage: true,
+            overhead: true,
+        }
+    }
+    /// Everything off: the board then is exactly the host's model plus ADC noise and quantization.
+    pub const fn ideal() -> Self {
+        Self {
+            unit_spread: false,
+            converter_errors: false,
+            ktc: false,
+            charge_effects: false,
+            leakage: false,
+            overhead: false,
+        }
+    }
+}
+
+impl Default for Realism {
+    fn default() -> Self {
+        Self::full()
     }
 }
 
@@ -119,6 +168,11 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
     /// Builds the board for a scenario. The unit's deviations from its profile are drawn from
     /// the scenario's seed.
     pub fn new(scenario: &Scenario, clock: C) -> Self {
+        Self::with_realism(scenario, clock, Realism::full())
+    }
+
+    /// Builds the board with only some non-idealities (for studies of the fit).
+    pub fn with_realism(scenario: &Scenario, clock: C, realism: Realism) -> Self {
         let mut rng = Xoshiro256PlusPlus::seed_from_u64(scenario.seed);
         let p = &scenario.board;
         let mut b = Self {
@@ -148,21 +202,23 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
             conversions: 0,
         };
         // The unit: within the profile's ±2σ tolerance (truncated normal, σ = tolerance / 2).
-        let within =
-            |tol: f64, rng: &mut Xoshiro256PlusPlus| (normal(rng) * tol / 2.0).clamp(-tol, tol);
-        let hold = p.hold_farads * (1.0 + within(p.hold_tolerance, &mut rng));
-        let switch = p.switch_ohms * (1.0 + within(p.switch_tolerance, &mut rng));
-        b.offset_lsb = uniform(&mut rng, -0.6, 0.6);
-        b.gain = 1.0 + uniform(&mut rng, -1e-3, 1e-3);
-        b.inl_lsb = uniform(&mut rng, -0.4, 0.4);
-        b.noise_lsb = p.adc_noise_lsb * uniform(&mut rng, 1.0, 1.15);
-        b.ktc_volts = sqrt(BOLTZMANN * TEMPERATURE_K / hold);
-        b.pedestal_volts = uniform(&mut rng, -0.3, 0.3) * p.vref_volts / b.full_scale;
-        b.injection_coulombs = 2e-15;
-        b.residual = 1e-3;
-        b.overhead_ps = uniform(&mut rng, 60_000.0, 200_000.0);
-        b.jitter_ps = 10_000.0;
-        let leak = |rng: &mut Xoshiro256PlusPlus| uniform(rng, -1.0, 1.0) * p.leakage_amps;
+        let within = |tol: f64, rng: &mut Xoshiro256PlusPlus| (normal(rng) * tol / 2.0).clamp(-tol, tol);
+        // Every draw is made whatever is switched on, so one seed gives one unit.
+        let on = |flag: bool, v: f64, off: f64| if flag { v } else { off };
+        let r = realism;
+        let hold = p.hold_farads * (1.0 + on(r.unit_spread, within(p.hold_tolerance, &mut rng), 0.0));
+        let switch = p.switch_ohms * (1.0 + on(r.unit_spread, within(p.switch_tolerance, &mut rng), 0.0));
+        b.offset_lsb = on(r.converter_errors, uniform(&mut rng, -0.6, 0.6), 0.0);
+        b.gain = 1.0 + on(r.converter_errors, uniform(&mut rng, -1e-3, 1e-3), 0.0);
+        b.inl_lsb = on(r.converter_errors, uniform(&mut rng, -0.4, 0.4), 0.0);
+        b.noise_lsb = p.adc_noise_lsb * on(r.converter_errors, uniform(&mut rng, 1.0, 1.15), 1.0);
+        b.ktc_volts = on(r.ktc, sqrt(BOLTZMANN * TEMPERATURE_K / hold), 0.0);
+        b.pedestal_volts = on(r.charge_effects, uniform(&mut rng, -0.3, 0.3) * p.vref_volts / b.full_scale, 0.0);
+        b.injection_coulombs = on(r.charge_effects, 2e-15, 0.0);
+        b.residual = on(r.charge_effects, 1e-3, 0.0);
+        b.overhead_ps = on(r.overhead, uniform(&mut rng, 60_000.0, 200_000.0), 0.0);
+        b.jitter_ps = on(r.overhead, 10_000.0, 0.0);
+        let leak = |rng: &mut Xoshiro256PlusPlus| on(r.leakage, uniform(rng, -1.0, 1.0) * p.leakage_amps, 0.0);
         for pin in &scenario.pins {
             let (volts, ohms, floating) = match pin.source {
                 Source::Driven { volts, ohms } => (volts, ohms, false),
@@ -177,11 +233,8 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
                 leak_amps: leak(&mut rng),
             };
             // A floating node starts wherever its last charge left it.
-            let start = if floating {
-                uniform(&mut rng, 0.2, 0.8) * p.vref_volts
-            } else {
-                net.rest_volts().unwrap_or(0.0)
-            };
+            let start =
+                if floating { uniform(&mut rng, 0.2, 0.8) * p.vref_volts } else { net.rest_volts().unwrap_or(0.0) };
             let ch = SimChannel {
                 channel: pin.channel,
                 net,
@@ -196,10 +249,7 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
             let _ = b.channels.push(ch);
         }
         // Internal precharge sources: stiff references behind 50 Ω.
-        for (channel, volts) in [
-            (PRECHARGE_LOW, 0.03 * p.vref_volts),
-            (PRECHARGE_HIGH, 0.97 * p.vref_volts),
-        ] {
+        for (channel, volts) in [(PRECHARGE_LOW, 0.03 * p.vref_volts), (PRECHARGE_HIGH, 0.97 * p.vref_volts)] {
             let net = Network {
                 source_volts: volts,
                 source_ohms: 50.0,
@@ -251,10 +301,7 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
 
     /// The real (not nominal) hold capacitance and switch resistance of this unit.
     pub fn true_hold_and_switch(&self) -> (f64, f64) {
-        self.channels
-            .first()
-            .map(|c| (c.net.hold_farads, c.net.switch_ohms))
-            .unwrap_or((0.0, 0.0))
+        self.channels.first().map(|c| (c.net.hold_farads, c.net.switch_ohms)).unwrap_or((0.0, 0.0))
     }
 
     fn gauss(&mut self) -> f64 {
@@ -283,21 +330,10 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
         if ch.floating {
             let open = ch.net.open((to_ps - from) as f64 * 1e-12);
             let coupled = Self::hum(ch, to_ps) - Self::hum(ch, from);
-            ch.node_volts = open
-                .apply(State {
-                    node_volts: ch.node_volts,
-                    hold_volts: 0.0,
-                })
-                .node_volts
-                + coupled;
+            ch.node_volts = open.apply(State { node_volts: ch.node_volts, hold_volts: 0.0 }).node_volts + coupled;
         } else if ch.hum_volts == 0.0 {
             let open = ch.net.open((to_ps - from) as f64 * 1e-12);
-            ch.node_volts = open
-                .apply(State {
-                    node_volts: ch.node_volts,
-                    hold_volts: 0.0,
-                })
-                .node_volts;
+            ch.node_volts = open.apply(State { node_volts: ch.node_volts, hold_volts: 0.0 }).node_volts;
         } else {
             let mut t = from;
             while t < to_ps {
@@ -305,12 +341,7 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
                 let mut net = ch.net;
                 net.source_volts += Self::hum(ch, t + step / 2);
                 let open = net.open(step as f64 * 1e-12);
-                ch.node_volts = open
-                    .apply(State {
-                        node_volts: ch.node_volts,
-                        hold_volts: 0.0,
-                    })
-                    .node_volts;
+                ch.node_volts = open.apply(State { node_volts: ch.node_volts, hold_volts: 0.0 }).node_volts;
                 t += step;
             }
         }
@@ -324,15 +355,8 @@ impl<C: Deref<Target = VirtualClock>> AnalogFrontEnd for VirtualBoard<C> {
     type Error = VirtualError;
 
     fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, VirtualError> {
-        let idx = self
-            .channels
-            .iter()
-            .position(|c| c.channel == channel)
-            .ok_or(VirtualError::BadChannel)?;
-        let ts = *self
-            .sample_s
-            .get(usize::from(sample))
-            .ok_or(VirtualError::BadSampleTime)?;
+        let idx = self.channels.iter().position(|c| c.channel == channel).ok_or(VirtualError::BadChannel)?;
+        let ts = *self.sample_s.get(usize::from(sample)).ok_or(VirtualError::BadSampleTime)?;
         // Firmware overhead before the conversion starts.
         let overhead = (self.overhead_ps + self.jitter_ps * self.gauss()).max(0.0) as u64;
         self.clock.advance_ps(overhead);
@@ -348,15 +372,11 @@ impl<C: Deref<Target = VirtualClock>> AnalogFrontEnd for VirtualBoard<C> {
         if !ch.floating {
             net.source_volts += Self::hum(ch, t0) + ch.noise_volts * noise;
         }
-        let s = net.sampling(ts).apply(State {
-            node_volts: ch.node_volts,
-            hold_volts: self.hold_volts,
-        });
+        let s = net.sampling(ts).apply(State { node_volts: ch.node_volts, hold_volts: self.hold_volts });
         let ts_ps = (ts * 1e12) as u64;
         // Switch opens: kT/C noise frozen on the hold capacitor, charge injection on both sides.
         let hold = s.hold_volts + self.ktc_volts * ktc + self.pedestal_volts;
-        ch.node_volts = (s.node_volts + kick * self.injection_coulombs / net.node_farads)
-            .clamp(-0.3, vref + 0.3);
+        ch.node_volts = (s.node_volts + kick * self.injection_coulombs / net.node_farads).clamp(-0.3, vref + 0.3);
         ch.node_time_ps = t0 + ts_ps;
         // Quantizer: gain, offset, bowed INL, noise.
         let x = volts_to_lsb(hold, vref, self.bits) * self.gain;
@@ -366,8 +386,7 @@ impl<C: Deref<Target = VirtualClock>> AnalogFrontEnd for VirtualBoard<C> {
         let code = y.clamp(0.0, self.full_scale - 1.0) as u16;
         // The conversion leaves a little charge of its own on the hold capacitor.
         self.hold_volts = hold + self.residual * (vref / 2.0 - hold);
-        self.clock
-            .advance_ps(ts_ps + (self.conversion_s * 1e12) as u64);
+        self.clock.advance_ps(ts_ps + (self.conversion_s * 1e12) as u64);
         self.conversions += 1;
         Ok(code)
     }
@@ -398,16 +417,9 @@ fn describe(s: &Scenario) -> BoardDescription {
     let uv = |v: f64| round(v * 1e6) as u32;
     let mut channels = Vec::new();
     for pin in &s.pins {
-        let _ = channels.push(ChannelInfo {
-            channel: pin.channel,
-            label: pin.label.clone(),
-            role: ChannelRole::Pin,
-        });
+        let _ = channels.push(ChannelInfo { channel: pin.channel, label: pin.label.clone(), role: ChannelRole::Pin });
     }
-    for (channel, label) in [
-        (PRECHARGE_LOW, "int-lo (3% Vref)"),
-        (PRECHARGE_HIGH, "int-hi (97% Vref)"),
-    ] {
+    for (channel, label) in [(PRECHARGE_LOW, "int-lo (3% Vref)"), (PRECHARGE_HIGH, "int-hi (97% Vref)")] {
         let _ = channels.push(ChannelInfo {
             channel,
             label: String::try_from(label).unwrap_or_default(),
@@ -415,14 +427,8 @@ fn describe(s: &Scenario) -> BoardDescription {
         });
     }
     let mut precharges = Vec::new();
-    let _ = precharges.push(Precharge {
-        channel: PRECHARGE_LOW,
-        nominal_microvolts: uv(0.03 * p.vref_volts),
-    });
-    let _ = precharges.push(Precharge {
-        channel: PRECHARGE_HIGH,
-        nominal_microvolts: uv(0.97 * p.vref_volts),
-    });
+    let _ = precharges.push(Precharge { channel: PRECHARGE_LOW, nominal_microvolts: uv(0.03 * p.vref_volts) });
+    let _ = precharges.push(Precharge { channel: PRECHARGE_HIGH, nominal_microvolts: uv(0.97 * p.vref_volts) });
     // Unit id: a hash of scenario name and seed, so runs of one scenario look like one unit.
     let mut id: u64 = 0xcbf2_9ce4_8422_2325 ^ s.seed;
     for byte in s.name.bytes() {
@@ -465,32 +471,15 @@ mod tests {
             hum_hz: 50.0,
             noise_volts: 0.0,
         });
-        Scenario {
-            name: String::try_from("t").unwrap(),
-            seed: 3,
-            board: BoardProfile::default(),
-            pins,
-        }
+        Scenario { name: String::try_from("t").unwrap(), seed: 3, board: BoardProfile::default(), pins }
     }
 
     #[test]
     fn stiff_source_reads_its_voltage() {
         let clock = VirtualClock::new();
-        let mut b = VirtualBoard::new(
-            &scenario(
-                Source::Driven {
-                    volts: 1.65,
-                    ohms: 100.0,
-                },
-                10e-12,
-            ),
-            &clock,
-        );
+        let mut b = VirtualBoard::new(&scenario(Source::Driven { volts: 1.65, ohms: 100.0 }, 10e-12), &clock);
         let n = 2000;
-        let mean: f64 = (0..n)
-            .map(|_| f64::from(b.convert(0, 7).unwrap()))
-            .sum::<f64>()
-            / n as f64;
+        let mean: f64 = (0..n).map(|_| f64::from(b.convert(0, 7).unwrap())).sum::<f64>() / n as f64;
         assert!((mean - 2048.0).abs() < 2.0, "mean {mean}");
         assert!(clock.now_ps() > n * (480 + 12) * 1_000_000 / 21);
     }
@@ -498,16 +487,7 @@ mod tests {
     #[test]
     fn high_impedance_source_remembers_the_previous_channel() {
         let clock = VirtualClock::new();
-        let mut b = VirtualBoard::new(
-            &scenario(
-                Source::Driven {
-                    volts: 1.65,
-                    ohms: 200e3,
-                },
-                5e-12,
-            ),
-            &clock,
-        );
+        let mut b = VirtualBoard::new(&scenario(Source::Driven { volts: 1.65, ohms: 200e3 }, 5e-12), &clock);
         let after = |b: &mut VirtualBoard<&VirtualClock>, pre: u8| {
             let mut s = 0.0;
             for _ in 0..64 {
@@ -518,10 +498,7 @@ mod tests {
         };
         let lo = after(&mut b, PRECHARGE_LOW);
         let hi = after(&mut b, PRECHARGE_HIGH);
-        assert!(
-            hi - lo > 1000.0,
-            "a 143 ns sample cannot settle 200 kΩ: lo {lo}, hi {hi}"
-        );
+        assert!(hi - lo > 1000.0, "a 143 ns sample cannot settle 200 kΩ: lo {lo}, hi {hi}");
     }
 
     #[test]
@@ -533,10 +510,7 @@ mod tests {
             b.convert(PRECHARGE_HIGH, 7).unwrap();
             last = b.convert(0, 7).unwrap();
         }
-        assert!(
-            last > 3700,
-            "the node was charged up by the hold capacitor: {last}"
-        );
+        assert!(last > 3700, "the node was charged up by the hold capacitor: {last}");
     }
 
     #[test]

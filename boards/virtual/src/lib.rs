@@ -23,7 +23,5 @@
 mod board;
 mod scenario;
 
-pub use board::{
-    VirtualBoard, VirtualClock, VirtualDelay, VirtualError, PRECHARGE_HIGH, PRECHARGE_LOW,
-};
+pub use board::{Realism, VirtualBoard, VirtualClock, VirtualDelay, VirtualError, PRECHARGE_HIGH, PRECHARGE_LOW};
 pub use scenario::{BoardProfile, PinSetup, Scenario, Source, MAX_PINS};

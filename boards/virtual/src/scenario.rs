@@ -44,11 +44,10 @@ impl Default for BoardProfile {
             switch_ohms: 6000.0,
             switch_tolerance: 0.10,
             adc_clock_hz: 21e6,
-            sample_cycles: Vec::from_slice(&[3.0, 15.0, 28.0, 56.0, 84.0, 112.0, 144.0, 480.0])
-                .unwrap_or_default(),
+            sample_cycles: Vec::from_slice(&[3.0, 15.0, 28.0, 56.0, 84.0, 112.0, 144.0, 480.0]).unwrap_or_default(),
             conversion_cycles: 12.0,
             adc_noise_lsb: 0.5,
-            leakage_amps: 50e-12,
+            leakage_amps: 10e-12,
         }
     }
 }

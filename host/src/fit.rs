@@ -1,0 +1,500 @@
+//! Weighted nonlinear least squares of the forward model (Levenberg–Marquardt), with
+//! confidence intervals from the covariance or, where the data only bound a parameter, from
+//! the profile likelihood.
+//!
+//! Parameters `θ = (ln Rs, ln Cn, Vs, ln(Ch/Ch₀), ln(Rm/Rm₀), ln δ)`. `Ch` and `Rm` are the board's
+//! hold capacitance and switch resistance, which the profile knows only to a tolerance; `δ` is
+//! the firmware's overhead between conversions (µs), which lengthens every idle gap and which
+//! no profile states. They enter with Gaussian priors (σ = tolerance/2 for `Ch` and `Rm`,
+//! [`OVERHEAD_PRIOR_US`] for `δ`), so their uncertainty widens the intervals of `Rs` and `Cn`
+//! as it should, instead of being silently assumed away.
+
+use crate::model::{predict, predict_with_spread, BoardModel, CellObs, Event, PinParams};
+use levenberg_marquardt::{LeastSquaresProblem, LevenbergMarquardt};
+use nalgebra::{DMatrix, DVector, Dyn, VecStorage};
+use std::cell::RefCell;
+
+/// Index of `ln Rs` in θ.
+pub const LN_RS: usize = 0;
+/// Index of `ln Cn` in θ.
+pub const LN_CN: usize = 1;
+/// Index of `Vs` in θ.
+pub const VS: usize = 2;
+const LN_CH: usize = 3;
+const LN_RM: usize = 4;
+const OVERHEAD_US: usize = 5;
+const N_THETA: usize = 6;
+
+/// Prior standard deviation of the firmware overhead per conversion, µs (centred on zero).
+pub const OVERHEAD_PRIOR_US: f64 = 1.0;
+/// Where the fit starts the overhead, µs.
+const OVERHEAD_START_US: f64 = 0.1;
+
+/// Smallest and largest source resistance the fit considers, Ω.
+pub const RS_RANGE: (f64, f64) = (1.0, 1e13);
+/// Smallest and largest node capacitance the fit considers, F.
+pub const CN_RANGE: (f64, f64) = (0.2e-12, 20e-6);
+
+/// How closely the model can match any reading, LSB: the converter's differential and integral
+/// non-linearity and the charge the conversion leaves behind are not modelled, and a fit that
+/// trusted cell means beyond this would report intervals narrower than the truth allows.
+pub const MODEL_FLOOR_LSB: f64 = 0.1;
+
+/// Widest ratio high/low of a 95% interval still reported as an estimate.
+pub const BOUND_RATIO: f64 = 3.0;
+
+/// Above this standard deviation of a log-parameter the interval comes from the profile likelihood.
+pub const PROFILE_ABOVE_SIGMA: f64 = 0.0;
+
+/// Two-sided 95% normal quantile.
+pub const Z95: f64 = 1.959_964;
+/// 95% point of χ² with one degree of freedom (= Z95²).
+pub const CHI2_95_1DOF: f64 = 3.841_459;
+
+/// An interval for one parameter.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Interval {
+    /// Best estimate; `None` when the data only bound the value.
+    pub estimate: Option<f64>,
+    /// 95% lower end; `None` when unbounded below (within the search range).
+    pub low: Option<f64>,
+    /// 95% upper end; `None` when unbounded above.
+    pub high: Option<f64>,
+}
+
+/// Result of fitting one pin.
+#[derive(Debug, Clone)]
+pub struct Fit {
+    /// Best-fit parameters.
+    pub params: PinParams,
+    /// Best-fit θ.
+    pub theta: [f64; N_THETA],
+    /// χ² of the data residuals.
+    pub chi2: f64,
+    /// Degrees of freedom (cells − free parameters).
+    pub dof: usize,
+    /// Source resistance, Ω.
+    pub source_ohms: Interval,
+    /// Node capacitance, F.
+    pub node_farads: Interval,
+    /// Source voltage, V (estimate and 95% interval).
+    pub source_volts: Interval,
+    /// Standard deviation of ln Rs from the covariance (for benchmarks).
+    pub sigma_ln_rs: f64,
+    /// Model evaluations spent.
+    pub evaluations: usize,
+}
+
+impl Fit {
+    /// χ²/dof, at least 1: the factor by which model mismatch inflates the intervals.
+    pub fn birge(&self) -> f64 {
+        if self.dof == 0 {
+            1.0
+        } else {
+            (self.chi2 / self.dof as f64).max(1.0)
+        }
+    }
+}
+
+/// Everything the fit needs for one pin.
+pub struct FitInput<'a> {
+    /// The board.
+    pub board: &'a BoardModel,
+    /// The pin's history.
+    pub events: &'a [Event],
+}
+
+struct Problem<'a> {
+    input: &'a FitInput<'a>,
+    cells: Vec<CellObs>,
+    obs: Vec<(f64, f64)>, // (mean, standard error)
+    theta: [f64; N_THETA],
+    free: Vec<usize>,
+    bounds: [(f64, f64); N_THETA],
+    prior_sigma: [f64; N_THETA],
+    scratch: RefCell<Vec<f64>>,
+    evaluations: RefCell<usize>,
+}
+
+impl<'a> Problem<'a> {
+    fn new(input: &'a FitInput<'a>) -> Self {
+        let b = input.board;
+        let floor = b.variance_floor_lsb2();
+        let cells: Vec<CellObs> = input.events.iter().filter_map(|e| e.cells.as_ref()).flatten().copied().collect();
+        let obs = cells.iter().map(|c| (c.mean, cell_se(c.variance.max(floor), c.count))).collect();
+        let ln_tol = |t: f64| (1.0 + t).ln();
+        let prior_sigma =
+            [0.0, 0.0, 0.0, ln_tol(b.hold_tolerance) / 2.0, ln_tol(b.switch_tolerance) / 2.0, OVERHEAD_PRIOR_US];
+        let bounds = [
+            (RS_RANGE.0.ln(), RS_RANGE.1.ln()),
+            (CN_RANGE.0.ln(), CN_RANGE.1.ln()),
+            (-0.25 * b.vref_volts, 1.25 * b.vref_volts),
+            // Wide enough that the prior, not a wall, keeps them near nominal.
+            (-10.0 * prior_sigma[LN_CH], 10.0 * prior_sigma[LN_CH]),
+            (-10.0 * prior_sigma[LN_RM], 10.0 * prior_sigma[LN_RM]),
+            ((1e-4 * OVERHEAD_PRIOR_US).ln(), (10.0 * OVERHEAD_PRIOR_US).ln()),
+        ];
+        let free = (0..N_THETA).filter(|&i| i < LN_CH || prior_sigma[i] > 0.0).collect();
+        Self {
+            input,
+            cells,
+            obs,
+            theta: [0.0; N_THETA],
+            free,
+            bounds,
+            prior_sigma,
+            scratch: RefCell::new(Vec::new()),
+            evaluations: RefCell::new(0),
+        }
+    }
+
+    /// Weights from the observed variance less the spread the model itself predicts within
+    /// each cell at θ (a drifting cell is not noisy), floored at the converter's noise.
+    fn reweight(&mut self, t: &[f64; N_THETA]) {
+        let floor = self.input.board.variance_floor_lsb2();
+        let (mut mean, mut spread) = (Vec::new(), Vec::new());
+        predict_with_spread(self.input.board, &self.params_of(t), self.input.events, &mut mean, Some(&mut spread));
+        for ((o, c), s) in self.obs.iter_mut().zip(&self.cells).zip(&spread) {
+            o.1 = cell_se((c.variance - s).max(floor), c.count);
+        }
+    }
+
+    fn params_of(&self, t: &[f64; N_THETA]) -> PinParams {
+        let b = self.input.board;
+        PinParams {
+            source_ohms: t[LN_RS].exp(),
+            node_farads: t[LN_CN].exp(),
+            source_volts: t[VS],
+            hold_farads: b.hold_farads * t[LN_CH].exp(),
+            switch_ohms: b.switch_ohms * t[LN_RM].exp(),
+            overhead_s: t[OVERHEAD_US].exp() * 1e-6,
+        }
+    }
+
+    fn clamp(&self, mut t: [f64; N_THETA]) -> [f64; N_THETA] {
+        for (v, &(lo, hi)) in t.iter_mut().zip(&self.bounds) {
+            *v = if v.is_finite() { v.clamp(lo, hi) } else { (lo + hi) / 2.0 };
+        }
+        t
+    }
+
+    /// Residuals at θ: data, then priors.
+    fn residuals_at(&self, t: &[f64; N_THETA], out: &mut Vec<f64>) {
+        let mut pred = self.scratch.borrow_mut();
+        predict(self.input.board, &self.params_of(t), self.input.events, &mut pred);
+        *self.evaluations.borrow_mut() += 1;
+        out.clear();
+        out.extend(self.obs.iter().zip(pred.iter()).map(|(&(m, se), &p)| (p - m) / se));
+        for i in [LN_CH, LN_RM, OVERHEAD_US] {
+            if self.prior_sigma[i] > 0.0 {
+                // δ ≥ 0 is fitted as ln δ; its prior is on δ itself.
+                let x = if i == OVERHEAD_US { t[i].exp() } else { t[i] };
+                out.push(x / self.prior_sigma[i]);
+            }
+        }
+    }
+
+    fn chi2_data(&self, t: &[f64; N_THETA]) -> f64 {
+        let mut r = Vec::new();
+        self.residuals_at(t, &mut r);
+        r[..self.obs.len()].iter().map(|x| x * x).sum()
+    }
+
+    fn objective(&self, t: &[f64; N_THETA]) -> f64 {
+        let mut r = Vec::new();
+        self.residuals_at(t, &mut r);
+        r.iter().map(|x| x * x).sum()
+    }
+
+    fn step(i: usize, vref: f64) -> f64 {
+        match i {
+            VS => 2e-5 * vref,
+            OVERHEAD_US => 2e-2,
+            _ => 2e-3,
+        }
+    }
+
+    /// Central-difference Jacobian over the free parameters.
+    fn jacobian_at(&self, t: &[f64; N_THETA]) -> DMatrix<f64> {
+        let m = self.obs.len() + self.free.iter().filter(|&&i| i >= LN_CH).count();
+        let mut j = DMatrix::zeros(m, self.free.len());
+        let (mut up, mut dn) = (Vec::new(), Vec::new());
+        for (col, &i) in self.free.iter().enumerate() {
+            let h = Self::step(i, self.input.board.vref_volts);
+            let mut tp = *t;
+            let mut tm = *t;
+            tp[i] += h;
+            tm[i] -= h;
+            self.residuals_at(&tp, &mut up);
+            self.residuals_at(&tm, &mut dn);
+            for row in 0..m {
+                j[(row, col)] = (up[row] - dn[row]) / (2.0 * h);
+            }
+        }
+        j
+    }
+}
+
+impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
+    type ResidualStorage = VecStorage<f64, Dyn, nalgebra::U1>;
+    type JacobianStorage = VecStorage<f64, Dyn, Dyn>;
+    type ParameterStorage = VecStorage<f64, Dyn, nalgebra::U1>;
+
+    fn set_params(&mut self, x: &DVector<f64>) {
+        let mut t = self.theta;
+        for (k, &i) in self.free.iter().enumerate() {
+            t[i] = x[k];
+        }
+        self.theta = self.clamp(t);
+    }
+
+    fn params(&self) -> DVector<f64> {
+        DVector::from_iterator(self.free.len(), self.free.iter().map(|&i| self.theta[i]))
+    }
+
+    fn residuals(&self) -> Option<DVector<f64>> {
+        let mut r = Vec::new();
+        self.residuals_at(&self.theta, &mut r);
+        r.iter().all(|x| x.is_finite()).then(|| DVector::from_vec(r))
+    }
+
+    fn jacobian(&self) -> Option<DMatrix<f64>> {
+        let j = self.jacobian_at(&self.theta);
+        j.iter().all(|x| x.is_finite()).then_some(j)
+    }
+}
+
+fn minimize(p: Problem<'_>) -> Problem<'_> {
+    let (p, _report) = LevenbergMarquardt::new().with_patience(200).with_tol(1e-12).minimize(p);
+    p
+}
+
+/// Fits one pin. Returns `None` when there is nothing to fit.
+pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
+    let mut p = Problem::new(input);
+    if p.obs.len() < 4 {
+        return None;
+    }
+    let b = input.board;
+    // Starting level: the cells read at the longest sample time.
+    let longest = b.sample_ps.len().saturating_sub(1) as u8;
+    let vs0 = start_level(input, longest).unwrap_or(b.vref_volts / 2.0);
+    // Coarse grid over (ln Rs, ln Cn) at half-decade steps; the best few start LM.
+    let mut starts: Vec<(f64, [f64; N_THETA])> = Vec::new();
+    let mut rs: f64 = RS_RANGE.0 * 10.0;
+    while rs <= RS_RANGE.1 {
+        let mut cn: f64 = 1e-12;
+        while cn <= 2e-6 {
+            let t = [rs.ln(), cn.ln(), vs0, 0.0, 0.0, OVERHEAD_START_US.ln()];
+            starts.push((p.objective(&t), t));
+            cn *= 10f64.sqrt();
+        }
+        rs *= 10f64.sqrt();
+    }
+    starts.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let mut best: Option<(f64, [f64; N_THETA])> = None;
+    for (_, t0) in starts.iter().take(3) {
+        p = consider(p, *t0, &mut best);
+    }
+    // The nuisance parameters can stall against their limits (the overhead at zero): restart
+    // from the best point with them reset, keeping whatever improves.
+    for overhead_us in [0.03, 0.3] {
+        if let Some((_, t)) = best {
+            let mut t0 = t;
+            t0[LN_CH] = 0.0;
+            t0[LN_RM] = 0.0;
+            t0[OVERHEAD_US] = f64::ln(overhead_us);
+            p = consider(p, t0, &mut best);
+        }
+    }
+    // Re-weight with the model's own within-cell spread at the optimum, and polish.
+    let (_, t1) = best?;
+    p.reweight(&t1);
+    best = None;
+    p = consider(p, t1, &mut best);
+    let (_, theta) = best?;
+    p.theta = theta;
+    let chi2 = p.chi2_data(&theta);
+    let dof = p.obs.len().saturating_sub(3);
+    let birge2 = if dof > 0 { (chi2 / dof as f64).max(1.0) } else { 1.0 };
+    // Covariance of the free parameters from the Jacobian at the optimum.
+    let j = p.jacobian_at(&theta);
+    let jtj = j.transpose() * &j;
+    let cov = pseudo_inverse(&jtj) * birge2;
+    let free = p.free.clone();
+    let var = |i: usize| free.iter().position(|&f| f == i).map(|c| cov[(c, c)]).unwrap_or(0.0).max(0.0);
+    let sigma_ln_rs = var(LN_RS).sqrt();
+    let (s_rs, s_cn) = (var(LN_RS).sqrt(), var(LN_CN).sqrt());
+    let (p, mut source_ohms) = interval_log(p, theta, LN_RS, s_rs, birge2);
+    // An interval spanning more than a factor of BOUND_RATIO is a bound, not a measurement:
+    // below the switch resistance the data say "at most", far above it "at least".
+    if let (Some(e), Some(l), Some(h)) = (source_ohms.estimate, source_ohms.low, source_ohms.high) {
+        if h / l > BOUND_RATIO {
+            source_ohms = if e < b.switch_ohms {
+                Interval { estimate: None, low: None, high: Some(h) }
+            } else {
+                Interval { estimate: None, low: Some(l), high: None }
+            };
+        }
+    }
+    let (p, node_farads) = interval_log(p, theta, LN_CN, s_cn, birge2);
+    let s_vs = var(VS).sqrt();
+    let source_volts =
+        Interval { estimate: Some(theta[VS]), low: Some(theta[VS] - Z95 * s_vs), high: Some(theta[VS] + Z95 * s_vs) };
+    let evaluations = *p.evaluations.borrow();
+    Some(Fit {
+        params: p.params_of(&theta),
+        theta,
+        chi2,
+        dof,
+        source_ohms,
+        node_farads,
+        source_volts,
+        sigma_ln_rs,
+        evaluations,
+    })
+}
+
+/// Standard error of a cell mean: noise over the count, plus [`MODEL_FLOOR_LSB`] for what the
+/// model leaves out (converter non-linearity, residual charge, timing jitter).
+fn cell_se(noise_var: f64, count: u32) -> f64 {
+    (noise_var / f64::from(count.max(1)) + MODEL_FLOOR_LSB * MODEL_FLOOR_LSB).sqrt()
+}
+
+/// Runs LM from `t0` and keeps the result in `best` if it is the lowest objective so far.
+fn consider<'a>(mut p: Problem<'a>, t0: [f64; N_THETA], best: &mut Option<(f64, [f64; N_THETA])>) -> Problem<'a> {
+    p.theta = t0;
+    p = minimize(p);
+    let obj = p.objective(&p.theta);
+    if best.is_none_or(|(o, _)| obj < o) {
+        *best = Some((obj, p.theta));
+    }
+    p
+}
+
+/// Mean level of the cells read at sample index `sample` by precharge sweeps, V.
+fn start_level(input: &FitInput<'_>, sample: u8) -> Option<f64> {
+    let mut acc = (0.0, 0);
+    for ev in input.events {
+        if let (ohmsight_protocol::Experiment::PrechargeSweep { samples, precharges, .. }, Some(cells)) =
+            (&ev.experiment, &ev.cells)
+        {
+            let np = precharges.len();
+            for (si, &s) in samples.iter().enumerate() {
+                if s == sample {
+                    for c in &cells[si * np..(si + 1) * np] {
+                        acc.0 += c.mean;
+                        acc.1 += 1;
+                    }
+                }
+            }
+        }
+    }
+    (acc.1 > 0).then(|| input.board.code_volts(acc.0 / f64::from(acc.1)))
+}
+
+fn pseudo_inverse(m: &DMatrix<f64>) -> DMatrix<f64> {
+    let n = m.nrows();
+    m.clone().pseudo_inverse(1e-14 * m.norm()).unwrap_or_else(|_| DMatrix::from_element(n, n, f64::INFINITY))
+}
+
+/// Interval for a log-parameter: the Wald interval where the parameter is well determined,
+/// the profile-likelihood interval (with one-sided bounds) where it is not.
+fn interval_log<'a>(
+    p: Problem<'a>,
+    theta: [f64; N_THETA],
+    i: usize,
+    sigma: f64,
+    birge2: f64,
+) -> (Problem<'a>, Interval) {
+    let (lo_b, hi_b) = p.bounds[i];
+    let at_edge = theta[i] - lo_b < 0.5 || hi_b - theta[i] < 0.5;
+    if sigma.is_finite() && sigma < PROFILE_ABOVE_SIGMA && !at_edge {
+        let e = theta[i];
+        let iv = Interval {
+            estimate: Some(e.exp()),
+            low: Some((e - Z95 * sigma).exp()),
+            high: Some((e + Z95 * sigma).exp()),
+        };
+        return (p, iv);
+    }
+    let threshold = p.objective(&theta) + CHI2_95_1DOF * birge2;
+    let (p, low) = profile_edge(p, theta, i, lo_b, threshold);
+    let (p, high) = profile_edge(p, theta, i, hi_b, threshold);
+    let estimate = (low.is_some() && high.is_some()).then(|| theta[i].exp());
+    (p, Interval { estimate, low: low.map(f64::exp), high: high.map(f64::exp) })
+}
+
+/// The profile objective at θᵢ = x: the other free parameters re-optimized, from `warm` and
+/// from the best point of a coarse scan of the other log-parameter (the valleys are narrow
+/// and curved, so one warm start can miss the floor).
+fn profile_at<'a>(mut p: Problem<'a>, i: usize, x: f64, warm: [f64; N_THETA]) -> (Problem<'a>, f64, [f64; N_THETA]) {
+    let mut t0 = warm;
+    t0[i] = x;
+    let mut best: Option<(f64, [f64; N_THETA])> = None;
+    p = consider(p, t0, &mut best);
+    let other = if i == LN_RS { LN_CN } else { LN_RS };
+    let (lo, hi) = p.bounds[other];
+    let scan = (0..=16)
+        .map(|k| {
+            let mut t = t0;
+            t[other] = lo + (hi - lo) * f64::from(k) / 16.0;
+            (p.objective(&t), t)
+        })
+        .min_by(|a, b| a.0.total_cmp(&b.0));
+    if let Some((_, t)) = scan {
+        p = consider(p, t, &mut best);
+    }
+    let (obj, t) = best.unwrap_or((f64::INFINITY, t0));
+    (p, obj, t)
+}
+
+/// Walks θᵢ from its optimum toward `limit` and returns where the profile objective crosses
+/// `threshold`; `None` if it never does before the limit.
+fn profile_edge<'a>(
+    mut p: Problem<'a>,
+    theta: [f64; N_THETA],
+    i: usize,
+    limit: f64,
+    threshold: f64,
+) -> (Problem<'a>, Option<f64>) {
+    let saved_free = p.free.clone();
+    p.free.retain(|&f| f != i);
+    let (mut p, far, _) = profile_at(p, i, limit, theta);
+    let mut result = None;
+    if far > threshold {
+        let (mut inside, mut outside) = (theta[i], limit);
+        let mut warm = theta;
+        while (outside - inside).abs() > 0.02 {
+            let mid = (inside + outside) / 2.0;
+            let (q, obj, t) = profile_at(p, i, mid, warm);
+            p = q;
+            if obj <= threshold {
+                inside = mid;
+                warm = t;
+            } else {
+                outside = mid;
+            }
+        }
+        result = Some((inside + outside) / 2.0);
+    }
+    p.free = saved_free;
+    p.theta = theta;
+    (p, result)
+}
+
+/// The fit's objective (data χ² plus prior penalties) at given parameters: for tests and
+/// studies that compare the optimum with the truth.
+pub fn objective_at(input: &FitInput<'_>, p: &PinParams) -> f64 {
+    let prob = Problem::new(input);
+    let b = input.board;
+    let t = [
+        p.source_ohms.ln(),
+        p.node_farads.ln(),
+        p.source_volts,
+        (p.hold_farads / b.hold_farads).ln(),
+        (p.switch_ohms / b.switch_ohms).ln(),
+        (p.overhead_s * 1e6).max(1e-4 * OVERHEAD_PRIOR_US).ln(),
+    ];
+    prob.objective(&t)
+}

@@ -1,0 +1,317 @@
+//! Request/response over a [`Link`]: handshake, version check, experiment runs with recovery.
+
+use crate::link::Link;
+use ohmsight_protocol::{
+    encode_frame, Aggregate, ChannelInfo, ErrorKind, Experiment, FrameAccumulator, FrameError, FrontEnd, Request,
+    Response, MAX_FRAME, PROTOCOL_VERSION,
+};
+use std::time::{Duration, Instant};
+
+/// Errors talking to a board.
+#[derive(Debug)]
+#[non_exhaustive]
+pub enum SessionError {
+    /// The link itself failed.
+    Io(std::io::Error),
+    /// No answer in time.
+    Timeout {
+        /// What was waited for.
+        waiting_for: &'static str,
+        /// The link.
+        link: String,
+    },
+    /// The board speaks another protocol version.
+    Version {
+        /// The board's version.
+        board: u16,
+    },
+    /// The board refused a request.
+    Refused {
+        /// What was asked.
+        what: &'static str,
+        /// Why.
+        kind: ErrorKind,
+    },
+    /// An answer that makes no sense here.
+    Unexpected(String),
+    /// A run kept failing on the link.
+    Unrecoverable {
+        /// What was run.
+        what: &'static str,
+        /// Tries made.
+        tries: u32,
+        /// The last problem.
+        last: String,
+    },
+}
+
+impl std::fmt::Display for SessionError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            SessionError::Io(e) => write!(f, "link error: {e}"),
+            SessionError::Timeout { waiting_for, link } => write!(
+                f,
+                "no answer to {waiting_for} from {link}: is the ohmsight firmware running, and the baud rate right?"
+            ),
+            SessionError::Version { board } => write!(
+                f,
+                "the board speaks protocol version {board}, this host speaks {PROTOCOL_VERSION}: \
+                 update the firmware or the host (or pass --any-version to try anyway)"
+            ),
+            SessionError::Refused { what, kind } => write!(f, "the board refused the {what}: {kind}"),
+            SessionError::Unexpected(s) => write!(f, "unexpected answer from the board: {s}"),
+            SessionError::Unrecoverable { what, tries, last } => {
+                write!(f, "the {what} failed {tries} times on the link (last: {last}); check the cable and baud rate")
+            }
+        }
+    }
+}
+
+impl std::error::Error for SessionError {}
+
+impl From<std::io::Error> for SessionError {
+    fn from(e: std::io::Error) -> Self {
+        SessionError::Io(e)
+    }
+}
+
+/// Link traffic counters.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct LinkStats {
+    /// Bytes sent to the board.
+    pub bytes_sent: u64,
+    /// Bytes received from the board.
+    pub bytes_received: u64,
+    /// Frames that failed to decode (CRC, COBS, …).
+    pub bad_frames: u64,
+    /// Experiments run again after a link problem.
+    pub reruns: u64,
+    /// Conversions the board reported.
+    pub conversions: u64,
+}
+
+/// What the board said about itself.
+#[derive(Debug, Clone)]
+pub struct BoardInfo {
+    /// Protocol version it speaks.
+    pub protocol: u16,
+    /// Firmware version.
+    pub firmware: String,
+    /// Board name.
+    pub name: String,
+    /// Unit id.
+    pub unit_id: u64,
+    /// Front-end description.
+    pub front_end: FrontEnd,
+    /// Channels.
+    pub channels: Vec<ChannelInfo>,
+}
+
+/// Records of one completed run.
+#[derive(Debug, Clone, Default)]
+pub struct RunRecords {
+    /// Aggregates by cell index.
+    pub cells: Vec<Aggregate>,
+    /// Raw codes (noise record).
+    pub samples: Vec<u16>,
+    /// Conversions the board made.
+    pub conversions: u32,
+    /// Failed attempts before this one (their conversions happened too).
+    pub failed_attempts: u32,
+}
+
+/// A conversation with one board.
+pub struct Session<L> {
+    link: L,
+    rx: FrameAccumulator,
+    seq: u16,
+    /// Traffic counters.
+    pub stats: LinkStats,
+    /// Base time-out for an answer.
+    pub timeout: Duration,
+    /// Bytes per second of the link (for time-outs of long answers); 0 for in-process.
+    pub link_bytes_per_s: u64,
+}
+
+const TRIES: u32 = 3;
+
+impl<L: Link> Session<L> {
+    /// Wraps a link.
+    pub fn new(link: L) -> Self {
+        Self {
+            link,
+            rx: FrameAccumulator::new(),
+            seq: 0,
+            stats: LinkStats::default(),
+            timeout: Duration::from_secs(2),
+            link_bytes_per_s: 0,
+        }
+    }
+
+    /// The link.
+    pub fn link(&mut self) -> &mut L {
+        &mut self.link
+    }
+
+    fn send(&mut self, req: &Request) -> Result<(), SessionError> {
+        let mut buf = [0u8; MAX_FRAME];
+        let n = encode_frame(req, &mut buf).map_err(|e| SessionError::Unexpected(e.to_string()))?;
+        self.stats.bytes_sent += n as u64;
+        self.link.send(&buf[..n])?;
+        Ok(())
+    }
+
+    /// Next decoded frame, or `Ok(None)` at the deadline.
+    fn next_frame(&mut self, deadline: Instant) -> Result<Option<Result<Response, FrameError>>, SessionError> {
+        let mut byte = [0u8; 1];
+        loop {
+            let now = Instant::now();
+            if now >= deadline {
+                return Ok(None);
+            }
+            let n = self.link.recv(&mut byte, deadline - now)?;
+            if n == 0 {
+                // In-process links never time out: nothing more will come.
+                if self.link_bytes_per_s == 0 {
+                    return Ok(None);
+                }
+                continue;
+            }
+            self.stats.bytes_received += 1;
+            if let Some(r) = self.rx.push::<Response>(byte[0]) {
+                if r.is_err() {
+                    self.stats.bad_frames += 1;
+                }
+                return Ok(Some(r));
+            }
+        }
+    }
+
+    fn ask(&mut self, req: &Request, what: &'static str) -> Result<Response, SessionError> {
+        let mut last = String::from("no answer");
+        for _ in 0..TRIES {
+            self.send(req)?;
+            let deadline = Instant::now() + self.timeout;
+            loop {
+                match self.next_frame(deadline)? {
+                    None => break,
+                    Some(Ok(r)) => return Ok(r),
+                    Some(Err(e)) => {
+                        last = e.to_string();
+                        break;
+                    }
+                }
+            }
+            self.drain();
+        }
+        if last == "no answer" {
+            Err(SessionError::Timeout { waiting_for: what, link: self.link.name() })
+        } else {
+            Err(SessionError::Unrecoverable { what, tries: TRIES, last })
+        }
+    }
+
+    /// Discards whatever is still arriving (after a failed exchange).
+    fn drain(&mut self) {
+        let deadline = Instant::now() + Duration::from_millis(if self.link_bytes_per_s == 0 { 0 } else { 50 });
+        while let Ok(Some(_)) = self.next_frame(deadline) {}
+        self.rx = FrameAccumulator::new();
+    }
+
+    /// First exchange: versions, board, front end and channels.
+    pub fn handshake(&mut self, any_version: bool) -> Result<BoardInfo, SessionError> {
+        let (protocol, firmware, name, unit_id, n_channels) = loop {
+            match self.ask(&Request::Hello { protocol: PROTOCOL_VERSION }, "hello")? {
+                Response::Hello { protocol, firmware, board, unit_id, channels } => {
+                    break (protocol, firmware.to_string(), board.to_string(), unit_id, channels)
+                }
+                // A board of another version says so first, then hellos with its version.
+                Response::Error { kind: ErrorKind::Version, .. } => continue,
+                other => return Err(SessionError::Unexpected(format!("{other:?} to hello"))),
+            }
+        };
+        if protocol != PROTOCOL_VERSION && !any_version {
+            return Err(SessionError::Version { board: protocol });
+        }
+        let front_end = match self.ask(&Request::Describe, "front-end description")? {
+            Response::FrontEnd(fe) => fe,
+            other => return Err(SessionError::Unexpected(format!("{other:?} to describe"))),
+        };
+        let mut channels = Vec::new();
+        for position in 0..n_channels {
+            match self.ask(&Request::Channel { position }, "channel description")? {
+                Response::Channel(c) => channels.push(c),
+                other => return Err(SessionError::Unexpected(format!("{other:?} to channel {position}"))),
+            }
+        }
+        Ok(BoardInfo { protocol, firmware, name, unit_id, front_end, channels })
+    }
+
+    /// Runs an experiment, re-running it when the link loses or corrupts a record.
+    /// `nominal` is its expected duration on the board (for the time-out).
+    pub fn run(&mut self, experiment: &Experiment, nominal: Duration) -> Result<RunRecords, SessionError> {
+        let what = experiment.name();
+        let mut last = String::new();
+        for attempt in 0..TRIES {
+            self.seq = self.seq.wrapping_add(1);
+            let seq = self.seq;
+            self.send(&Request::Run { seq, experiment: experiment.clone() })?;
+            let deadline = Instant::now() + nominal + self.timeout + self.transfer_time();
+            let mut rec = RunRecords { failed_attempts: attempt, ..Default::default() };
+            let mut damaged = false;
+            loop {
+                let frame = match self.next_frame(deadline)? {
+                    None => {
+                        last = "answer timed out".into();
+                        damaged = true;
+                        break;
+                    }
+                    Some(f) => f,
+                };
+                match frame {
+                    Err(e) => {
+                        last = e.to_string();
+                        damaged = true;
+                    }
+                    Ok(Response::Cell { seq: s, index, agg }) if s == seq => {
+                        if usize::from(index) != rec.cells.len() {
+                            last = format!("cell {} missing", rec.cells.len());
+                            damaged = true;
+                        }
+                        rec.cells.push(agg);
+                    }
+                    Ok(Response::Samples { seq: s, offset, codes }) if s == seq => {
+                        if usize::from(offset) != rec.samples.len() {
+                            last = format!("samples from {} missing", rec.samples.len());
+                            damaged = true;
+                        }
+                        rec.samples.extend_from_slice(&codes);
+                    }
+                    Ok(Response::Done { seq: s, conversions }) if s == seq => {
+                        rec.conversions = conversions;
+                        self.stats.conversions += u64::from(conversions);
+                        break;
+                    }
+                    Ok(Response::Error { seq: s, kind }) if s == seq => {
+                        return Err(SessionError::Refused { what, kind });
+                    }
+                    Ok(_) => {} // a straggler of an earlier run
+                }
+            }
+            if !damaged {
+                return Ok(rec);
+            }
+            self.stats.reruns += 1;
+            self.drain();
+        }
+        Err(SessionError::Unrecoverable { what, tries: TRIES, last })
+    }
+
+    fn transfer_time(&self) -> Duration {
+        if self.link_bytes_per_s == 0 {
+            Duration::ZERO
+        } else {
+            Duration::from_secs_f64(4096.0 / self.link_bytes_per_s as f64)
+        }
+    }
+}
