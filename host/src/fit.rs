@@ -33,7 +33,9 @@ const OVERHEAD_START_US: f64 = 0.1;
 /// Smallest and largest source resistance the fit considers, Ω.
 pub const RS_RANGE: (f64, f64) = (1.0, 1e13);
 /// Smallest and largest node capacitance the fit considers, F.
-pub const CN_RANGE: (f64, f64) = (0.2e-12, 20e-6);
+/// The upper end keeps the fit within what the survey's timescales can tell apart: a larger
+/// capacitor makes any source look stiff for the few milliseconds a survey watches a pin.
+pub const CN_RANGE: (f64, f64) = (0.2e-12, 2e-6);
 
 /// How closely the model can match any reading, LSB: the converter's differential and integral
 /// non-linearity and the charge the conversion leaves behind are not modelled, and a fit that
@@ -106,7 +108,7 @@ pub struct FitInput<'a> {
 
 struct Problem<'a> {
     input: &'a FitInput<'a>,
-    cells: Vec<CellObs>,
+    cells: Vec<(CellObs, f64)>,
     obs: Vec<(f64, f64)>, // (mean, standard error)
     theta: [f64; N_THETA],
     free: Vec<usize>,
@@ -120,8 +122,15 @@ impl<'a> Problem<'a> {
     fn new(input: &'a FitInput<'a>) -> Self {
         let b = input.board;
         let floor = b.variance_floor_lsb2();
-        let cells: Vec<CellObs> = input.events.iter().filter_map(|e| e.cells.as_ref()).flatten().copied().collect();
-        let obs = cells.iter().map(|c| (c.mean, cell_se(c.variance.max(floor), c.count))).collect();
+        let cells: Vec<(CellObs, f64)> = input
+            .events
+            .iter()
+            .filter_map(|e| e.cells.as_ref().map(|c| (c, &e.coherent_var_lsb2)))
+            .flat_map(|(cells, coherent)| {
+                cells.iter().enumerate().map(move |(i, c)| (*c, coherent.get(i).copied().unwrap_or(0.0)))
+            })
+            .collect();
+        let obs = cells.iter().map(|(c, k)| (c.mean, cell_se(c.variance.max(floor), c.count, *k))).collect();
         let ln_tol = |t: f64| (1.0 + t).ln();
         let prior_sigma =
             [0.0, 0.0, 0.0, ln_tol(b.hold_tolerance) / 2.0, ln_tol(b.switch_tolerance) / 2.0, OVERHEAD_PRIOR_US];
@@ -154,8 +163,8 @@ impl<'a> Problem<'a> {
         let floor = self.input.board.variance_floor_lsb2();
         let (mut mean, mut spread) = (Vec::new(), Vec::new());
         predict_with_spread(self.input.board, &self.params_of(t), self.input.events, &mut mean, Some(&mut spread));
-        for ((o, c), s) in self.obs.iter_mut().zip(&self.cells).zip(&spread) {
-            o.1 = cell_se((c.variance - s).max(floor), c.count);
+        for ((o, (c, k)), s) in self.obs.iter_mut().zip(&self.cells).zip(&spread) {
+            o.1 = cell_se((c.variance - s).max(floor), c.count, *k);
         }
     }
 
@@ -355,10 +364,11 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
     })
 }
 
-/// Standard error of a cell mean: noise over the count, plus [`MODEL_FLOOR_LSB`] for what the
+/// Standard error of a cell mean: noise over the count, slow interference that the cell's
+/// readings share, plus [`MODEL_FLOOR_LSB`] for what the
 /// model leaves out (converter non-linearity, residual charge, timing jitter).
-fn cell_se(noise_var: f64, count: u32) -> f64 {
-    (noise_var / f64::from(count.max(1)) + MODEL_FLOOR_LSB * MODEL_FLOOR_LSB).sqrt()
+fn cell_se(noise_var: f64, count: u32, coherent_var: f64) -> f64 {
+    (noise_var / f64::from(count.max(1)) + coherent_var + MODEL_FLOOR_LSB * MODEL_FLOOR_LSB).sqrt()
 }
 
 /// Runs LM from `t0` and keeps the result in `best` if it is the lowest objective so far.

@@ -76,7 +76,7 @@ impl Link for InProcessLink {
             let start = self.out.len();
             self.out.extend(frame);
             if let Some(n) = self.corrupt_every {
-                if self.frames_out % n == 0 && frame.len() > 2 {
+                if self.frames_out.is_multiple_of(n) && frame.len() > 2 {
                     let i = start + frame.len() / 2;
                     self.out[i] ^= if self.out[i] == 0x01 { 0x02 } else { 0x01 };
                 }

@@ -159,6 +159,10 @@ pub struct Event {
     pub gap_before_ps: u64,
     /// Cells of the target, when the run's records arrived and are used by the fit.
     pub cells: Option<Vec<CellObs>>,
+    /// Variance, LSB², that slow interference (mains hum) adds to each cell mean (one entry
+    /// per cell, or empty for none): a cell that spans a small part of a hum cycle sees the
+    /// hum as an offset, not as spread among its own readings.
+    pub coherent_var_lsb2: Vec<f64>,
 }
 
 /// `E[clamp(round(x + σ·Z), 0, max)]` for a standard normal `Z`: the mean code a converter

@@ -17,9 +17,9 @@ const HARMONICS: usize = 3;
 pub struct NoiseSummary {
     /// Mean code.
     pub mean_lsb: f64,
-    /// Rms about the linear trend, LSB (hum included).
+    /// Rms of white noise and hum together, LSB (slow drift excluded).
     pub rms_lsb: f64,
-    /// Rms with trend and hum lines removed, LSB.
+    /// White-noise rms (trend and hum lines removed, from first differences), LSB.
     pub white_rms_lsb: f64,
     /// Drift over the record, LSB per second.
     pub drift_lsb_per_s: f64,
@@ -64,10 +64,15 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
     let trend = a.columns(0, trend_cols).into_owned();
     let tc = trend.clone().svd(true, true).solve(&y, 1e-12).ok()?;
     let detrended = &y - &trend * &tc;
-    let rms = (detrended.norm_squared() / (n as f64 - 2.0)).sqrt();
+
     let full = a.clone().svd(true, true).solve(&y, 1e-12).ok()?;
     let resid = &y - &a * &full;
-    let white = (resid.norm_squared() / (n - cols) as f64).sqrt();
+    // White noise from first differences of the residual: a node still recovering from an
+    // earlier experiment drifts along a curve no straight trend removes, and differencing
+    // cancels such slow drift while keeping white noise (var(Δx) = 2σ²).
+    let diffs: Vec<f64> = resid.as_slice().windows(2).map(|w| w[1] - w[0]).collect();
+    let dmean = diffs.iter().sum::<f64>() / diffs.len() as f64;
+    let white = (diffs.iter().map(|d| (d - dmean).powi(2)).sum::<f64>() / (diffs.len() as f64 - 1.0) / 2.0).sqrt();
     let mut hum = [0.0; 2];
     let mut c = trend_cols;
     for h_f in hum.iter_mut() {
@@ -78,7 +83,9 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
         }
         *h_f = p.sqrt();
     }
-    let psd = welch(&detrended.as_slice()[..], period_s);
+    // Noise as a reading sees it: white noise plus the hum lines, without slow drift.
+    let rms = (white * white + hum.iter().map(|h| h * h / 2.0).sum::<f64>()).sqrt();
+    let psd = welch(detrended.as_slice(), period_s);
     let peak_hz = psd.iter().filter(|(f, _)| *f > 10.0).max_by(|a, b| a.1.total_cmp(&b.1)).map(|&(f, _)| f);
     Some(NoiseSummary {
         mean_lsb: mean,

@@ -188,32 +188,27 @@ impl<L: Link> Session<L> {
     }
 
     fn ask(&mut self, req: &Request, what: &'static str) -> Result<Response, SessionError> {
-        let mut last = String::from("no answer");
+        let mut last: Option<String> = None;
         for _ in 0..TRIES {
             self.send(req)?;
             let deadline = Instant::now() + self.timeout;
-            loop {
-                match self.next_frame(deadline)? {
-                    None => break,
-                    Some(Ok(r)) => return Ok(r),
-                    Some(Err(e)) => {
-                        last = e.to_string();
-                        break;
-                    }
-                }
+            match self.next_frame(deadline)? {
+                Some(Ok(r)) => return Ok(r),
+                Some(Err(e)) => last = Some(e.to_string()),
+                None => {}
             }
             self.drain();
         }
-        if last == "no answer" {
-            Err(SessionError::Timeout { waiting_for: what, link: self.link.name() })
-        } else {
-            Err(SessionError::Unrecoverable { what, tries: TRIES, last })
-        }
+        Err(match last {
+            None => SessionError::Timeout { waiting_for: what, link: self.link.name() },
+            Some(last) => SessionError::Unrecoverable { what, tries: TRIES, last },
+        })
     }
 
     /// Discards whatever is still arriving (after a failed exchange).
     fn drain(&mut self) {
-        let deadline = Instant::now() + Duration::from_millis(if self.link_bytes_per_s == 0 { 0 } else { 50 });
+        // An in-process link hands out what it has at once; a serial link gets a moment.
+        let deadline = Instant::now() + Duration::from_millis(50);
         while let Ok(Some(_)) = self.next_frame(deadline) {}
         self.rx = FrameAccumulator::new();
     }

@@ -11,7 +11,7 @@
 use crate::fit::{fit_pin, Fit, FitInput, Interval};
 use crate::link::Link;
 use crate::model::{BoardModel, CellObs, Event, PinParams};
-use crate::noise::{analyse, NoiseSummary};
+use crate::noise::{analyse, NoiseSummary, MAINS_HZ};
 use crate::session::{BoardInfo, LinkStats, Session, SessionError};
 use heapless::Vec as HVec;
 use indicatif::{ProgressBar, ProgressStyle};
@@ -197,7 +197,7 @@ struct PinWork {
     end_ps: Option<u64>,
     conversions: u64,
     screen: Vec<CellObs>,
-    noise_codes: Vec<u16>,
+    noise: Option<NoiseSummary>,
     rail: Option<f64>,
     /// Drift between the halves of the screening run of back-to-back pairs, LSB.
     burst_droop: f64,
@@ -234,7 +234,13 @@ impl<L: Link> Runner<'_, L> {
                 let gap = pin.end_ps.map(|e| start.saturating_sub(e)).unwrap_or(0);
                 let last = attempt + 1 == attempts;
                 let cells = (last && fit_cells).then(|| rec.cells.iter().map(CellObs::from_aggregate).collect());
-                pin.events.push(Event { experiment: exp.clone(), target: pin.channel, gap_before_ps: gap, cells });
+                pin.events.push(Event {
+                    experiment: exp.clone(),
+                    target: pin.channel,
+                    gap_before_ps: gap,
+                    cells,
+                    coherent_var_lsb2: Vec::new(),
+                });
                 pin.end_ps = Some(start + nominal);
             }
         }
@@ -310,7 +316,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             end_ps: None,
             conversions: 0,
             screen: Vec::new(),
-            noise_codes: Vec::new(),
+            noise: None,
             rail: None,
             burst_droop: 0.0,
         })
@@ -366,7 +372,23 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             (s[0].mean - s[4].mean).abs() < 1.0 && (s[1].mean - s[5].mean).abs() < 1.0 && pin.burst_droop < 1.0;
         let level = (s[4].mean + s[5].mean) / 2.0;
         let far = if level > model.full_scale() / 2.0 { lo } else { hi };
-        if !settled {
+        if settled {
+            // Stiff on every timescale so far: hundreds of back-to-back pairs push the node
+            // toward the switched-capacitor equilibrium Rs/(Rs + P/Ch), which bounds Rs even if
+            // a large capacitor hides it from single conversions.
+            runner.bar.inc_length(1);
+            runner.bar.set_message(format!("ch{} droop run", pin.channel));
+            let exp = Experiment::PeriodSweep {
+                target: pin.channel,
+                precharge: far,
+                precharge_sample: longest,
+                sample: 0,
+                periods_ns: HVec::from_slice(&[0, 0, 0]).unwrap_or_default(),
+                repeats: 256,
+                settle_ns: 0,
+            };
+            runner.run(Some(pin), exp, true)?;
+        } else {
             runner.bar.inc_length(4);
             runner.bar.set_message(format!("ch{} precharge sweep", pin.channel));
             let all: Vec<u8> = (0..n_samples).collect();
@@ -444,7 +466,21 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             settle_ns: 0,
         };
         let rec = runner.run(Some(pin), exp, false)?;
-        pin.noise_codes = rec.samples;
+        pin.noise = analyse(&rec.samples[8.min(rec.samples.len())..], f64::from(NOISE_PERIOD_NS) * 1e-9);
+        if let Some(n) = &pin.noise {
+            // Hum is nearly constant over a cell that spans a fraction of its period: it adds
+            // to each cell mean as an offset. Averaged down for cells spanning many cycles.
+            let hum_var = |span_s: f64| -> f64 {
+                MAINS_HZ
+                    .iter()
+                    .zip(n.hum_lsb)
+                    .map(|(f, a)| a * a / 2.0 / (1.0 + (std::f64::consts::PI * f * span_s).powi(2)))
+                    .sum()
+            };
+            for ev in &mut pin.events {
+                ev.coherent_var_lsb2 = cell_spans_s(&runner.model, &ev.experiment).into_iter().map(hum_var).collect();
+            }
+        }
     }
 
     // 4. Fit every pin (in parallel: fits are independent).
@@ -513,6 +549,21 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
     })
 }
 
+/// How long each cell of an experiment takes to collect its readings, s: the whole run for
+/// interleaved patterns, one period block for a period sweep.
+fn cell_spans_s(model: &BoardModel, exp: &Experiment) -> Vec<f64> {
+    let Ok(steps) = Steps::new(exp, model.timing()) else { return Vec::new() };
+    let total = steps.nominal_ps() as f64 * 1e-12;
+    match exp {
+        Experiment::PeriodSweep { periods_ns, repeats, .. } => {
+            // Each block runs `repeats` pairs, one per period (or back to back).
+            let pair_s = |p: u32| f64::from(p).max(1.0) * 1e-9;
+            periods_ns.iter().map(|&p| f64::from(*repeats) * pair_s(p)).collect()
+        }
+        _ => vec![total; usize::from(steps.cells())],
+    }
+}
+
 /// Verdict, intervals, settling and noise flags of one pin from its fit and noise record.
 fn judge(model: &BoardModel, pin: &PinWork, fit: Option<Fit>) -> PinReport {
     let none = Interval { estimate: None, low: None, high: None };
@@ -543,13 +594,17 @@ fn judge(model: &BoardModel, pin: &PinWork, fit: Option<Fit>) -> PinReport {
         r.reason = Some("every reading at the rail: source resistance not measurable".into());
         return r;
     }
-    if let Some(n) = analyse(&pin.noise_codes[8.min(pin.noise_codes.len())..], f64::from(NOISE_PERIOD_NS) * 1e-9) {
+    if let Some(n) = pin.noise.clone() {
         r.noise_lsb_rms = Some(n.rms_lsb);
         if n.white_rms_lsb.powi(2) > EXCESS_NOISE_RATIO * model.variance_floor_lsb2() {
             r.flags.push(Flag::ExcessNoise);
         }
+        let strongest = n.hum_lsb.iter().copied().fold(0.0, f64::max);
         for (i, flag) in [Flag::Hum50, Flag::Hum60].into_iter().enumerate() {
-            if n.hum_lsb[i] > HUM_MIN_LSB && n.hum_lsb[i] > 6.0 * n.hum_se_lsb {
+            // One mains frequency leaks a little into the other on a drifting node; flag the
+            // weaker only when it is a real line of its own.
+            let a = n.hum_lsb[i];
+            if a > HUM_MIN_LSB && a > 6.0 * n.hum_se_lsb && a >= 0.25 * strongest {
                 r.flags.push(flag);
             }
         }
@@ -582,12 +637,8 @@ fn judge(model: &BoardModel, pin: &PinWork, fit: Option<Fit>) -> PinReport {
         r.source_volts = Some(vs);
     }
     if matches!(r.verdict, Verdict::Driven | Verdict::AtRail) {
-        let worst = PinParams {
-            source_ohms: rs.estimate.or(rs.high).unwrap_or(fit.params.source_ohms),
-            node_farads: fit.node_farads.estimate.or(fit.node_farads.low).unwrap_or(fit.params.node_farads),
-            ..fit.params
-        };
-        r.min_sample_index = min_sample_index(model, &worst);
+        // At the best fit: the parameters that explain the readings, bounds or not.
+        r.min_sample_index = min_sample_index(model, &fit.params);
         r.min_sample_ns = r.min_sample_index.map(|i| f64::from(model.sample_ps[usize::from(i)]) / 1000.0);
         if r.min_sample_index.is_none() {
             r.flags.push(Flag::UnderSettled);

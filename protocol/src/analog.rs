@@ -93,7 +93,7 @@ impl Network {
     /// Node voltage at rest (switch open for a long time); `None` for a floating pin, whose
     /// rest level is wherever its charge left it.
     pub fn rest_volts(&self) -> Option<f64> {
-        self.source_ohms.is_finite().then(|| self.source_volts - self.leak_amps * self.source_ohms)
+        self.source_ohms.is_finite().then_some(self.source_volts - self.leak_amps * self.source_ohms)
     }
 
     /// Exact map of a switch-closed (sampling) phase of `t` seconds.

@@ -230,7 +230,7 @@ mod tests {
             x ^= x << 13;
             x ^= x >> 17;
             x ^= x << 5;
-            let b = if x % 17 == 0 { 0 } else { (x >> 8) as u8 };
+            let b = if x.is_multiple_of(17) { 0 } else { (x >> 8) as u8 };
             let _ = acc.push::<Request>(b);
             let _ = acc.push::<Response>(b);
         }

@@ -225,7 +225,7 @@ impl<'a> Steps<'a> {
                 let block = samples.len() as u32 * np * 2;
                 let j = i % block;
                 let pair = j / 2;
-                if j % 2 == 0 {
+                if j.is_multiple_of(2) {
                     Step {
                         channel: precharges[(pair % np) as usize],
                         sample: *precharge_sample,
@@ -270,7 +270,7 @@ impl<'a> Steps<'a> {
             Experiment::PeriodSweep { target, precharge, precharge_sample, sample, repeats, .. } => {
                 let per = 2 * u32::from(*repeats);
                 let p = (i / per) as usize;
-                if i % 2 == 0 {
+                if i.is_multiple_of(2) {
                     Step { channel: *precharge, sample: *precharge_sample, wait_after_ns: 0, record: StepRecord::None }
                 } else {
                     Step {

@@ -1,0 +1,104 @@
+//! Source resistance, node capacitance and source voltage against the truth, on two boards and
+//! several seeds.
+
+use ohmsight::survey::Verdict;
+use ohmsight_tests::{covers, default_board, driven, fast_board, floating, informative_samples, run, scenario, show};
+use ohmsight_virtual::{BoardProfile, PinSetup, Source};
+
+/// The ladder: (ohms, node farads). 16 pins including an open one.
+const LADDER: [(f64, f64); 15] = [
+    (100.0, 10e-12),
+    (680.0, 15e-12),
+    (2.2e3, 10e-12),
+    (4.7e3, 22e-12),
+    (15e3, 10e-12),
+    (47e3, 5e-12),
+    (150e3, 12e-12),
+    (470e3, 10e-12),
+    (1.5e6, 8e-12),
+    (3e6, 10e-12),
+    (3.3e3, 1e-9),
+    (47e3, 10e-9),
+    (1e6, 100e-9),
+    (10e6, 10e-12),
+    (30e6, 20e-12),
+];
+
+fn ladder_pins() -> Vec<PinSetup> {
+    let mut pins: Vec<PinSetup> =
+        LADDER.iter().enumerate().map(|(i, &(r, c))| driven(i as u8, 0.25 + 0.19 * i as f64, r, c)).collect();
+    pins.push(floating(15, 10e-12));
+    pins
+}
+
+/// The targets of the survey issue, checked pin by pin; returns (inside, counted) for the
+/// 95% interval coverage over the resolvable range 1 kΩ – 30 MΩ.
+fn check(board: BoardProfile, seed: u64) -> (usize, usize) {
+    let pins = ladder_pins();
+    let r = run(&scenario("ladder", seed, board.clone(), pins.clone()));
+    let (mut inside, mut counted) = (0, 0);
+    for (setup, p) in pins.iter().zip(&r.pins) {
+        assert_eq!(setup.channel, p.channel);
+        let Source::Driven { volts, ohms } = setup.source else {
+            assert_eq!(p.verdict, Verdict::Floating, "seed {seed} ch{}: an open pin is floating", p.channel);
+            continue;
+        };
+        let ctx = format!(
+            "seed {seed} ch{} truth {ohms} Ω / {} F: got {}",
+            p.channel,
+            setup.node_farads,
+            show(&p.source_ohms)
+        );
+        assert_eq!(p.verdict, Verdict::Driven, "{ctx}");
+        let vs = p.source_volts.expect("driven pins report a source voltage");
+        assert!((vs - volts).abs() <= 0.01 * volts + 0.010, "{ctx}: source {vs} V vs {volts} V");
+        let rs = p.source_ohms;
+        if ohms <= 1e3 {
+            // Below the switch resistance the data bound the source from above.
+            let upper = rs.high.or(rs.estimate).expect("an upper end");
+            assert!(upper <= 3e3, "{ctx}: a stiff source must be reported ≤ 3 kΩ");
+            continue;
+        }
+        counted += 1;
+        inside += usize::from(covers(&rs, ohms));
+        if informative_samples(&board, ohms, setup.node_farads) < 2 {
+            // One informative sample time: Rs and Cn trade off (see informative_samples);
+            // the interval must hold the truth (counted above), the point may wander.
+            println!("{ctx}: one informative sample time, interval only");
+            continue;
+        }
+        let est = rs.estimate.unwrap_or_else(|| panic!("{ctx}: expected an estimate"));
+        let ratio = est / ohms;
+        if ohms <= 3e6 {
+            let tol = if ohms < 10e3 || setup.node_farads >= 1e-9 { 0.35 } else { 0.25 };
+            assert!((ratio - 1.0).abs() <= tol, "{ctx}: outside ±{:.0}%", tol * 100.0);
+        } else {
+            assert!((0.5..=2.0).contains(&ratio), "{ctx}: outside 2×");
+        }
+    }
+    (inside, counted)
+}
+
+fn coverage(board: BoardProfile, seeds: &[u64]) {
+    let (mut inside, mut counted) = (0, 0);
+    for &seed in seeds {
+        let (i, c) = check(board.clone(), seed);
+        inside += i;
+        counted += c;
+    }
+    let share = inside as f64 / counted as f64;
+    println!("95% interval contains the truth in {inside}/{counted} cases ({:.0}%)", share * 100.0);
+    // A true 95% interval misses about 1 case in 20; 85% over this many cases would be a
+    // sign of intervals that are too narrow, not of bad luck.
+    assert!(share >= 0.85, "coverage {inside}/{counted}");
+}
+
+#[test]
+fn ladder_on_the_default_board() {
+    coverage(default_board(), &[1, 2, 3]);
+}
+
+#[test]
+fn ladder_on_a_faster_board_with_fractional_cycles() {
+    coverage(fast_board(), &[4, 5]);
+}

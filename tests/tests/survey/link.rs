@@ -1,0 +1,30 @@
+//! Link faults: corrupted frames are detected and the affected experiments re-run.
+
+use ohmsight::link::InProcessLink;
+use ohmsight::session::Session;
+use ohmsight::survey::{survey, SurveyOptions};
+use ohmsight_tests::{default_board, driven, floating, run, scenario};
+
+#[test]
+fn corrupted_frames_are_rerun_and_change_no_verdict() {
+    let s = scenario(
+        "faulty link",
+        21,
+        default_board(),
+        vec![driven(0, 1.0, 22e3, 10e-12), driven(1, 2.0, 470e3, 15e-12), floating(2, 8e-12)],
+    );
+    let clean = run(&s);
+    let mut session = Session::new(InProcessLink::new(&s).corrupt_every(41));
+    let faulty = survey(&mut session, &SurveyOptions::default()).expect("survey despite a noisy link");
+    assert!(faulty.link.bad_frames > 0, "the fault injector corrupted nothing");
+    assert!(faulty.link.reruns > 0, "corrupt runs must be re-run");
+    for (a, b) in clean.pins.iter().zip(&faulty.pins) {
+        assert_eq!(a.verdict, b.verdict, "ch{}", a.channel);
+        if let (Some(x), Some(y)) = (a.source_ohms.estimate, b.source_ohms.estimate) {
+            // The re-runs happened on the board too (the node saw them), so the numbers move a
+            // little; they must stay within each other's intervals.
+            let (lo, hi) = (b.source_ohms.low.unwrap(), b.source_ohms.high.unwrap());
+            assert!(lo <= x && x <= hi, "ch{}: clean {x} outside faulty interval {lo}..{hi} (est {y})", a.channel);
+        }
+    }
+}
