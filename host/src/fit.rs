@@ -429,8 +429,8 @@ fn interval_log<'a>(
         return (p, iv);
     }
     let threshold = p.objective(&theta) + CHI2_95_1DOF * birge2;
-    let (p, low) = profile_edge(p, theta, i, lo_b, threshold);
-    let (p, high) = profile_edge(p, theta, i, hi_b, threshold);
+    let (p, low) = profile_edge(p, theta, i, lo_b, threshold, sigma);
+    let (p, high) = profile_edge(p, theta, i, hi_b, threshold, sigma);
     let estimate = (low.is_some() && high.is_some()).then(|| theta[i].exp());
     (p, Interval { estimate, low: low.map(f64::exp), high: high.map(f64::exp) })
 }
@@ -467,26 +467,46 @@ fn profile_edge<'a>(
     i: usize,
     limit: f64,
     threshold: f64,
+    sigma: f64,
 ) -> (Problem<'a>, Option<f64>) {
     let saved_free = p.free.clone();
     p.free.retain(|&f| f != i);
-    let (mut p, far, _) = profile_at(p, i, limit, theta);
+    let dir = (limit - theta[i]).signum();
+    // Bracket the crossing: start where the Wald interval would end, step outward doubling.
+    let mut step = if sigma.is_finite() && sigma > 0.0 { (1.5 * Z95 * sigma).clamp(0.05, 3.0) } else { 1.0 };
+    let (mut inside, mut warm) = (theta[i], theta);
+    let mut outside = None;
+    loop {
+        let x = if dir > 0.0 { (theta[i] + step).min(limit) } else { (theta[i] - step).max(limit) };
+        let (q, obj, t) = profile_at(p, i, x, warm);
+        p = q;
+        if obj > threshold {
+            outside = Some(x);
+            break;
+        }
+        inside = x;
+        warm = t;
+        if x == limit {
+            break;
+        }
+        step *= 2.0;
+    }
+    // Bisect to a tenth of the Wald width (at least 1% in the log).
+    let tol = if sigma.is_finite() { (0.1 * sigma).clamp(0.01, 0.05) } else { 0.02 };
     let mut result = None;
-    if far > threshold {
-        let (mut inside, mut outside) = (theta[i], limit);
-        let mut warm = theta;
-        while (outside - inside).abs() > 0.02 {
-            let mid = (inside + outside) / 2.0;
+    if let Some(mut out) = outside {
+        while (out - inside).abs() > tol {
+            let mid = (inside + out) / 2.0;
             let (q, obj, t) = profile_at(p, i, mid, warm);
             p = q;
             if obj <= threshold {
                 inside = mid;
                 warm = t;
             } else {
-                outside = mid;
+                out = mid;
             }
         }
-        result = Some((inside + outside) / 2.0);
+        result = Some((inside + out) / 2.0);
     }
     p.free = saved_free;
     p.theta = theta;
