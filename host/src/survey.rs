@@ -664,3 +664,65 @@ pub fn min_sample_index(model: &BoardModel, p: &PinParams) -> Option<u8> {
         (worst <= half_lsb).then_some(i as u8)
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ohmsight_protocol::{FrontEnd, Precharge};
+
+    fn board(sample_cycles: &[f64], clock_hz: f64, hold: f64, switch: f64, bits: u8) -> BoardModel {
+        let fe = FrontEnd {
+            bits,
+            vref_microvolts: 3_300_000,
+            sample_ps: sample_cycles.iter().map(|c| (c / clock_hz * 1e12).round() as u32).collect(),
+            conversion_ps: 1_000_000,
+            hold_attofarads: (hold * 1e18) as u32,
+            hold_tolerance_ppm: 0,
+            switch_milliohms: (switch * 1e3) as u32,
+            switch_tolerance_ppm: 0,
+            noise_millilsb: 500,
+            leakage_picoamps: 0,
+            pull_milliohms: 0,
+            precharges: heapless::Vec::from_slice(&[Precharge { channel: 0, nominal_microvolts: 0 }]).unwrap(),
+        };
+        BoardModel::from_front_end(&fe)
+    }
+
+    fn params(rs: f64, cn: f64, vs: f64, b: &BoardModel) -> PinParams {
+        PinParams {
+            source_ohms: rs,
+            node_farads: cn,
+            source_volts: vs,
+            hold_farads: b.hold_farads,
+            switch_ohms: b.switch_ohms,
+            overhead_s: 0.0,
+        }
+    }
+
+    #[test]
+    fn min_sample_follows_the_rc_settling_rule() {
+        // Textbook: a single-pole RC settles a full-scale step to ½ LSB of an N-bit converter in
+        // ln(2^(N+1)) time constants. With a negligible node capacitance the time constant is
+        // (Rs + Rm)·Ch, and the answer must be the first sample time at or beyond that.
+        let cycles = [1.5, 7.5, 13.5, 28.5, 41.5, 55.5, 71.5, 239.5];
+        let b = board(&cycles, 14e6, 8e-12, 1e3, 12);
+        for rs in [100.0, 2e3, 5e3, 12e3, 30e3, 60e3] {
+            let tau = (rs + 1e3) * 8e-12;
+            let need_s = tau * (2f64.powi(13)).ln();
+            let want = cycles.iter().position(|c| c / 14e6 >= need_s * 1.0005);
+            // Full scale from 0 V to Vref with the source at Vref is the worst case here.
+            let got = min_sample_index(&b, &params(rs, 1e-18, 3.3, &b)).map(usize::from);
+            assert_eq!(got, want, "Rs = {rs} Ω needs {:.0} ns", need_s * 1e9);
+        }
+    }
+
+    #[test]
+    fn a_large_filter_capacitor_settles_by_charge_sharing() {
+        // Charge conservation: behind 100 nF a full-scale step on 8 pF moves the node by
+        // Vref·Ch/(Ch + Cn) ≈ 0.26 mV < ½ LSB (0.40 mV), so even the shortest sample time settles
+        // whatever the source resistance — while 1 nF (26 mV) does not settle at 10 MΩ.
+        let b = board(&[1.5, 239.5], 14e6, 8e-12, 1e3, 12);
+        assert_eq!(min_sample_index(&b, &params(10e6, 100e-9, 1.65, &b)), Some(0));
+        assert_eq!(min_sample_index(&b, &params(10e6, 1e-9, 1.65, &b)), None);
+    }
+}

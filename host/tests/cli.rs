@@ -25,7 +25,17 @@ fn demo_survey_json_is_one_document_with_the_documented_fields() {
     assert!(pins.len() >= 8);
     let mut verdicts = std::collections::BTreeSet::new();
     for p in pins {
-        for key in ["channel", "label", "verdict", "source_ohms", "node_farads", "source_volts", "noise_lsb_rms", "min_sample_ns", "flags"] {
+        for key in [
+            "channel",
+            "label",
+            "verdict",
+            "source_ohms",
+            "node_farads",
+            "source_volts",
+            "noise_lsb_rms",
+            "min_sample_ns",
+            "flags",
+        ] {
             assert!(p.get(key).is_some(), "pin lacks {key}: {p}");
         }
         let v = p["verdict"].as_str().unwrap();
@@ -37,7 +47,9 @@ fn demo_survey_json_is_one_document_with_the_documented_fields() {
                 assert!(!(has("low") && has("high")), "a bound has one side only: {iv}");
             } else {
                 assert!(has("low") && has("high"), "an estimate has both ends: {iv}");
-                assert!(iv["low"].as_f64() <= iv["estimate"].as_f64() && iv["estimate"].as_f64() <= iv["high"].as_f64());
+                assert!(
+                    iv["low"].as_f64() <= iv["estimate"].as_f64() && iv["estimate"].as_f64() <= iv["high"].as_f64()
+                );
             }
         }
         for f in p["flags"].as_array().unwrap() {

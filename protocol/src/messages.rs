@@ -27,6 +27,8 @@ pub const MAX_BURST: u8 = 32;
 pub const MAX_CONVERSIONS: u32 = 65_536;
 /// Longest wait the engine accepts in any one place (4 s), in nanoseconds.
 pub const MAX_WAIT_NS: u32 = 4_000_000_000;
+/// Longest nominal duration of one experiment (2 minutes), in picoseconds.
+pub const MAX_RUN_PS: u64 = 120_000_000_000_000;
 
 /// Host → board.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

@@ -3,7 +3,9 @@
 //! One implementation serves both sides: the firmware engine executes [`Steps`] on the board,
 //! the host fit simulates the same [`Steps`] on the model. Integer arithmetic only.
 
-use crate::messages::{ErrorKind, Experiment, MAX_BURST, MAX_CELLS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_WAIT_NS};
+use crate::messages::{
+    ErrorKind, Experiment, MAX_BURST, MAX_CELLS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_RUN_PS, MAX_WAIT_NS,
+};
 
 /// The board timing the sequence needs.
 #[derive(Debug, Clone, Copy)]
@@ -151,7 +153,12 @@ impl<'a> Steps<'a> {
         if len > u64::from(MAX_CONVERSIONS) {
             return Err(ErrorKind::TooLarge);
         }
-        Ok(Self { exp, timing, len: len as u32, gap_ns })
+        let steps = Self { exp, timing, len: len as u32, gap_ns };
+        // Every run ends in bounded time: a host waiting on a board must never wait for days.
+        if steps.nominal_ps() > MAX_RUN_PS {
+            return Err(ErrorKind::TooLarge);
+        }
+        Ok(steps)
     }
 
     /// Number of conversions.
@@ -386,5 +393,8 @@ mod tests {
         assert_eq!(Steps::new(&big, T).unwrap_err(), ErrorKind::TooLarge);
         let long = Experiment::OrderSwap { a: 0, b: 1, sample: 0, repeats: u16::MAX, rest_ns: 0, settle_ns: 0 };
         assert_eq!(Steps::new(&long, T).unwrap_err(), ErrorKind::TooLarge);
+        // 4096 pairs with 1 s rest each: too many conversions for no, too long for yes.
+        let slow = Experiment::OrderSwap { a: 0, b: 1, sample: 0, repeats: 4096, rest_ns: 1_000_000_000, settle_ns: 0 };
+        assert_eq!(Steps::new(&slow, T).unwrap_err(), ErrorKind::TooLarge);
     }
 }
