@@ -310,3 +310,78 @@ impl<L: Link> Session<L> {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ohmsight_protocol::{encode_frame, MAX_FRAME};
+    use std::collections::VecDeque;
+
+    /// A board that answers every request with the next scripted responses.
+    struct Scripted {
+        answers: VecDeque<Vec<Response>>,
+        out: VecDeque<u8>,
+    }
+
+    impl Link for Scripted {
+        fn send(&mut self, _bytes: &[u8]) -> std::io::Result<()> {
+            for r in self.answers.pop_front().unwrap_or_default() {
+                let mut buf = [0u8; MAX_FRAME];
+                let n = encode_frame(&r, &mut buf).unwrap();
+                self.out.extend(&buf[..n]);
+            }
+            Ok(())
+        }
+        fn recv(&mut self, buf: &mut [u8], _t: Duration) -> std::io::Result<usize> {
+            let n = buf.len().min(self.out.len());
+            for (b, v) in buf.iter_mut().zip(self.out.drain(..n)) {
+                *b = v;
+            }
+            Ok(n)
+        }
+        fn name(&self) -> String {
+            "scripted board".into()
+        }
+    }
+
+    fn hello(protocol: u16) -> Response {
+        Response::Hello {
+            protocol,
+            firmware: heapless::String::try_from("9.9.9").unwrap(),
+            board: heapless::String::try_from("future").unwrap(),
+            unit_id: 1,
+            channels: 0,
+        }
+    }
+
+    #[test]
+    fn another_protocol_version_is_refused_in_words() {
+        let link = Scripted {
+            answers: VecDeque::from([vec![Response::Error { seq: 0, kind: ErrorKind::Version }, hello(99)]]),
+            out: VecDeque::new(),
+        };
+        let err = Session::new(link).handshake(false).unwrap_err();
+        assert!(matches!(err, SessionError::Version { board: 99 }), "{err:?}");
+        let text = err.to_string();
+        assert!(text.contains("99") && text.contains("--any-version"), "{text}");
+    }
+
+    #[test]
+    fn silence_is_a_timeout_that_says_what_to_check() {
+        let link = Scripted { answers: VecDeque::new(), out: VecDeque::new() };
+        let err = Session::new(link).handshake(false).unwrap_err();
+        assert!(matches!(err, SessionError::Timeout { .. }), "{err:?}");
+        assert!(err.to_string().contains("baud rate"));
+    }
+
+    #[test]
+    fn a_refused_run_reports_the_reason() {
+        let link = Scripted {
+            answers: VecDeque::from([vec![Response::Error { seq: 1, kind: ErrorKind::BadChannel }]]),
+            out: VecDeque::new(),
+        };
+        let exp = Experiment::NoiseRecord { target: 40, sample: 0, period_ns: 0, count: 1, settle_ns: 0 };
+        let err = Session::new(link).run(&exp, Duration::ZERO).unwrap_err();
+        assert!(err.to_string().contains("no such channel"), "{err}");
+    }
+}

@@ -249,6 +249,26 @@ impl<L: Link> Runner<'_, L> {
     }
 }
 
+/// `repeats` × [precharge, target] at each period (see [`Experiment::PeriodSweep`]).
+fn period_sweep(
+    target: u8,
+    precharge: u8,
+    precharge_sample: u8,
+    sample: u8,
+    periods: &[u32],
+    repeats: u16,
+) -> Experiment {
+    Experiment::PeriodSweep {
+        target,
+        precharge,
+        precharge_sample,
+        sample,
+        periods_ns: HVec::from_slice(&periods[..periods.len().min(ohmsight_protocol::MAX_PERIODS)]).unwrap_or_default(),
+        repeats,
+        settle_ns: 0,
+    }
+}
+
 fn vec_of<const N: usize>(items: &[u8]) -> HVec<u8, N> {
     HVec::from_slice(&items[..items.len().min(N)]).unwrap_or_default()
 }
@@ -346,15 +366,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             // cannot keep up (two cells: the first and the second half of the run).
             let s = &pin.screen;
             let far = if (s[4].mean + s[5].mean) / 2.0 > model.full_scale() / 2.0 { lo } else { hi };
-            let exp = Experiment::PeriodSweep {
-                target: pin.channel,
-                precharge: far,
-                precharge_sample: longest,
-                sample: 0,
-                periods_ns: HVec::from_slice(&[0, 0]).unwrap_or_default(),
-                repeats: 32,
-                settle_ns: 0,
-            };
+            let exp = period_sweep(pin.channel, far, longest, 0, &[0, 0], 32);
             let rec = runner.run(Some(pin), exp, true)?;
             let burst: Vec<CellObs> = rec.cells.iter().map(CellObs::from_aggregate).collect();
             pin.burst_droop = burst.first().zip(burst.last()).map_or(0.0, |(a, b)| (a.mean - b.mean).abs());
@@ -378,15 +390,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             // a large capacitor hides it from single conversions.
             runner.bar.inc_length(1);
             runner.bar.set_message(format!("ch{} droop run", pin.channel));
-            let exp = Experiment::PeriodSweep {
-                target: pin.channel,
-                precharge: far,
-                precharge_sample: longest,
-                sample: 0,
-                periods_ns: HVec::from_slice(&[0, 0, 0]).unwrap_or_default(),
-                repeats: 256,
-                settle_ns: 0,
-            };
+            let exp = period_sweep(pin.channel, far, longest, 0, &[0, 0, 0], 256);
             runner.run(Some(pin), exp, true)?;
         } else {
             runner.bar.inc_length(4);
@@ -427,15 +431,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             }
             for pre in [lo, hi] {
                 runner.bar.set_message(format!("ch{} period sweep", pin.channel));
-                let exp = Experiment::PeriodSweep {
-                    target: pin.channel,
-                    precharge: pre,
-                    precharge_sample: longest,
-                    sample: longest,
-                    periods_ns: periods.clone(),
-                    repeats: 12,
-                    settle_ns: 0,
-                };
+                let exp = period_sweep(pin.channel, pre, longest, longest, &periods, 12);
                 runner.run(Some(pin), exp, true)?;
             }
             if pin.burst_droop >= 1.0 {
@@ -444,16 +440,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
                 // equilibrium Rs/(Rs + P/Ch), which measures Rs even behind a large capacitor.
                 runner.bar.inc_length(1);
                 runner.bar.set_message(format!("ch{} droop sweep", pin.channel));
-                let short: HVec<u32, 12> = periods.iter().take(3).copied().collect();
-                let exp = Experiment::PeriodSweep {
-                    target: pin.channel,
-                    precharge: far,
-                    precharge_sample: longest,
-                    sample: longest,
-                    periods_ns: short,
-                    repeats: 256,
-                    settle_ns: 0,
-                };
+                let exp = period_sweep(pin.channel, far, longest, longest, &periods[..3.min(periods.len())], 256);
                 runner.run(Some(pin), exp, true)?;
             }
         }
