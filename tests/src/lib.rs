@@ -68,10 +68,11 @@ pub fn show(iv: &Interval) -> String {
     ohmsight::report::interval_text(iv, ohmsight::units::ohms)
 }
 
-/// How many of the board's sample times leave a full-scale step on the hold capacitor more
-/// than 2 LSB from a source of `ohms` behind `farads` (computed from the truth with the
-/// closed-form network, nominal board values). With fewer than two such sample times the
-/// settling curve has one informative point, and `Rs` trades off against `Cn`: the survey can
+/// How many of the board's sample times leave a step from 0 V on the hold capacitor more than
+/// ½ LSB from a source of `ohms` behind `farads` (computed from the truth with the closed-form
+/// network, nominal board values). With fewer than two such sample times the settling curve
+/// has one informative point, and `Rs` trades off against `Cn`: unless the node is large
+/// enough for its recovery between conversions to show (see [`resolvable`]), the survey can
 /// only bound it.
 pub fn informative_samples(board: &BoardProfile, ohms: f64, farads: f64) -> usize {
     use ohmsight_protocol::analog::{Network, State};
@@ -89,7 +90,14 @@ pub fn informative_samples(board: &BoardProfile, ohms: f64, farads: f64) -> usiz
         .iter()
         .filter(|&&c| {
             let s = net.sampling(c / board.adc_clock_hz).apply(State { node_volts: net.source_volts, hold_volts: 0.0 });
-            (s.hold_volts - net.source_volts).abs() > 2.0 * lsb
+            (s.hold_volts - net.source_volts).abs() > 0.5 * lsb
         })
         .count()
+}
+
+/// Whether the survey's experiments can tell `Rs` apart from `Cn`: two informative sample
+/// times, or a node capacitor of 1 nF or more, whose recovery through `Rs` between conversions
+/// the repeat bursts and period sweeps measure.
+pub fn resolvable(board: &BoardProfile, ohms: f64, farads: f64) -> bool {
+    informative_samples(board, ohms, farads) >= 2 || farads >= 1e-9
 }

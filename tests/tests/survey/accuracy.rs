@@ -2,7 +2,7 @@
 //! several seeds.
 
 use ohmsight::survey::Verdict;
-use ohmsight_tests::{covers, default_board, driven, fast_board, floating, informative_samples, run, scenario, show};
+use ohmsight_tests::{covers, default_board, driven, fast_board, floating, resolvable, run, scenario, show};
 use ohmsight_virtual::{BoardProfile, PinSetup, Source};
 
 /// The ladder: (ohms, node farads). 16 pins including an open one.
@@ -61,10 +61,10 @@ fn check(board: BoardProfile, seed: u64) -> (usize, usize) {
         }
         counted += 1;
         inside += usize::from(covers(&rs, ohms));
-        if informative_samples(&board, ohms, setup.node_farads) < 2 {
-            // One informative sample time: Rs and Cn trade off (see informative_samples);
-            // the interval must hold the truth (counted above), the point may wander.
-            println!("{ctx}: one informative sample time, interval only");
+        if !resolvable(&board, ohms, setup.node_farads) {
+            // One informative sample time: Rs and Cn trade off (see `resolvable`); the
+            // interval must hold the truth (counted above), the point may wander.
+            println!("{ctx}: not resolvable on this board, interval only");
             continue;
         }
         let est = rs.estimate.unwrap_or_else(|| panic!("{ctx}: expected an estimate"));
