@@ -44,9 +44,10 @@ fn check(board: BoardProfile, seed: u64) -> (usize, usize) {
             continue;
         };
         let ctx = format!(
-            "seed {seed} ch{} truth {ohms} Ω / {} F: got {}",
+            "seed {seed} ch{} truth {} / {}: got {}",
             p.channel,
-            setup.node_farads,
+            ohmsight::units::ohms(ohms),
+            ohmsight::units::farads(setup.node_farads),
             show(&p.source_ohms)
         );
         assert_eq!(p.verdict, Verdict::Driven, "{ctx}");
