@@ -33,6 +33,7 @@ enum Command {
     /// Survey every pin of a board: fit source resistance, node capacitance, verdicts, settling.
     ///
     /// With no link option the built-in demo scenario runs on the simulated board.
+    #[command(after_long_help = SURVEY_EXAMPLES)]
     Survey(SurveyArgs),
 }
 
@@ -63,6 +64,17 @@ struct SurveyArgs {
     #[arg(long)]
     any_version: bool,
 }
+
+const SURVEY_EXAMPLES: &str = "Examples:
+  ohmsight survey                                  the demo board, simulated
+  ohmsight survey --scenario boards/virtual/scenarios/demo.toml --seed 7
+  ohmsight survey --port /dev/ttyACM0 --json > unit-0042.json
+
+Exit status: 0 surveyed; 1 the survey failed (link or board, said on stderr); 2 bad input
+(scenario file, arguments, a serial port that cannot be opened).
+
+A board tied to mains or high voltage must be surveyed through an isolated link and supply;
+follow local codes and licensed practice.";
 
 /// Exit status for bad input.
 const EXIT_INPUT: u8 = 2;

@@ -19,8 +19,22 @@ use ohmsight_protocol::analog::{volts_to_lsb, State};
 use ohmsight_protocol::{ChannelRole, Experiment, Steps};
 use std::time::{Duration, Instant};
 
-/// Above this lower bound a source is indistinguishable from an open pin, Ω.
+/// A source this close to 0 V or to full scale (a fraction of full scale: about a converter's
+/// gain error) is at a rail.
+pub const RAIL_MARGIN: f64 = 0.002;
+
+/// The least source resistance a floating verdict needs, Ω, when the board states no leakage.
 pub const FLOATING_OHMS: f64 = 1e9;
+
+/// Source resistance above which a pin is called floating, Ω: where the most current the path
+/// could carry (Vref/Rs) is a tenth of the board's leakage bound, at least [`FLOATING_OHMS`].
+pub fn floating_ohms(model: &BoardModel) -> f64 {
+    if model.leakage_amps > 0.0 {
+        (0.1 * model.vref_volts / model.leakage_amps).clamp(FLOATING_OHMS, 1e12)
+    } else {
+        1e12
+    }
+}
 /// Longest period of a period sweep, ns.
 const LONGEST_PERIOD_NS: u32 = 20_000_000;
 /// Noise-record period, ns (4 kHz: 50/60 Hz and harmonics well inside Nyquist).
@@ -606,7 +620,9 @@ fn judge(model: &BoardModel, pin: &PinWork, fit: Option<Fit>) -> PinReport {
     r.source_ohms = fit.source_ohms;
     r.node_farads = fit.node_farads;
     let rs = fit.source_ohms;
-    if rs.low.is_some_and(|l| l >= FLOATING_OHMS) {
+    // A path that can carry no more than a tenth of the pin's own leakage is no source: the
+    // node is governed by leakage and by the charge the converter leaves on it.
+    if rs.low.is_some_and(|l| l >= floating_ohms(model)) {
         r.verdict = Verdict::Floating;
         r.source_ohms = Interval { estimate: None, low: rs.low, high: None };
         r.reason = Some("no DC path: the node keeps the charge the converter leaves on it".into());
@@ -616,7 +632,7 @@ fn judge(model: &BoardModel, pin: &PinWork, fit: Option<Fit>) -> PinReport {
             "source resistance above {} cannot be told from an open pin with these experiments",
             crate::units::ohms(rs.low.unwrap_or(0.0))
         ));
-    } else if vs < 0.5 * lsb || vs > (model.max_code() - 0.5) * lsb {
+    } else if vs < RAIL_MARGIN * model.vref_volts || vs > (1.0 - RAIL_MARGIN) * model.vref_volts - lsb {
         r.verdict = Verdict::AtRail;
         r.source_volts = Some(vs.clamp(0.0, model.vref_volts));
     } else {

@@ -7,3 +7,4 @@
 mod accuracy;
 mod demo;
 mod link;
+mod verdicts;
