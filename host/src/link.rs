@@ -114,6 +114,11 @@ impl SerialLink {
             .map_err(|e| io::Error::other(format!("cannot open serial port {path}: {e}")))?;
         Ok(Self { port, path: path.to_string() })
     }
+
+    /// Wraps a port that is already open (a pseudo-terminal pair, a port set up by the caller).
+    pub fn from_port(port: Box<dyn serialport::SerialPort>, name: &str) -> Self {
+        Self { port, path: name.to_string() }
+    }
 }
 
 impl Link for SerialLink {

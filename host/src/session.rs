@@ -124,6 +124,9 @@ pub struct RunRecords {
 pub struct Session<L> {
     link: L,
     rx: FrameAccumulator,
+    /// Bytes received but not yet decoded.
+    pending: Vec<u8>,
+    pending_pos: usize,
     seq: u16,
     /// Traffic counters.
     pub stats: LinkStats,
@@ -134,6 +137,8 @@ pub struct Session<L> {
 }
 
 const TRIES: u32 = 3;
+/// Bytes asked of the link at a time.
+const RX_CHUNK: usize = 512;
 
 impl<L: Link> Session<L> {
     /// Wraps a link.
@@ -141,6 +146,8 @@ impl<L: Link> Session<L> {
         Self {
             link,
             rx: FrameAccumulator::new(),
+            pending: Vec::with_capacity(RX_CHUNK),
+            pending_pos: 0,
             seq: 0,
             stats: LinkStats::default(),
             timeout: Duration::from_secs(2),
@@ -163,26 +170,29 @@ impl<L: Link> Session<L> {
 
     /// Next decoded frame, or `Ok(None)` at the deadline.
     fn next_frame(&mut self, deadline: Instant) -> Result<Option<Result<Response, FrameError>>, SessionError> {
-        let mut byte = [0u8; 1];
         loop {
+            while self.pending_pos < self.pending.len() {
+                let byte = self.pending[self.pending_pos];
+                self.pending_pos += 1;
+                if let Some(r) = self.rx.push::<Response>(byte) {
+                    if r.is_err() {
+                        self.stats.bad_frames += 1;
+                    }
+                    return Ok(Some(r));
+                }
+            }
             let now = Instant::now();
             if now >= deadline {
                 return Ok(None);
             }
-            let n = self.link.recv(&mut byte, deadline - now)?;
-            if n == 0 {
-                // In-process links never time out: nothing more will come.
-                if self.link_bytes_per_s == 0 {
-                    return Ok(None);
-                }
-                continue;
-            }
-            self.stats.bytes_received += 1;
-            if let Some(r) = self.rx.push::<Response>(byte[0]) {
-                if r.is_err() {
-                    self.stats.bad_frames += 1;
-                }
-                return Ok(Some(r));
+            self.pending.resize(RX_CHUNK, 0);
+            let n = self.link.recv(&mut self.pending, deadline - now)?;
+            self.pending.truncate(n);
+            self.pending_pos = 0;
+            self.stats.bytes_received += n as u64;
+            // In-process links never time out: when they have nothing, nothing more will come.
+            if n == 0 && self.link_bytes_per_s == 0 {
+                return Ok(None);
             }
         }
     }
@@ -211,6 +221,8 @@ impl<L: Link> Session<L> {
         let deadline = Instant::now() + Duration::from_millis(50);
         while let Ok(Some(_)) = self.next_frame(deadline) {}
         self.rx = FrameAccumulator::new();
+        self.pending.clear();
+        self.pending_pos = 0;
     }
 
     /// First exchange: versions, board, front end and channels.
