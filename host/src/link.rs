@@ -28,6 +28,7 @@ pub struct InProcessLink {
     clock: Rc<VirtualClock>,
     out: VecDeque<u8>,
     corrupt_every: Option<u64>,
+    silent_after: Option<u64>,
     frames_out: u64,
     pending: Vec<u8>,
 }
@@ -44,13 +45,33 @@ impl InProcessLink {
         let board = VirtualBoard::with_realism(scenario, clock.clone(), realism);
         let desc = board.description();
         let engine = Box::new(Engine::new(board, VirtualDelay(clock.clone()), desc));
-        Self { engine, clock, out: VecDeque::new(), corrupt_every: None, frames_out: 0, pending: Vec::new() }
+        Self {
+            engine,
+            clock,
+            out: VecDeque::new(),
+            corrupt_every: None,
+            silent_after: None,
+            frames_out: 0,
+            pending: Vec::new(),
+        }
     }
 
     /// Flips one bit in every `n`-th response frame (for tests of link recovery).
     pub fn corrupt_every(mut self, n: u64) -> Self {
         self.corrupt_every = Some(n.max(1));
         self
+    }
+
+    /// Goes silent for good after `n` response frames, like a cable pulled mid-survey (for
+    /// tests of what a survey keeps when the link dies).
+    pub fn silent_after(mut self, n: u64) -> Self {
+        self.silent_after = Some(n);
+        self
+    }
+
+    /// Response frames the board has sent so far.
+    pub fn frames_sent(&self) -> u64 {
+        self.frames_out
     }
 
     /// Virtual time of the simulated board, ps.
@@ -73,6 +94,9 @@ impl Link for InProcessLink {
         }
         for frame in out.split_inclusive(|&b| b == 0) {
             self.frames_out += 1;
+            if self.silent_after.is_some_and(|n| self.frames_out > n) {
+                break;
+            }
             let start = self.out.len();
             self.out.extend(frame);
             if let Some(n) = self.corrupt_every {

@@ -104,7 +104,7 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
         progress: !args.quiet && std::io::IsTerminal::is_terminal(&std::io::stderr()),
         channels: args.channels.clone(),
     };
-    let (text, json) = if let Some(port) = &args.port {
+    let (text, json, fault) = if let Some(port) = &args.port {
         let link = match SerialLink::open(port, args.baud) {
             Ok(l) => l,
             Err(e) => {
@@ -138,12 +138,18 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
         Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => return Err(e.into()),
         _ => {}
     }
+    if let Some(f) = fault {
+        // What was measured is printed above; the exit status still says the survey is partial.
+        eprintln!("ohmsight: the survey was cut short: {f}");
+        return Ok(ExitCode::from(EXIT_FAILED));
+    }
     Ok(ExitCode::SUCCESS)
 }
 
-fn render<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> anyhow::Result<(String, String)> {
+/// The survey as text and as JSON, and the link fault that cut it short, if any.
+fn render<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> anyhow::Result<(String, String, Option<String>)> {
     let name = session.link().name();
     let r = survey(session, opts)?;
     let json = serde_json::to_string_pretty(&report::survey_json(&r, &name))?;
-    Ok((report::survey_text(&r, &name), json))
+    Ok((report::survey_text(&r, &name), json, r.fault.clone()))
 }

@@ -78,6 +78,7 @@ pub fn survey_json(r: &SurveyReport, link_name: &str) -> Value {
             "precharges": precharges,
         },
         "pins": r.pins.iter().map(pin_json).collect::<Vec<_>>(),
+        "fault": r.fault,
         "totals": {
             "conversions": r.link.conversions,
             "link_bytes_sent": r.link.bytes_sent,
@@ -176,6 +177,9 @@ pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
             out += &n;
             out += "\n";
         }
+    }
+    if let Some(f) = &r.fault {
+        out += &format!("\nthe survey was cut short: {f}\n");
     }
     out += &format!(
         "\n{} conversions, {} bytes to the board and {} back ({} bad frames, {} re-runs); {:.2} s on the board, {:.2} s here\n",

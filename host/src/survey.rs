@@ -164,6 +164,8 @@ pub struct SurveyReport {
     pub board_seconds: f64,
     /// Wall-clock time of the survey, s.
     pub wall_seconds: f64,
+    /// The link fault that cut the survey short, if one did (pins not reached are `unknown`).
+    pub fault: Option<String>,
 }
 
 /// Survey options.
@@ -215,6 +217,28 @@ struct PinWork {
     rail: Option<f64>,
     /// Drift between the halves of the screening run of back-to-back pairs, LSB.
     burst_droop: f64,
+    /// Every planned experiment ran.
+    complete: bool,
+}
+
+/// Channel choices that every pin's experiments share.
+struct Plan {
+    lo: u8,
+    hi: u8,
+    n_samples: u8,
+    longest: u8,
+    mid: u8,
+}
+
+impl Plan {
+    /// The precharge farther from a pin that reads `level_lsb`.
+    fn far_from(&self, model: &BoardModel, level_lsb: f64) -> u8 {
+        if level_lsb > model.full_scale() / 2.0 {
+            self.lo
+        } else {
+            self.hi
+        }
+    }
 }
 
 /// Runs experiments and keeps the board's nominal timeline.
@@ -260,6 +284,167 @@ impl<L: Link> Runner<'_, L> {
         }
         self.now_ps += attempts * nominal;
         Ok(rec)
+    }
+
+    /// The screen: a short precharge sweep, and a run of back-to-back pairs.
+    fn screen(&mut self, plan: &Plan, pin: &mut PinWork) -> Result<(), SurveyError> {
+        let (lo, hi, longest) = (plan.lo, plan.hi, plan.longest);
+        self.bar.set_message(format!("ch{} screen", pin.channel));
+        let exp = Experiment::PrechargeSweep {
+            target: pin.channel,
+            precharges: vec_of(&[lo, hi]),
+            precharge_sample: longest,
+            samples: vec_of(&[0, plan.mid, longest]),
+            repeats: 8,
+            rest_ns: 0,
+            settle_ns: 0,
+        };
+        let rec = self.run(Some(pin), exp, true)?;
+        pin.screen = rec.cells.iter().map(CellObs::from_aggregate).collect();
+        let max = self.model.max_code();
+        if pin.screen.iter().all(|c| c.mean <= 0.5) {
+            pin.rail = Some(0.0);
+        } else if pin.screen.iter().all(|c| c.mean >= max - 0.5) {
+            pin.rail = Some(self.model.vref_volts);
+        } else {
+            // A large node capacitor hides its source behind a tiny charge-sharing step; a
+            // run of back-to-back [precharge, pin] pairs accumulates the droop where the source
+            // cannot keep up (two cells: the first and the second half of the run).
+            let s = &pin.screen;
+            let far = plan.far_from(&self.model, (s[4].mean + s[5].mean) / 2.0);
+            let exp = period_sweep(pin.channel, far, longest, 0, &[0, 0], 32);
+            let rec = self.run(Some(pin), exp, true)?;
+            let burst: Vec<CellObs> = rec.cells.iter().map(CellObs::from_aggregate).collect();
+            pin.burst_droop = burst.first().zip(burst.last()).map_or(0.0, |(a, b)| (a.mean - b.mean).abs());
+        }
+        Ok(())
+    }
+
+    /// Detailed experiments where the screen shows something to resolve; a noise record for
+    /// every pin not at a rail.
+    fn detail(&mut self, plan: &Plan, pin: &mut PinWork) -> Result<(), SurveyError> {
+        if pin.rail.is_some() {
+            return Ok(());
+        }
+        let (lo, hi, longest) = (plan.lo, plan.hi, plan.longest);
+        let s = &pin.screen;
+        // cells: [s0 lo, s0 hi, mid lo, mid hi, long lo, long hi]
+        let settled =
+            (s[0].mean - s[4].mean).abs() < 1.0 && (s[1].mean - s[5].mean).abs() < 1.0 && pin.burst_droop < 1.0;
+        let far = plan.far_from(&self.model, (s[4].mean + s[5].mean) / 2.0);
+        if settled {
+            // Stiff on every timescale so far: hundreds of back-to-back pairs push the node
+            // toward the switched-capacitor equilibrium Rs/(Rs + P/Ch), which bounds Rs even if
+            // a large capacitor hides it from single conversions.
+            self.bar.inc_length(1);
+            self.bar.set_message(format!("ch{} droop run", pin.channel));
+            let exp = period_sweep(pin.channel, far, longest, 0, &[0, 0, 0], 256);
+            self.run(Some(pin), exp, true)?;
+        } else {
+            self.bar.inc_length(4);
+            self.bar.set_message(format!("ch{} precharge sweep", pin.channel));
+            let all: Vec<u8> = (0..plan.n_samples).collect();
+            let exp = Experiment::PrechargeSweep {
+                target: pin.channel,
+                precharges: vec_of(&[lo, hi]),
+                precharge_sample: longest,
+                samples: vec_of(&all),
+                repeats: 24,
+                rest_ns: 0,
+                settle_ns: 0,
+            };
+            self.run(Some(pin), exp, true)?;
+            self.bar.set_message(format!("ch{} repeat burst", pin.channel));
+            let exp = Experiment::RepeatBurst {
+                target: pin.channel,
+                precharge: far,
+                precharge_sample: longest,
+                sample: 0,
+                length: 16,
+                repeats: 8,
+                rest_ns: 0,
+                settle_ns: 0,
+            };
+            self.run(Some(pin), exp, true)?;
+            let pair_ns = (2 * self.model.timing().busy_ps(longest) / 1000) as u32;
+            let mut periods = HVec::<u32, 12>::new();
+            for k in [1u32, 3, 10, 30, 100, 300, 1000, 3000] {
+                let p = pair_ns.saturating_mul(k).min(LONGEST_PERIOD_NS);
+                if periods.last().is_none_or(|&l| p > l) {
+                    let _ = periods.push(p);
+                }
+            }
+            if periods.last() != Some(&LONGEST_PERIOD_NS) {
+                let _ = periods.push(LONGEST_PERIOD_NS);
+            }
+            for pre in [lo, hi] {
+                self.bar.set_message(format!("ch{} period sweep", pin.channel));
+                let exp = period_sweep(pin.channel, pre, longest, longest, &periods, 12);
+                self.run(Some(pin), exp, true)?;
+            }
+            if pin.burst_droop >= 1.0 {
+                // The source cannot keep up with back-to-back conversions: hundreds of them
+                // at the shortest periods drive the node toward the switched-capacitor
+                // equilibrium Rs/(Rs + P/Ch), which measures Rs even behind a large capacitor.
+                self.bar.inc_length(1);
+                self.bar.set_message(format!("ch{} droop sweep", pin.channel));
+                let exp = period_sweep(pin.channel, far, longest, longest, &periods[..3.min(periods.len())], 256);
+                self.run(Some(pin), exp, true)?;
+            }
+        }
+        self.bar.set_message(format!("ch{} noise record", pin.channel));
+        let exp = Experiment::NoiseRecord {
+            target: pin.channel,
+            sample: longest,
+            period_ns: NOISE_PERIOD_NS,
+            count: NOISE_COUNT,
+            settle_ns: 0,
+        };
+        let rec = self.run(Some(pin), exp, false)?;
+        pin.noise = analyse(&rec.samples[8.min(rec.samples.len())..], f64::from(NOISE_PERIOD_NS) * 1e-9);
+        if let Some(n) = &pin.noise {
+            // Hum is nearly constant over a cell that spans a fraction of its period: it adds
+            // to each cell mean as an offset. Averaged down for cells spanning many cycles.
+            let hum_var = |span_s: f64| -> f64 {
+                MAINS_HZ
+                    .iter()
+                    .zip(n.hum_lsb)
+                    .map(|(f, a)| a * a / 2.0 / (1.0 + (std::f64::consts::PI * f * span_s).powi(2)))
+                    .sum()
+            };
+            for ev in &mut pin.events {
+                ev.coherent_var_lsb2 = cell_spans_s(&self.model, &ev.experiment).into_iter().map(hum_var).collect();
+            }
+        }
+        Ok(())
+    }
+
+    /// An order swap at the recommended sample time: the memory of the previous channel.
+    fn memory(&mut self, plan: &Plan, pin: &mut PinWork, r: &mut PinReport) -> Result<(), SurveyError> {
+        let model = &self.model;
+        let sample = r.min_sample_index.unwrap_or(plan.longest);
+        let level = r.source_volts.map(|v| volts_to_lsb(v, model.vref_volts, model.bits)).unwrap_or(0.0);
+        let far = plan.far_from(model, level);
+        let (full_scale, floor) = (model.full_scale(), model.variance_floor_lsb2());
+        self.bar.inc_length(1);
+        self.bar.set_message(format!("ch{} order swap", pin.channel));
+        let exp = Experiment::OrderSwap { a: far, b: pin.channel, sample, repeats: 32, rest_ns: 0, settle_ns: 0 };
+        let rec = self.run(Some(pin), exp, false)?;
+        let cells: Vec<CellObs> = rec.cells.iter().map(CellObs::from_aggregate).collect();
+        if cells.len() == 4 {
+            let shift = cells[1].mean - cells[3].mean;
+            let se = (cells[1].variance.max(floor) / f64::from(cells[1].count)
+                + cells[3].variance.max(floor) / f64::from(cells[3].count))
+            .sqrt();
+            let step = cells[0].mean - cells[3].mean;
+            let coefficient = if step.abs() > 1.0 { shift / step } else { 0.0 };
+            // Worst case: the previous channel a full-scale step away.
+            if (coefficient * full_scale).abs() > 0.5 && shift.abs() > 3.0 * se {
+                r.flags.push(Flag::Memory);
+            }
+            r.memory = Some(Memory { sample, shift_lsb: shift, shift_se_lsb: se, coefficient });
+        }
+        Ok(())
     }
 }
 
@@ -340,7 +525,8 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
     }
     runner.model = model.clone();
 
-    // 2. Screen.
+    // 2. Screen, 3. detail where needed. A link fault stops the experiments; what was
+    //    measured up to it is still fitted and reported.
     let mut work: Vec<PinWork> = pins
         .iter()
         .map(|c| PinWork {
@@ -353,133 +539,25 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             noise: None,
             rail: None,
             burst_droop: 0.0,
+            complete: false,
         })
         .collect();
-    let screen_samples = [0, mid, longest];
+    let plan = Plan { lo, hi, n_samples, longest, mid };
+    let mut fault: Option<String> = None;
     for pin in &mut work {
-        runner.bar.set_message(format!("ch{} screen", pin.channel));
-        let exp = Experiment::PrechargeSweep {
-            target: pin.channel,
-            precharges: vec_of(&[lo, hi]),
-            precharge_sample: longest,
-            samples: vec_of(&screen_samples),
-            repeats: 8,
-            rest_ns: 0,
-            settle_ns: 0,
-        };
-        let rec = runner.run(Some(pin), exp, true)?;
-        pin.screen = rec.cells.iter().map(CellObs::from_aggregate).collect();
-        let max = model.max_code();
-        if pin.screen.iter().all(|c| c.mean <= 0.5) {
-            pin.rail = Some(0.0);
-        } else if pin.screen.iter().all(|c| c.mean >= max - 0.5) {
-            pin.rail = Some(model.vref_volts);
-        } else {
-            // A large node capacitor hides its source behind a tiny charge-sharing step; a
-            // run of back-to-back [precharge, pin] pairs accumulates the droop where the source
-            // cannot keep up (two cells: the first and the second half of the run).
-            let s = &pin.screen;
-            let far = if (s[4].mean + s[5].mean) / 2.0 > model.full_scale() / 2.0 { lo } else { hi };
-            let exp = period_sweep(pin.channel, far, longest, 0, &[0, 0], 32);
-            let rec = runner.run(Some(pin), exp, true)?;
-            let burst: Vec<CellObs> = rec.cells.iter().map(CellObs::from_aggregate).collect();
-            pin.burst_droop = burst.first().zip(burst.last()).map_or(0.0, |(a, b)| (a.mean - b.mean).abs());
+        if let Err(e) = runner.screen(&plan, pin) {
+            fault = Some(e.to_string());
+            break;
         }
     }
-
-    // 3. Detail where needed; noise everywhere but at the rails.
-    for pin in &mut work {
-        if pin.rail.is_some() {
-            continue;
-        }
-        let s = &pin.screen;
-        // cells: [s0 lo, s0 hi, mid lo, mid hi, long lo, long hi]
-        let settled =
-            (s[0].mean - s[4].mean).abs() < 1.0 && (s[1].mean - s[5].mean).abs() < 1.0 && pin.burst_droop < 1.0;
-        let level = (s[4].mean + s[5].mean) / 2.0;
-        let far = if level > model.full_scale() / 2.0 { lo } else { hi };
-        if settled {
-            // Stiff on every timescale so far: hundreds of back-to-back pairs push the node
-            // toward the switched-capacitor equilibrium Rs/(Rs + P/Ch), which bounds Rs even if
-            // a large capacitor hides it from single conversions.
-            runner.bar.inc_length(1);
-            runner.bar.set_message(format!("ch{} droop run", pin.channel));
-            let exp = period_sweep(pin.channel, far, longest, 0, &[0, 0, 0], 256);
-            runner.run(Some(pin), exp, true)?;
-        } else {
-            runner.bar.inc_length(4);
-            runner.bar.set_message(format!("ch{} precharge sweep", pin.channel));
-            let all: Vec<u8> = (0..n_samples).collect();
-            let exp = Experiment::PrechargeSweep {
-                target: pin.channel,
-                precharges: vec_of(&[lo, hi]),
-                precharge_sample: longest,
-                samples: vec_of(&all),
-                repeats: 24,
-                rest_ns: 0,
-                settle_ns: 0,
-            };
-            runner.run(Some(pin), exp, true)?;
-            runner.bar.set_message(format!("ch{} repeat burst", pin.channel));
-            let exp = Experiment::RepeatBurst {
-                target: pin.channel,
-                precharge: far,
-                precharge_sample: longest,
-                sample: 0,
-                length: 16,
-                repeats: 8,
-                rest_ns: 0,
-                settle_ns: 0,
-            };
-            runner.run(Some(pin), exp, true)?;
-            let pair_ns = (2 * runner.model.timing().busy_ps(longest) / 1000) as u32;
-            let mut periods = HVec::<u32, 12>::new();
-            for k in [1u32, 3, 10, 30, 100, 300, 1000, 3000] {
-                let p = pair_ns.saturating_mul(k).min(LONGEST_PERIOD_NS);
-                if periods.last().is_none_or(|&l| p > l) {
-                    let _ = periods.push(p);
+    if fault.is_none() {
+        for pin in &mut work {
+            match runner.detail(&plan, pin) {
+                Ok(()) => pin.complete = true,
+                Err(e) => {
+                    fault = Some(e.to_string());
+                    break;
                 }
-            }
-            if periods.last() != Some(&LONGEST_PERIOD_NS) {
-                let _ = periods.push(LONGEST_PERIOD_NS);
-            }
-            for pre in [lo, hi] {
-                runner.bar.set_message(format!("ch{} period sweep", pin.channel));
-                let exp = period_sweep(pin.channel, pre, longest, longest, &periods, 12);
-                runner.run(Some(pin), exp, true)?;
-            }
-            if pin.burst_droop >= 1.0 {
-                // The source cannot keep up with back-to-back conversions: hundreds of them
-                // at the shortest periods drive the node toward the switched-capacitor
-                // equilibrium Rs/(Rs + P/Ch), which measures Rs even behind a large capacitor.
-                runner.bar.inc_length(1);
-                runner.bar.set_message(format!("ch{} droop sweep", pin.channel));
-                let exp = period_sweep(pin.channel, far, longest, longest, &periods[..3.min(periods.len())], 256);
-                runner.run(Some(pin), exp, true)?;
-            }
-        }
-        runner.bar.set_message(format!("ch{} noise record", pin.channel));
-        let exp = Experiment::NoiseRecord {
-            target: pin.channel,
-            sample: longest,
-            period_ns: NOISE_PERIOD_NS,
-            count: NOISE_COUNT,
-            settle_ns: 0,
-        };
-        let rec = runner.run(Some(pin), exp, false)?;
-        pin.noise = analyse(&rec.samples[8.min(rec.samples.len())..], f64::from(NOISE_PERIOD_NS) * 1e-9);
-        if let Some(n) = &pin.noise {
-            // Hum is nearly constant over a cell that spans a fraction of its period: it adds
-            // to each cell mean as an offset. Averaged down for cells spanning many cycles.
-            let hum_var = |span_s: f64| -> f64 {
-                MAINS_HZ
-                    .iter()
-                    .zip(n.hum_lsb)
-                    .map(|(f, a)| a * a / 2.0 / (1.0 + (std::f64::consts::PI * f * span_s).powi(2)))
-                    .sum()
-            };
-            for ev in &mut pin.events {
-                ev.coherent_var_lsb2 = cell_spans_s(&runner.model, &ev.experiment).into_iter().map(hum_var).collect();
             }
         }
     }
@@ -506,29 +584,12 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
     let mut reports = Vec::new();
     for (mut pin, fit) in work.into_iter().zip(fits) {
         let mut r = judge(&model, &pin, fit);
-        if r.verdict != Verdict::AtRail || r.fit.is_some() {
-            let sample = r.min_sample_index.unwrap_or(longest);
-            let level = r.source_volts.map(|v| volts_to_lsb(v, model.vref_volts, model.bits)).unwrap_or(0.0);
-            let far = if level > model.full_scale() / 2.0 { lo } else { hi };
-            runner.bar.inc_length(1);
-            runner.bar.set_message(format!("ch{} order swap", pin.channel));
-            let exp = Experiment::OrderSwap { a: far, b: pin.channel, sample, repeats: 32, rest_ns: 0, settle_ns: 0 };
-            let rec = runner.run(Some(&mut pin), exp, false)?;
-            let cells: Vec<CellObs> = rec.cells.iter().map(CellObs::from_aggregate).collect();
-            if cells.len() == 4 {
-                let shift = cells[1].mean - cells[3].mean;
-                let floor = model.variance_floor_lsb2();
-                let se = (cells[1].variance.max(floor) / f64::from(cells[1].count)
-                    + cells[3].variance.max(floor) / f64::from(cells[3].count))
-                .sqrt();
-                let step = cells[0].mean - cells[3].mean;
-                let coefficient = if step.abs() > 1.0 { shift / step } else { 0.0 };
-                let m = Memory { sample, shift_lsb: shift, shift_se_lsb: se, coefficient };
-                // Worst case: the previous channel a full-scale step away.
-                if (coefficient * model.full_scale()).abs() > 0.5 && shift.abs() > 3.0 * se {
-                    r.flags.push(Flag::Memory);
-                }
-                r.memory = Some(m);
+        if !pin.complete {
+            r.verdict = Verdict::Unknown;
+            r.reason = Some("not surveyed: the link failed before this pin was done".into());
+        } else if fault.is_none() && (r.verdict != Verdict::AtRail || r.fit.is_some()) {
+            if let Err(e) = runner.memory(&plan, &mut pin, &mut r) {
+                fault = Some(e.to_string());
             }
         }
         r.conversions = pin.conversions;
@@ -547,6 +608,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
         link,
         board_seconds,
         wall_seconds: started.elapsed().as_secs_f64(),
+        fault,
     })
 }
 
