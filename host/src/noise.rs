@@ -11,6 +11,9 @@ use rustfft::{num_complex::Complex, FftPlanner};
 /// Mains frequencies looked for, Hz.
 pub const MAINS_HZ: [f64; 2] = [50.0, 60.0];
 const HARMONICS: usize = 3;
+/// Control frequencies, Hz: near the mains lines but on none of their harmonics. A real hum
+/// line stands well above them; broadband drift (a node still recovering) does not.
+pub const CONTROL_HZ: [f64; 4] = [37.0, 43.0, 77.0, 83.0];
 
 /// What a noise record says.
 #[derive(Debug, Clone, PartialEq)]
@@ -25,6 +28,8 @@ pub struct NoiseSummary {
     pub drift_lsb_per_s: f64,
     /// Fundamental amplitude per mains frequency, LSB (harmonics folded in as rms sum).
     pub hum_lsb: [f64; 2],
+    /// Largest amplitude at the control frequencies [`CONTROL_HZ`], LSB.
+    pub control_lsb: f64,
     /// Standard error of a hum amplitude under white noise, LSB.
     pub hum_se_lsb: f64,
     /// Welch power spectral density, (frequency Hz, LSB²/Hz), one-sided.
@@ -45,7 +50,7 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
     let t_mid = t[n - 1] / 2.0;
     // Trend-only fit.
     let trend_cols = 2;
-    let cols = trend_cols + MAINS_HZ.len() * HARMONICS * 2;
+    let cols = trend_cols + MAINS_HZ.len() * HARMONICS * 2 + CONTROL_HZ.len() * 2;
     let mut a = DMatrix::zeros(n, cols);
     for i in 0..n {
         a[(i, 0)] = 1.0;
@@ -58,6 +63,12 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
                 a[(i, c + 1)] = w.cos();
                 c += 2;
             }
+        }
+        for &f in &CONTROL_HZ {
+            let w = 2.0 * std::f64::consts::PI * f * t[i];
+            a[(i, c)] = w.sin();
+            a[(i, c + 1)] = w.cos();
+            c += 2;
         }
     }
     let y = DVector::from_vec(x.clone());
@@ -83,6 +94,14 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
         }
         *h_f = p.sqrt();
     }
+    let control = CONTROL_HZ
+        .iter()
+        .enumerate()
+        .map(|(k, _)| {
+            let j = c + 2 * k;
+            (full[j] * full[j] + full[j + 1] * full[j + 1]).sqrt()
+        })
+        .fold(0.0, f64::max);
     // Noise as a reading sees it: white noise plus the hum lines, without slow drift.
     let rms = (white * white + hum.iter().map(|h| h * h / 2.0).sum::<f64>()).sqrt();
     let psd = welch(detrended.as_slice(), period_s);
@@ -93,6 +112,7 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
         white_rms_lsb: white,
         drift_lsb_per_s: tc[1],
         hum_lsb: hum,
+        control_lsb: control,
         hum_se_lsb: white * (2.0 / n as f64).sqrt(),
         psd,
         peak_hz,
@@ -155,6 +175,7 @@ mod tests {
         let n = analyse(&codes, period).unwrap();
         assert!((n.hum_lsb[0] - 6.0).abs() < 0.2, "{:?}", n.hum_lsb);
         assert!(n.hum_lsb[1] < 0.2, "no leakage into 60 Hz: {:?}", n.hum_lsb);
+        assert!(n.control_lsb < 0.2, "nor into the control frequencies: {}", n.control_lsb);
         assert!((n.peak_hz.unwrap() - 50.0).abs() < 4.0);
         // Uniform ±1 LSB noise, then rounding: variance 1/3 + 1/12.
         assert!((n.white_rms_lsb - (1.0f64 / 3.0 + 1.0 / 12.0).sqrt()).abs() < 0.06, "{}", n.white_rms_lsb);
@@ -169,5 +190,25 @@ mod tests {
         let df = psd[1].0 - psd[0].0;
         let total: f64 = psd.iter().map(|p| p.1 * df).sum();
         assert!((total - 1.0).abs() < 0.08, "{total}");
+    }
+}
+
+#[cfg(test)]
+mod drift_tests {
+    use super::*;
+
+    #[test]
+    fn a_recovering_node_is_not_hum() {
+        // An exponential recovery (τ = 10 ms) over a 256 ms record: broadband, so it shows at
+        // the control frequencies as much as at 50/60 Hz.
+        let codes: Vec<u16> = (0..1024)
+            .map(|i| {
+                let t = i as f64 * 250e-6;
+                (30_000.0 - 400.0 * (-t / 10e-3).exp() + if i % 2 == 0 { 0.4 } else { -0.4 }).round() as u16
+            })
+            .collect();
+        let n = analyse(&codes, 250e-6).unwrap();
+        let strongest = n.hum_lsb[0].max(n.hum_lsb[1]);
+        assert!(n.control_lsb > 0.25 * strongest, "hum {:?} vs control {}", n.hum_lsb, n.control_lsb);
     }
 }

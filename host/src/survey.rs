@@ -39,6 +39,8 @@ pub fn floating_ohms(model: &BoardModel) -> f64 {
 const LONGEST_PERIOD_NS: u32 = 20_000_000;
 /// Noise-record period, ns (4 kHz: 50/60 Hz and harmonics well inside Nyquist).
 const NOISE_PERIOD_NS: u32 = 250_000;
+/// Idle time before a noise record, ns.
+const NOISE_SETTLE_NS: u32 = 100_000_000;
 /// Noise-record length.
 const NOISE_COUNT: u16 = 1024;
 /// Excess noise: white variance above this multiple of the ADC floor.
@@ -393,12 +395,13 @@ impl<L: Link> Runner<'_, L> {
             }
         }
         self.bar.set_message(format!("ch{} noise record", pin.channel));
+        // Let the node recover from the experiments before it before listening to it.
         let exp = Experiment::NoiseRecord {
             target: pin.channel,
             sample: longest,
             period_ns: NOISE_PERIOD_NS,
             count: NOISE_COUNT,
-            settle_ns: 0,
+            settle_ns: NOISE_SETTLE_NS,
         };
         let rec = self.run(Some(pin), exp, false)?;
         pin.noise = analyse(&rec.samples[8.min(rec.samples.len())..], f64::from(NOISE_PERIOD_NS) * 1e-9);
@@ -667,7 +670,8 @@ fn judge(model: &BoardModel, pin: &PinWork, fit: Option<Fit>) -> PinReport {
             // One mains frequency leaks a little into the other on a drifting node; flag the
             // weaker only when it is a real line of its own.
             let a = n.hum_lsb[i];
-            if a > HUM_MIN_LSB && a > 6.0 * n.hum_se_lsb && a >= 0.25 * strongest {
+            // A line stands above the control frequencies; broadband drift does not.
+            if a > HUM_MIN_LSB && a > 6.0 * n.hum_se_lsb && a >= 0.25 * strongest && a > 4.0 * n.control_lsb {
                 r.flags.push(flag);
             }
         }
