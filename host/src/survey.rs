@@ -691,7 +691,10 @@ fn judge(model: &BoardModel, pin: &PinWork, fit: Option<Fit>) -> PinReport {
     if rs.low.is_some_and(|l| l >= floating_ohms(model)) {
         r.verdict = Verdict::Floating;
         r.source_ohms = Interval { estimate: None, low: rs.low, high: None };
-        r.reason = Some("no DC path: the node keeps the charge the converter leaves on it".into());
+        r.reason = Some(format!(
+            "no path below {} (a tenth of the pin's leakage): the node keeps the charge the converter leaves on it",
+            crate::units::ohms(floating_ohms(model))
+        ));
     } else if rs.high.is_none() {
         r.verdict = Verdict::Unknown;
         r.reason = Some(format!(
