@@ -269,8 +269,8 @@ pub enum Experiment {
         /// Idle time before the first conversion, ns.
         settle_ns: u32,
     },
-    /// `repeats` × [A, B] then `repeats` × [B, B], all at `sample`, `rest_ns` after each pair.
-    /// Cells: 0 = A in [A,B], 1 = B after A, 2 = first B of [B,B], 3 = B after B.
+    /// `repeats` × `[A, B]` then `repeats` × `[B, B]`, all at `sample`, `rest_ns` after each pair.
+    /// Cells: 0 = A in `[A, B]`, 1 = B after A, 2 = first B of `[B, B]`, 3 = B after B.
     OrderSwap {
         /// The channel converted before B.
         a: u8,
