@@ -219,6 +219,8 @@ struct PinWork {
     rail: Option<f64>,
     /// Drift between the halves of the screening run of back-to-back pairs, LSB.
     burst_droop: f64,
+    /// The precharge farther from the pin's level (set by the screen).
+    far: u8,
     /// Every planned experiment ran.
     complete: bool,
 }
@@ -234,6 +236,19 @@ struct Plan {
 
 impl Plan {
     /// The precharge farther from a pin that reads `level_lsb`.
+    /// `repeats` × [low, pin; high, pin] at each sample index, precharged at the longest.
+    fn precharge_sweep(&self, target: u8, samples: &[u8], repeats: u16) -> Experiment {
+        Experiment::PrechargeSweep {
+            target,
+            precharges: vec_of(&[self.lo, self.hi]),
+            precharge_sample: self.longest,
+            samples: vec_of(samples),
+            repeats,
+            rest_ns: 0,
+            settle_ns: 0,
+        }
+    }
+
     fn far_from(&self, model: &BoardModel, level_lsb: f64) -> u8 {
         if level_lsb > model.full_scale() / 2.0 {
             self.lo
@@ -290,17 +305,9 @@ impl<L: Link> Runner<'_, L> {
 
     /// The screen: a short precharge sweep, and a run of back-to-back pairs.
     fn screen(&mut self, plan: &Plan, pin: &mut PinWork) -> Result<(), SurveyError> {
-        let (lo, hi, longest) = (plan.lo, plan.hi, plan.longest);
+        let longest = plan.longest;
         self.bar.set_message(format!("ch{} screen", pin.channel));
-        let exp = Experiment::PrechargeSweep {
-            target: pin.channel,
-            precharges: vec_of(&[lo, hi]),
-            precharge_sample: longest,
-            samples: vec_of(&[0, plan.mid, longest]),
-            repeats: 8,
-            rest_ns: 0,
-            settle_ns: 0,
-        };
+        let exp = plan.precharge_sweep(pin.channel, &[0, plan.mid, longest], 8);
         let rec = self.run(Some(pin), exp, true)?;
         pin.screen = rec.cells.iter().map(CellObs::from_aggregate).collect();
         let max = self.model.max_code();
@@ -313,8 +320,8 @@ impl<L: Link> Runner<'_, L> {
             // run of back-to-back [precharge, pin] pairs accumulates the droop where the source
             // cannot keep up (two cells: the first and the second half of the run).
             let s = &pin.screen;
-            let far = plan.far_from(&self.model, (s[4].mean + s[5].mean) / 2.0);
-            let exp = period_sweep(pin.channel, far, longest, 0, &[0, 0], 32);
+            pin.far = plan.far_from(&self.model, (s[4].mean + s[5].mean) / 2.0);
+            let exp = period_sweep(pin.channel, pin.far, longest, 0, &[0, 0], 32);
             let rec = self.run(Some(pin), exp, true)?;
             let burst: Vec<CellObs> = rec.cells.iter().map(CellObs::from_aggregate).collect();
             pin.burst_droop = burst.first().zip(burst.last()).map_or(0.0, |(a, b)| (a.mean - b.mean).abs());
@@ -333,7 +340,7 @@ impl<L: Link> Runner<'_, L> {
         // cells: [s0 lo, s0 hi, mid lo, mid hi, long lo, long hi]
         let settled =
             (s[0].mean - s[4].mean).abs() < 1.0 && (s[1].mean - s[5].mean).abs() < 1.0 && pin.burst_droop < 1.0;
-        let far = plan.far_from(&self.model, (s[4].mean + s[5].mean) / 2.0);
+        let far = pin.far;
         if settled {
             // Stiff on every timescale so far: hundreds of back-to-back pairs push the node
             // toward the switched-capacitor equilibrium Rs/(Rs + P/Ch), which bounds Rs even if
@@ -346,15 +353,7 @@ impl<L: Link> Runner<'_, L> {
             self.bar.inc_length(4);
             self.bar.set_message(format!("ch{} precharge sweep", pin.channel));
             let all: Vec<u8> = (0..plan.n_samples).collect();
-            let exp = Experiment::PrechargeSweep {
-                target: pin.channel,
-                precharges: vec_of(&[lo, hi]),
-                precharge_sample: longest,
-                samples: vec_of(&all),
-                repeats: 24,
-                rest_ns: 0,
-                settle_ns: 0,
-            };
+            let exp = plan.precharge_sweep(pin.channel, &all, 24);
             self.run(Some(pin), exp, true)?;
             self.bar.set_message(format!("ch{} repeat burst", pin.channel));
             let exp = Experiment::RepeatBurst {
@@ -542,6 +541,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             noise: None,
             rail: None,
             burst_droop: 0.0,
+            far: hi,
             complete: false,
         })
         .collect();
@@ -573,7 +573,8 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             .map(|pin| {
                 let model = &model;
                 scope.spawn(move || {
-                    if pin.rail.is_some() {
+                    // Rails have nothing to fit; pins a link fault cut short are reported unsurveyed.
+                    if pin.rail.is_some() || !pin.complete {
                         return None;
                     }
                     fit_pin(&FitInput { board: model, events: &pin.events })
