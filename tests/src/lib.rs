@@ -101,3 +101,5 @@ pub fn informative_samples(board: &BoardProfile, ohms: f64, farads: f64) -> usiz
 pub fn resolvable(board: &BoardProfile, ohms: f64, farads: f64) -> bool {
     informative_samples(board, ohms, farads) >= 2 || farads >= 1e-9
 }
+
+pub mod spice;
