@@ -103,3 +103,38 @@ pub fn resolvable(board: &BoardProfile, ohms: f64, farads: f64) -> bool {
 }
 
 pub mod spice;
+
+/// A seeded source of standard normal numbers (SplitMix64 and Box–Muller: small, well known,
+/// and independent of the simulated board's own generator).
+pub struct Gauss {
+    state: u64,
+    spare: Option<f64>,
+}
+
+impl Gauss {
+    /// A generator for `seed`.
+    pub fn new(seed: u64) -> Self {
+        Self { state: seed, spare: None }
+    }
+
+    fn uniform(&mut self) -> f64 {
+        self.state = self.state.wrapping_add(0x9e37_79b9_7f4a_7c15);
+        let mut z = self.state;
+        z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+        z ^= z >> 31;
+        ((z >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+
+    /// The next standard normal number.
+    pub fn sample(&mut self) -> f64 {
+        if let Some(z) = self.spare.take() {
+            return z;
+        }
+        let (u1, u2) = (self.uniform(), self.uniform());
+        let r = (-2.0 * u1.ln()).sqrt();
+        let a = 2.0 * std::f64::consts::PI * u2;
+        self.spare = Some(r * a.sin());
+        r * a.cos()
+    }
+}

@@ -22,6 +22,8 @@ const EDGE_S: f64 = 1e-11;
 /// Off-resistance of a switch, Ω (its leak over a second moves a 4 pF hold capacitor by less
 /// than 10⁻³ of the voltage across it).
 const OFF_OHMS: f64 = 1e15;
+/// Largest print step of a run, s (see `netlist`).
+const MAX_STEP_S: f64 = 1e-4;
 
 /// One channel of the simulated board.
 #[derive(Debug, Clone, PartialEq)]
@@ -43,6 +45,25 @@ pub struct SpiceCircuit {
     pub switch_ohms: f64,
     /// Hold capacitance, F.
     pub hold_farads: f64,
+}
+
+impl SpiceCircuit {
+    /// One pin (`volts` behind `ohms`, node `farads`) and the simulated board's two internal
+    /// precharge references (3% and 97% of full scale, stiff sources behind 50 Ω on 5 pF), with
+    /// the board profile's nominal hold capacitor and switch.
+    pub fn one_pin(board: &ohmsight_virtual::BoardProfile, pin: u8, volts: f64, ohms: f64, farads: f64) -> Self {
+        use ohmsight_virtual::{PRECHARGE_HIGH, PRECHARGE_LOW};
+        let v = board.vref_volts;
+        SpiceCircuit {
+            channels: vec![
+                SpiceChannel { channel: pin, source: Some((volts, ohms)), node_farads: farads },
+                SpiceChannel { channel: PRECHARGE_LOW, source: Some((0.03 * v, 50.0)), node_farads: 5e-12 },
+                SpiceChannel { channel: PRECHARGE_HIGH, source: Some((0.97 * v, 50.0)), node_farads: 5e-12 },
+            ],
+            switch_ohms: board.switch_ohms,
+            hold_farads: board.hold_farads,
+        }
+    }
 }
 
 /// One sampling phase: the switch of `channel` is closed from `start_s` for `sample_s`.
@@ -156,7 +177,9 @@ pub fn netlist(circuit: &SpiceCircuit, node0: &[f64], hold0: f64, phases: &[Samp
         let _ = write!(n, " v(node{})", ch.channel);
     }
     let _ = writeln!(n);
-    let _ = writeln!(n, ".tran {:e} {:e} uic", (end_s / 1000.0).max(1e-12), end_s);
+    // The step also bounds ngspice's smallest step (a fixed fraction of it): keep it small
+    // enough that the switch edges can be resolved on long runs.
+    let _ = writeln!(n, ".tran {:e} {:e} uic", (end_s / 1000.0).clamp(1e-12, MAX_STEP_S), end_s);
     let _ = writeln!(n, ".end");
     n
 }
@@ -212,6 +235,55 @@ pub fn transient(
     }
     let hold_volts_end = *hold.last().ok_or_else(|| SpiceError::BadOutput("no points".into()))?;
     Ok(Transient { hold_volts, node_volts_end, hold_volts_end, points: time.len() })
+}
+
+/// Runs a long history as a chain of transients of at most `chunk` sampling phases each, every
+/// run starting from the capacitor voltages the previous one ended with.
+///
+/// ngspice looks its piecewise-linear sources up from their first point on every time step, so
+/// one run over thousands of phases costs time quadratic in their number; the chain is linear.
+/// The runs are cut halfway through the gap after a phase, where every switch is open.
+pub fn transient_chained(
+    circuit: &SpiceCircuit,
+    node0: &[f64],
+    hold0: f64,
+    phases: &[Sampling],
+    end_s: f64,
+    dir: &Path,
+    chunk: usize,
+) -> Result<Transient, SpiceError> {
+    let mut node = node0.to_vec();
+    let mut hold = hold0;
+    let mut out = Transient {
+        hold_volts: Vec::with_capacity(phases.len()),
+        node_volts_end: Vec::new(),
+        hold_volts_end: hold0,
+        points: 0,
+    };
+    let mut t0 = 0.0;
+    let mut rest = phases;
+    while !rest.is_empty() {
+        let (now, later) = rest.split_at(chunk.max(1).min(rest.len()));
+        let last = now[now.len() - 1];
+        let t1 = match later.first() {
+            Some(next) => {
+                let end = last.start_s + last.sample_s;
+                end + (next.start_s - end) / 2.0
+            }
+            None => end_s,
+        };
+        let shifted: Vec<Sampling> = now.iter().map(|p| Sampling { start_s: p.start_s - t0, ..*p }).collect();
+        let part = transient(circuit, &node, hold, &shifted, t1 - t0, dir)?;
+        out.hold_volts.extend(&part.hold_volts);
+        out.points += part.points;
+        node = part.node_volts_end;
+        hold = part.hold_volts_end;
+        t0 = t1;
+        rest = later;
+    }
+    out.node_volts_end = node;
+    out.hold_volts_end = hold;
+    Ok(out)
 }
 
 /// Linear interpolation of `y(x)` at `at`, `x` increasing.
@@ -291,4 +363,42 @@ impl Raw {
             .map(|i| self.columns[i].as_slice())
             .ok_or_else(|| SpiceError::BadOutput(format!("no column {name}")))
     }
+}
+
+/// Where a sampling phase's reading goes: `(event index, cell)` for a recorded conversion of the
+/// pin under test, `None` otherwise.
+pub type Recorded = Option<(usize, u16)>;
+
+/// The sampling phases of a pin's history, as the firmware runs it: each event starts after its
+/// gap and its own settle time; every conversion is preceded by `overhead_ps` of firmware time,
+/// then samples, converts and waits. Returns the phases, where each phase's reading goes, and
+/// the end time, s.
+pub fn history_timeline(
+    model: &ohmsight::model::BoardModel,
+    events: &[ohmsight::model::Event],
+    overhead_ps: u64,
+) -> (Vec<Sampling>, Vec<Recorded>, f64) {
+    use ohmsight_protocol::{StepRecord, Steps};
+    let mut t_ps: u64 = 0;
+    let mut phases = Vec::new();
+    let mut recorded = Vec::new();
+    for (k, e) in events.iter().enumerate() {
+        let steps = Steps::new(&e.experiment, model.timing()).expect("a valid experiment");
+        t_ps += e.gap_before_ps + u64::from(steps.settle_ns()) * 1000;
+        for s in steps.iter() {
+            t_ps += overhead_ps;
+            let sample_ps = u64::from(model.sample_ps[usize::from(s.sample)]);
+            phases.push(Sampling {
+                channel: s.channel,
+                start_s: t_ps as f64 * 1e-12,
+                sample_s: sample_ps as f64 * 1e-12,
+            });
+            recorded.push(match s.record {
+                StepRecord::Cell(c) if s.channel == e.target => Some((k, c)),
+                _ => None,
+            });
+            t_ps += sample_ps + u64::from(model.conversion_ps) + u64::from(s.wait_after_ns) * 1000;
+        }
+    }
+    (phases, recorded, t_ps as f64 * 1e-12)
 }

@@ -1,5 +1,7 @@
 //! Build automation and benchmarks: `cargo xtask <command>`.
 //!
+//! - `test`: installs the Debian packages the tests need (`.ci/debian-packages`), then runs
+//!   `cargo test --workspace` (extra arguments are passed on).
 //! - `bench`: a 16-pin survey on the simulated board; prints wall time, conversions and link bytes.
 //! - `study`: one pin surveyed over several seeds, optionally with some of the simulated board's
 //!   non-idealities switched off; prints the estimates against the truth.
@@ -12,13 +14,16 @@ use ohmsight::units;
 use ohmsight_virtual::{BoardProfile, PinSetup, Realism, Scenario, Source};
 use std::time::Instant;
 
+mod setup;
+
 fn main() -> Result<()> {
     let args: Vec<String> = std::env::args().skip(1).collect();
     match args.first().map(String::as_str) {
+        Some("test") => setup::test(&args[1..]),
         Some("bench") => bench(),
         Some("study") => study(&args[1..]),
         _ => {
-            eprintln!("usage: cargo xtask bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
+            eprintln!("usage: cargo xtask test [ARGS] | bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
             bail!("unknown or missing command")
         }
     }

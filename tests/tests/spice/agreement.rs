@@ -1,10 +1,10 @@
 //! Hold-capacitor voltages at the end of every sampling phase: `protocol::analog` against an
 //! ngspice transient of the same network and the same timeline.
 
-use ohmsight::model::BoardModel;
+use ohmsight::model::{BoardModel, Event};
 use ohmsight_protocol::analog::{volts_to_lsb, Network, State};
-use ohmsight_protocol::{Experiment, Steps};
-use ohmsight_tests::spice::{scratch_dir, transient, Sampling, SpiceChannel, SpiceCircuit};
+use ohmsight_protocol::Experiment;
+use ohmsight_tests::spice::{history_timeline, scratch_dir, transient, Sampling, SpiceCircuit};
 use ohmsight_tests::{default_board, fast_board, scenario};
 use ohmsight_virtual::{BoardProfile, VirtualBoard, VirtualClock, PRECHARGE_HIGH, PRECHARGE_LOW};
 
@@ -59,26 +59,6 @@ fn experiments(model: &BoardModel) -> Vec<Experiment> {
     ]
 }
 
-/// The sampling phases of `experiments` run one after another, and the end time, s.
-fn timeline(model: &BoardModel, experiments: &[Experiment]) -> (Vec<Sampling>, f64) {
-    let mut t_ps: u64 = 0;
-    let mut phases = Vec::new();
-    for e in experiments {
-        let steps = Steps::new(e, model.timing()).expect("a valid experiment");
-        t_ps += u64::from(steps.settle_ns()) * 1000;
-        for s in steps.iter() {
-            let sample_ps = u64::from(model.sample_ps[usize::from(s.sample)]);
-            phases.push(Sampling {
-                channel: s.channel,
-                start_s: t_ps as f64 * 1e-12,
-                sample_s: sample_ps as f64 * 1e-12,
-            });
-            t_ps += sample_ps + u64::from(model.conversion_ps) + u64::from(s.wait_after_ns) * 1000;
-        }
-    }
-    (phases, t_ps as f64 * 1e-12)
-}
-
 /// The same timeline in closed form: each channel's node moves on its own while its switch is
 /// open; a sampling phase is the exact two-state map.
 fn closed_form(circuit: &SpiceCircuit, node0: &[f64], hold0: f64, phases: &[Sampling]) -> Vec<f64> {
@@ -109,32 +89,27 @@ fn closed_form(circuit: &SpiceCircuit, node0: &[f64], hold0: f64, phases: &[Samp
     out
 }
 
-/// The board's circuit with the pin under test and the two internal precharge references (as
-/// the simulated board wires them: stiff sources behind 50 Ω, 5 pF).
-fn circuit(board: &BoardProfile, volts: f64, ohms: f64, farads: f64) -> SpiceCircuit {
-    let v = board.vref_volts;
-    SpiceCircuit {
-        channels: vec![
-            SpiceChannel { channel: PIN, source: Some((volts, ohms)), node_farads: farads },
-            SpiceChannel { channel: PRECHARGE_LOW, source: Some((0.03 * v, 50.0)), node_farads: 5e-12 },
-            SpiceChannel { channel: PRECHARGE_HIGH, source: Some((0.97 * v, 50.0)), node_farads: 5e-12 },
-        ],
-        switch_ohms: board.switch_ohms,
-        hold_farads: board.hold_farads,
-    }
-}
-
 /// Largest |ngspice − closed form| over the grid, LSB, with the worst case named.
 fn worst_over_grid(board: &BoardProfile) -> (f64, String, usize) {
     let model = model_of(board);
-    let (phases, end_s) = timeline(&model, &experiments(&model));
+    let events: Vec<Event> = experiments(&model)
+        .into_iter()
+        .map(|experiment| Event {
+            experiment,
+            target: PIN,
+            gap_before_ps: 0,
+            cells: None,
+            coherent_var_lsb2: Vec::new(),
+        })
+        .collect();
+    let (phases, _, end_s) = history_timeline(&model, &events, 0);
     let dir = scratch_dir("agreement");
     let volts = 0.37 * board.vref_volts;
     let mut worst = (0.0, String::new(), 0);
     let mut span = (f64::INFINITY, f64::NEG_INFINITY);
     for ohms in [100.0, 1e3, 10e3, 100e3, 1e6, 10e6] {
         for farads in [2e-12, 20e-12, 1e-9, 100e-9] {
-            let c = circuit(board, volts, ohms, farads);
+            let c = SpiceCircuit::one_pin(board, PIN, volts, ohms, farads);
             let node0 = [volts, 0.03 * board.vref_volts, 0.97 * board.vref_volts];
             let hold0 = board.vref_volts / 2.0;
             let spice = transient(&c, &node0, hold0, &phases, end_s, &dir).unwrap_or_else(|e| panic!("{e}"));

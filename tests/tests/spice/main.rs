@@ -6,3 +6,4 @@
 //! install (CI installs the Debian package `ngspice`).
 
 mod agreement;
+mod recovery;
