@@ -276,7 +276,8 @@ fn pin_advice(model: &BoardModel, p: &PinReport, opts: &AdviceOptions) -> PinAdv
             similar_within_volts: model.lsb_volts() / 2.0 / m.coefficient.abs().max(1e-12),
         });
     }
-    if let (Some(resolve), Some(noise)) = (opts.resolve_volts, p.noise_lsb_rms) {
+    // A pin at a rail reads the rail: there is no small signal on it to average out.
+    if let (Some(resolve), Some(noise), false) = (opts.resolve_volts, p.noise_lsb_rms, p.verdict == Verdict::AtRail) {
         if resolve < model.lsb_volts() && resolve > 0.0 {
             a.averaging = Some(averaging(model, resolve, noise, plan_sample(model, p)));
         }

@@ -313,7 +313,8 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
             out +=
                 &format!("    memory: the previous channel moves this reading by up to {:.2} LSB; ", m.worst_shift_lsb);
             if let Some(d) = m.after_dummy_lsb {
-                out += &format!("a dummy conversion of this pin first leaves {d:.2} LSB, ");
+                out += &format!("a dummy conversion of this pin first leaves {d:.2} LSB");
+                out += if d > 0.5 { " (not enough: fix the settling first), " } else { ", " };
             }
             out += &format!("or convert it after a channel within {} of its level\n", volts(m.similar_within_volts));
         }
@@ -331,7 +332,9 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
                     volts(v.staircase_volts)
                 );
             } else {
-                out += &format!("the noise dithers the converter (staircase left {})\n", volts(v.staircase_volts));
+                // Below a picovolt the staircase is nothing worth a number.
+                let left = if v.staircase_volts < 1e-12 { "none".into() } else { volts(v.staircase_volts) };
+                out += &format!("the noise dithers the converter (staircase left: {left})\n");
             }
         }
         if let Some(t) = a.hum_period_s {
@@ -339,7 +342,9 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
         }
     }
     let plan = &advice.plan;
-    out += "\nscan plan (worst error with the other pins at any level; limit ½ LSB):\n";
+    // Stricter than a pin's own advice, which takes its level as measured: here every level,
+    // this pin's too, may be anywhere in the range, so a sample time can come out longer.
+    out += "\nscan plan (worst error with every pin, this one too, at any level; limit ½ LSB):\n";
     if plan.entries.is_empty() {
         out += "  no pin to scan\n";
     } else {
