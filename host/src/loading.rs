@@ -267,6 +267,8 @@ pub struct Loading {
     pub floating_tau_s: Option<f64>,
     /// What to keep in mind, in words.
     pub note: String,
+    /// Where the pin's facts come from (a stored survey's file, or a live survey); set by the caller.
+    pub from: String,
 }
 
 fn bandwidth(tau: f64) -> f64 {
@@ -288,6 +290,7 @@ pub fn loading(pin: &PinFacts, inst: &Instrument) -> Loading {
         cases: Vec::new(),
         floating_tau_s: None,
         note: String::new(),
+        from: String::new(),
     };
     if pin.verdict == "floating" {
         let cn = cn_est.unwrap_or(0.0);
@@ -383,6 +386,7 @@ pub fn loading_json(l: &Loading) -> Value {
     let iv = |i: &Interval| json!({"estimate": i.estimate, "low": i.low, "high": i.high});
     json!({
         "schema": LOADING_SCHEMA,
+        "from": l.from,
         "board": {"name": l.pin.board, "bits": l.pin.bits, "vref_volts": l.pin.vref_volts},
         "pin": {
             "channel": l.pin.channel,
@@ -426,6 +430,9 @@ pub fn loading_text(l: &Loading) -> String {
     use crate::units::{farads, ohms, si, volts};
     let p = &l.pin;
     let mut out = format!("ohmsight loading — ch{} \"{}\" on \"{}\"\n", p.channel, p.label, p.board);
+    if !l.from.is_empty() {
+        out += &format!("from: {}\n", l.from);
+    }
     out += &format!(
         "pin: {}, source {} behind {}, node {}\n",
         p.verdict,

@@ -259,9 +259,11 @@ fn run_loading(args: LoadingArgs) -> anyhow::Result<ExitCode> {
     let instrument = match (&args.input, &args.preset) {
         (Some(i), _) => i.clone(),
         (None, Some(name)) => loading::preset(name).ok_or_else(|| anyhow::anyhow!("no preset {name}"))?,
-        (None, None) => unreachable!("clap requires --input or --preset"),
+        (None, None) => anyhow::bail!("give the instrument with --input R,C or --preset NAME"),
     };
+    let from;
     let doc = if let Some(path) = &args.from {
+        from = format!("the stored survey {}", path.display());
         let text = match std::fs::read_to_string(path) {
             Ok(t) => t,
             Err(e) => {
@@ -305,6 +307,7 @@ fn run_loading(args: LoadingArgs) -> anyhow::Result<ExitCode> {
             eprintln!("ohmsight: the survey of pin {} failed: {f}", args.pin);
             return Ok(ExitCode::from(EXIT_FAILED));
         }
+        from = format!("a survey of pin {} alone, now, over the {name}", args.pin);
         report::survey_json(&r, &name)
     };
     let facts = match loading::facts_from_survey(&doc, args.pin) {
@@ -315,7 +318,7 @@ fn run_loading(args: LoadingArgs) -> anyhow::Result<ExitCode> {
             return Ok(ExitCode::from(EXIT_INPUT));
         }
     };
-    let answer = loading::loading(&facts, &instrument);
+    let answer = loading::Loading { from, ..loading::loading(&facts, &instrument) };
     let out = if args.json {
         serde_json::to_string_pretty(&loading::loading_json(&answer))? + "\n"
     } else {
