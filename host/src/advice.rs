@@ -86,6 +86,9 @@ pub struct Averaging {
     pub noise_lsb_rms: f64,
     /// Readings to average so the standard error is half the signal.
     pub readings: u64,
+    /// Resolution those readings add, bits: `½·log2(n)` (oversampling by 4^k gives k bits,
+    /// common practice, no source).
+    pub extra_bits: f64,
     /// Time those readings take at the recommended sample time, s.
     pub seconds: f64,
     /// Bias the quantizer's staircase leaves in an average at this noise level, V.
@@ -360,6 +363,7 @@ fn averaging(model: &BoardModel, resolve_volts: f64, noise_lsb: f64, sample: u8)
         resolve_volts,
         noise_lsb_rms: noise_lsb,
         readings,
+        extra_bits: 0.5 * (readings as f64).log2(),
         seconds: readings as f64 * per_reading_s,
         staircase_volts,
         needs_dither: staircase_volts > resolve_volts / 2.0,
@@ -792,6 +796,8 @@ mod tests {
         let b = board(&[1000.0]);
         let a = averaging(&b, 100e-6, 0.6, 0);
         assert_eq!(a.readings, 94);
+        // ½·log2(94) = ½·6.5546 = 3.2773 extra bits.
+        assert!((a.extra_bits - 3.2773).abs() < 1e-4, "{}", a.extra_bits);
         // 94 × (1 µs + 0.571429 µs) = 147.71 µs.
         assert!((a.seconds - 147.714e-6).abs() < 1e-9, "{}", a.seconds);
         // Staircase: e^(−2π²·0.36)/π = e^(−7.106)/π = 2.62e-4 LSB = 0.21 µV: no dither needed.

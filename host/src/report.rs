@@ -245,6 +245,7 @@ fn advice_json(a: &PinAdvice) -> Value {
             "resolve_volts": v.resolve_volts,
             "noise_lsb_rms": v.noise_lsb_rms,
             "readings": v.readings,
+            "extra_bits": v.extra_bits,
             "seconds": v.seconds,
             "staircase_volts": v.staircase_volts,
             "needs_dither": v.needs_dither,
@@ -320,9 +321,10 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
         }
         if let Some(v) = a.averaging {
             out += &format!(
-                "    averaging: to see {} average {} readings ({}; noise {:.2} LSB rms); ",
+                "    averaging: to see {} average {} readings ({:.1} extra bits, {}; noise {:.2} LSB rms); ",
                 volts(v.resolve_volts),
                 v.readings,
+                v.extra_bits,
                 si(v.seconds, "s"),
                 v.noise_lsb_rms
             );

@@ -195,6 +195,14 @@ fn survey_text_and_json_carry_the_same_numbers() {
         assert!((lsb(row[6]) - e["error_now_lsb"].as_f64().unwrap()).abs() <= 0.005 + 1e-12, "{row:?} vs {e}");
     }
     assert!(plan["worst_error_lsb"].as_f64().unwrap() <= 0.5);
+    // Every pin carries its advice under the same names.
+    for p in doc["pins"].as_array().unwrap() {
+        for key in ["sample", "settle", "memory", "averaging", "hum_period_s", "note"] {
+            assert!(p["advice"].get(key).is_some(), "advice lacks {key}: {p}");
+        }
+    }
+    assert_eq!(doc["advice_options"]["resolve_volts"], 100e-6);
+    assert!((doc["board"]["lsb_volts"].as_f64().unwrap() - 3.3 / 4096.0).abs() < 1e-12);
     assert!(text.contains("one scan takes"), "{text}");
     // The advice block names what it recommends.
     assert!(text.contains("buffer it") && text.contains("8192 × the hold capacitance"), "{text}");
