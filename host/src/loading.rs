@@ -354,7 +354,12 @@ pub fn loading(pin: &PinFacts, inst: &Instrument) -> Loading {
     } else {
         Outcome::Depends
     };
+    let bound = out.cases.iter().any(|c| c.which == "bound");
     out.note = match out.outcome {
+        Outcome::Trustworthy if bound => "the instrument moves the node by less than ½ LSB for any source \
+                                          resistance under the survey's bound: what it shows is what the converter \
+                                          reads"
+            .into(),
         Outcome::Trustworthy => "the instrument moves the node by less than ½ LSB over the whole 95% interval of \
                                  the source resistance: what it shows is what the converter reads"
             .into(),
@@ -448,13 +453,16 @@ pub fn loading_text(l: &Loading) -> String {
         farads(i.input_farads),
         if i.typical { " — typical values: check your own instrument's data sheet" } else { "" }
     );
-    out += &format!("criterion: trustworthy when the DC shift is below ½ LSB ({})\n\n", volts(l.half_lsb_volts));
+    out += &format!("criterion: trustworthy when the DC shift is below ½ LSB ({})\n", volts(l.half_lsb_volts));
     if let Some(tau) = l.floating_tau_s {
         out += &format!(
-            "floating pin: the node settles to the instrument's ground with τ = {} (bandwidth {})\n",
+            "\nfloating pin: the node settles to the instrument's ground with τ = {} (bandwidth {})\n",
             si(tau, "s"),
             si(bandwidth(tau), "Hz")
         );
+    }
+    if !l.cases.is_empty() {
+        out += "\n";
     }
     if !l.cases.is_empty() {
         let header =
@@ -569,6 +577,28 @@ mod tests {
         assert!((l.trust_below_ohms.unwrap() - 2014.57).abs() < 0.01);
         assert_eq!(l.outcome, Outcome::Depends);
         assert!(l.cases[1].trustworthy && !l.cases[2].trustworthy);
+    }
+
+    #[test]
+    fn a_bound_gives_the_worst_case_and_a_rail_without_resistance_no_answer() {
+        // "Rs < 1.15 kΩ" at 0.8 V under a 10 MΩ probe: shift at the bound −0.8·1150/10001150
+        // = −91.99 µV = −0.1142 LSB < ½ LSB, so trustworthy for any Rs under the bound.
+        let none = Interval { estimate: None, low: None, high: None };
+        let l = loading(
+            &pin(0.8, Interval { estimate: None, low: None, high: Some(1150.0) }, none),
+            &preset("probe-10x").unwrap(),
+        );
+        assert_eq!(l.cases.len(), 1);
+        assert_eq!(l.cases[0].which, "bound");
+        assert!((l.cases[0].shift_volts + 91.99e-6).abs() < 0.01e-6, "{}", l.cases[0].shift_volts);
+        assert_eq!(l.outcome, Outcome::Trustworthy);
+        assert!(l.note.contains("not measured"));
+        let mut rail = pin(3.3, none, none);
+        rail.verdict = "at-rail".into();
+        rail.reason = Some("every reading at the rail".into());
+        let l = loading(&rail, &preset("meter").unwrap());
+        assert_eq!(l.outcome, Outcome::Unknown);
+        assert!(l.cases.is_empty() && l.note.contains("every reading at the rail"));
     }
 
     #[test]
