@@ -1,6 +1,8 @@
 //! The host side of ohmsight (always runs on the host, never on the target).
+pub mod advice;
 pub mod fit;
 pub mod link;
+pub mod loading;
 pub mod model;
 pub mod noise;
 pub mod report;

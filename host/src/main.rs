@@ -5,10 +5,12 @@
 //! arguments).
 
 use clap::{Parser, Subcommand};
+use ohmsight::advice::{advise, AdviceOptions};
 use ohmsight::link::{InProcessLink, Link, SerialLink};
 use ohmsight::session::Session;
 use ohmsight::survey::{survey, SurveyOptions};
-use ohmsight::{report, scenario};
+use ohmsight::{loading, report, scenario};
+use ohmsight_protocol::ChannelRole;
 use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -35,10 +37,19 @@ enum Command {
     /// With no link option the built-in demo scenario runs on the simulated board.
     #[command(after_long_help = SURVEY_EXAMPLES)]
     Survey(SurveyArgs),
+    /// What attaching an instrument (scope, probe, meter) to a pin would do to its node.
+    ///
+    /// From a stored survey (--from run.json) or a live one of that pin alone (the same link
+    /// options as survey): the DC shift in volts and LSB, the node's time constant and bandwidth
+    /// before and with the instrument, and whether the reading stays trustworthy (shift below
+    /// ½ LSB), over the 95% interval of the source resistance.
+    #[command(after_long_help = LOADING_EXAMPLES)]
+    Loading(LoadingArgs),
 }
 
+/// How the board is reached: the same options for every command that surveys.
 #[derive(clap::Args)]
-struct SurveyArgs {
+struct LinkArgs {
     /// Simulated board wired as described in this scenario file (TOML).
     #[arg(long, value_name = "FILE.toml", conflicts_with = "port")]
     scenario: Option<PathBuf>,
@@ -51,6 +62,43 @@ struct SurveyArgs {
     /// Seed of the simulated board's noise (overrides the scenario's).
     #[arg(long, value_name = "N", conflicts_with = "port")]
     seed: Option<u64>,
+    /// Talk to a board of another protocol version anyway.
+    #[arg(long)]
+    any_version: bool,
+}
+
+#[derive(clap::Args)]
+#[command(group(clap::ArgGroup::new("instrument").required(true).args(["input", "preset"])))]
+struct LoadingArgs {
+    /// The pin (channel number) the instrument would touch.
+    #[arg(long, value_name = "N")]
+    pin: u8,
+    /// The instrument's input as RESISTANCE,CAPACITANCE in parallel, SI prefixes allowed
+    /// (e.g. 1M,25p or 10MΩ,12pF).
+    #[arg(long, value_name = "R,C", value_parser = ohmsight::loading::parse_input)]
+    input: Option<ohmsight::loading::Instrument>,
+    /// A typical instrument: scope-1x (1 MΩ ∥ 25 pF), probe-10x (10 MΩ ∥ 12 pF) or meter
+    /// (handheld multimeter, 10 MΩ ∥ 100 pF). Typical values, not your instrument's: use
+    /// --input with its data sheet's values where you have them.
+    #[arg(long, value_name = "NAME", value_parser = ["scope-1x", "probe-10x", "meter"])]
+    preset: Option<String>,
+    /// A stored survey (the JSON of `ohmsight survey --json`) instead of surveying the pin now.
+    #[arg(long, value_name = "RUN.json", conflicts_with_all = ["scenario", "port", "seed"])]
+    from: Option<PathBuf>,
+    #[command(flatten)]
+    link: LinkArgs,
+    /// Print one JSON document on stdout instead of the text.
+    #[arg(long)]
+    json: bool,
+    /// No progress bar.
+    #[arg(long, short)]
+    quiet: bool,
+}
+
+#[derive(clap::Args)]
+struct SurveyArgs {
+    #[command(flatten)]
+    link: LinkArgs,
     /// Survey only this channel (repeat for several).
     #[arg(long = "channel", value_name = "N")]
     channels: Vec<u8>,
@@ -60,9 +108,17 @@ struct SurveyArgs {
     /// No progress bar.
     #[arg(long, short)]
     quiet: bool,
-    /// Talk to a board of another protocol version anyway.
-    #[arg(long)]
-    any_version: bool,
+    /// The smallest change you need to see on a pin, volts (e.g. 100e-6): where it is below one
+    /// LSB the advice says how many readings to average and whether dither is needed.
+    #[arg(long, value_name = "VOLTS", value_parser = positive_volts)]
+    resolve: Option<f64>,
+}
+
+fn positive_volts(text: &str) -> Result<f64, String> {
+    match text.trim().parse::<f64>() {
+        Ok(v) if v.is_finite() && v > 0.0 => Ok(v),
+        _ => Err(format!("'{text}' is not a positive voltage in volts (e.g. 100e-6 for 100 µV)")),
+    }
 }
 
 const SURVEY_EXAMPLES: &str = "Examples:
@@ -70,11 +126,30 @@ const SURVEY_EXAMPLES: &str = "Examples:
   ohmsight survey --scenario boards/virtual/scenarios/demo.toml --seed 7
   ohmsight survey --port /dev/ttyACM0 --json > unit-0042.json
 
+The text and the JSON end with advice per pin (sample time to use, a buffer or filter
+capacitor where none settles, dummy conversions against memory, averaging) and a scan plan
+whose worst error stays under ½ LSB with the other pins at any level.
+
 Exit status: 0 surveyed; 1 the survey failed (link or board, said on stderr); 2 bad input
 (scenario file, arguments, a serial port that cannot be opened).
 
 A board tied to mains or high voltage must be surveyed through an isolated link and supply;
 follow local codes and licensed practice.";
+
+const LOADING_EXAMPLES: &str = "Examples:
+  ohmsight survey --json > run.json
+  ohmsight loading --pin 3 --from run.json --preset scope-1x
+  ohmsight loading --pin 6 --input 10M,12p --json          surveys pin 6 of the demo board now
+  ohmsight loading --pin 0 --port /dev/ttyACM0 --preset meter
+
+Presets are typical values (common practice, no source): scope-1x 1 MΩ ∥ 25 pF, probe-10x
+10 MΩ ∥ 12 pF, meter 10 MΩ ∥ 100 pF. The instrument is taken as referenced to ground.
+
+Exit status: 0 answered; 1 the survey failed (link or board); 2 bad input (a pin that is not
+there, --input syntax, an unreadable or foreign --from file).
+
+Touching a board tied to mains or high voltage with an instrument needs isolation and the
+usual precautions; follow local codes and licensed practice.";
 
 /// Exit status for bad input.
 const EXIT_INPUT: u8 = 2;
@@ -95,50 +170,84 @@ fn main() -> ExitCode {
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Survey(args) => run_survey(args),
+        Command::Loading(args) => run_loading(args),
     }
+}
+
+/// Writes `text` to stdout; a closed pipe is not an error.
+fn print(text: &str) -> anyhow::Result<()> {
+    let mut stdout = std::io::stdout().lock();
+    match stdout.write_all(text.as_bytes()).and_then(|_| stdout.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
+        _ => Ok(()),
+    }
+}
+
+/// Any link, boxed, so one code path serves the serial port and the simulated board.
+struct AnyLink(Box<dyn Link>);
+
+impl Link for AnyLink {
+    fn send(&mut self, bytes: &[u8]) -> std::io::Result<()> {
+        self.0.send(bytes)
+    }
+    fn recv(&mut self, buf: &mut [u8], timeout: std::time::Duration) -> std::io::Result<usize> {
+        self.0.recv(buf, timeout)
+    }
+    fn name(&self) -> String {
+        self.0.name()
+    }
+}
+
+/// A session on the board the link options name: its serial port, or the simulated board
+/// (the scenario file's, or the demo). `Err` carries the exit code once the problem is said.
+fn open_session(link: &LinkArgs) -> Result<Session<AnyLink>, ExitCode> {
+    if let Some(port) = &link.port {
+        let serial = SerialLink::open(port, link.baud).map_err(|e| {
+            eprintln!("ohmsight: {e}");
+            ExitCode::from(EXIT_INPUT)
+        })?;
+        let mut session = Session::new(AnyLink(Box::new(serial)));
+        session.link_bytes_per_s = u64::from(link.baud / 10);
+        return Ok(session);
+    }
+    let mut sc = match &link.scenario {
+        Some(path) => scenario::load(path).map_err(|e| {
+            eprintln!("ohmsight: {e}");
+            ExitCode::from(EXIT_INPUT)
+        })?,
+        None => scenario::demo(),
+    };
+    if let Some(seed) = link.seed {
+        sc.seed = seed;
+    }
+    Ok(Session::new(AnyLink(Box::new(InProcessLink::new(&sc)))))
+}
+
+fn progress(quiet: bool) -> bool {
+    !quiet && std::io::IsTerminal::is_terminal(&std::io::stderr())
 }
 
 fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
     let opts = SurveyOptions {
-        any_version: args.any_version,
-        progress: !args.quiet && std::io::IsTerminal::is_terminal(&std::io::stderr()),
+        any_version: args.link.any_version,
+        progress: progress(args.quiet),
         channels: args.channels.clone(),
     };
-    let (text, json, fault) = if let Some(port) = &args.port {
-        let link = match SerialLink::open(port, args.baud) {
-            Ok(l) => l,
-            Err(e) => {
-                eprintln!("ohmsight: {e}");
-                return Ok(ExitCode::from(EXIT_INPUT));
-            }
-        };
-        let mut session = Session::new(link);
-        session.link_bytes_per_s = u64::from(args.baud / 10);
-        render(&mut session, &opts)?
-    } else {
-        let mut sc = match &args.scenario {
-            Some(path) => match scenario::load(path) {
-                Ok(s) => s,
-                Err(e) => {
-                    eprintln!("ohmsight: {e}");
-                    return Ok(ExitCode::from(EXIT_INPUT));
-                }
-            },
-            None => scenario::demo(),
-        };
-        if let Some(seed) = args.seed {
-            sc.seed = seed;
-        }
-        let mut session = Session::new(InProcessLink::new(&sc));
-        render(&mut session, &opts)?
+    let mut session = match open_session(&args.link) {
+        Ok(s) => s,
+        Err(code) => return Ok(code),
     };
-    let mut stdout = std::io::stdout().lock();
-    let out = if args.json { json + "\n" } else { text };
-    match stdout.write_all(out.as_bytes()).and_then(|_| stdout.flush()) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => return Err(e.into()),
-        _ => {}
-    }
-    if let Some(f) = fault {
+    let name = session.link().name();
+    let r = survey(&mut session, &opts)?;
+    let advice_opts = AdviceOptions { resolve_volts: args.resolve };
+    let advice = advise(&r, &advice_opts);
+    let out = if args.json {
+        serde_json::to_string_pretty(&report::survey_json_with(&r, &name, &advice, &advice_opts))? + "\n"
+    } else {
+        report::survey_text_with(&r, &name, &advice)
+    };
+    print(&out)?;
+    if let Some(f) = &r.fault {
         // What was measured is printed above; the exit status still says the survey is partial.
         eprintln!("ohmsight: the survey was cut short: {f}");
         return Ok(ExitCode::from(EXIT_FAILED));
@@ -146,10 +255,75 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// The survey as text and as JSON, and the link fault that cut it short, if any.
-fn render<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> anyhow::Result<(String, String, Option<String>)> {
-    let name = session.link().name();
-    let r = survey(session, opts)?;
-    let json = serde_json::to_string_pretty(&report::survey_json(&r, &name))?;
-    Ok((report::survey_text(&r, &name), json, r.fault.clone()))
+fn run_loading(args: LoadingArgs) -> anyhow::Result<ExitCode> {
+    let instrument = match (&args.input, &args.preset) {
+        (Some(i), _) => i.clone(),
+        (None, Some(name)) => loading::preset(name).ok_or_else(|| anyhow::anyhow!("no preset {name}"))?,
+        (None, None) => anyhow::bail!("give the instrument with --input R,C or --preset NAME"),
+    };
+    let from;
+    let doc = if let Some(path) = &args.from {
+        from = format!("the stored survey {}", path.display());
+        let text = match std::fs::read_to_string(path) {
+            Ok(t) => t,
+            Err(e) => {
+                eprintln!("ohmsight: cannot read {}: {e}", path.display());
+                return Ok(ExitCode::from(EXIT_INPUT));
+            }
+        };
+        match serde_json::from_str::<serde_json::Value>(&text) {
+            Ok(d) => d,
+            Err(e) => {
+                eprintln!(
+                    "ohmsight: {}:{}:{}: not JSON ({e}); give --from the output of `ohmsight survey --json`",
+                    path.display(),
+                    e.line(),
+                    e.column()
+                );
+                return Ok(ExitCode::from(EXIT_INPUT));
+            }
+        }
+    } else {
+        let mut session = match open_session(&args.link) {
+            Ok(s) => s,
+            Err(code) => return Ok(code),
+        };
+        // Check the pin against the board's own list before spending conversions on it.
+        let info = session.handshake(args.link.any_version)?;
+        let pins: Vec<u8> = info.channels.iter().filter(|c| c.role == ChannelRole::Pin).map(|c| c.channel).collect();
+        if !pins.contains(&args.pin) {
+            let list: Vec<String> = pins.iter().map(u8::to_string).collect();
+            eprintln!("ohmsight: pin {} is not a pin of this board; it has pins {}", args.pin, list.join(", "));
+            return Ok(ExitCode::from(EXIT_INPUT));
+        }
+        let name = session.link().name();
+        let opts = SurveyOptions {
+            any_version: args.link.any_version,
+            progress: progress(args.quiet),
+            channels: vec![args.pin],
+        };
+        let r = survey(&mut session, &opts)?;
+        if let Some(f) = &r.fault {
+            eprintln!("ohmsight: the survey of pin {} failed: {f}", args.pin);
+            return Ok(ExitCode::from(EXIT_FAILED));
+        }
+        from = format!("a survey of pin {} alone, now, over the {name}", args.pin);
+        report::survey_json(&r, &name)
+    };
+    let facts = match loading::facts_from_survey(&doc, args.pin) {
+        Ok(f) => f,
+        Err(e) => {
+            let from = args.from.as_ref().map_or(String::new(), |p| format!("{}: ", p.display()));
+            eprintln!("ohmsight: {from}{e}");
+            return Ok(ExitCode::from(EXIT_INPUT));
+        }
+    };
+    let answer = loading::Loading { from, ..loading::loading(&facts, &instrument) };
+    let out = if args.json {
+        serde_json::to_string_pretty(&loading::loading_json(&answer))? + "\n"
+    } else {
+        loading::loading_text(&answer)
+    };
+    print(&out)?;
+    Ok(ExitCode::SUCCESS)
 }

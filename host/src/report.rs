@@ -1,5 +1,6 @@
 //! Survey output: the terminal table and the JSON document.
 
+use crate::advice::{advise, AdviceOptions, BoardAdvice, PinAdvice, ScanPlan};
 use crate::fit::Interval;
 use crate::survey::{PinReport, SurveyReport};
 use crate::units;
@@ -48,8 +49,13 @@ fn pin_json(p: &PinReport) -> Value {
     })
 }
 
-/// The survey as one JSON document.
+/// The survey as one JSON document, with advice for a sub-LSB signal of none.
 pub fn survey_json(r: &SurveyReport, link_name: &str) -> Value {
+    survey_json_with(r, link_name, &advise(r, &AdviceOptions::default()), &AdviceOptions::default())
+}
+
+/// The survey as one JSON document, with per-pin advice and the scan plan.
+pub fn survey_json_with(r: &SurveyReport, link_name: &str, advice: &BoardAdvice, opts: &AdviceOptions) -> Value {
     let b = &r.board;
     let m = &r.model;
     let precharges: Vec<Value> = m
@@ -70,14 +76,24 @@ pub fn survey_json(r: &SurveyReport, link_name: &str) -> Value {
             "link": link_name,
             "bits": m.bits,
             "vref_volts": m.vref_volts,
+            "lsb_volts": m.lsb_volts(),
             "hold_farads": m.hold_farads,
+            "hold_tolerance": m.hold_tolerance,
             "switch_ohms": m.switch_ohms,
+            "switch_tolerance": m.switch_tolerance,
             "sample_ns": m.sample_ps.iter().map(|&p| f64::from(p) / 1000.0).collect::<Vec<_>>(),
             "conversion_ns": f64::from(m.conversion_ps) / 1000.0,
             "adc_noise_lsb": m.noise_lsb,
             "precharges": precharges,
         },
-        "pins": r.pins.iter().map(pin_json).collect::<Vec<_>>(),
+        "pins": r.pins.iter().map(|p| {
+            let mut v = pin_json(p);
+            let a = advice.pins.iter().find(|a| a.channel == p.channel);
+            v["advice"] = a.map_or(Value::Null, advice_json);
+            v
+        }).collect::<Vec<_>>(),
+        "advice_options": {"resolve_volts": opts.resolve_volts},
+        "scan_plan": plan_json(&advice.plan, r),
         "fault": r.fault,
         "totals": {
             "conversions": r.link.conversions,
@@ -104,8 +120,40 @@ pub fn interval_text(iv: &Interval, fmt: fn(f64) -> String) -> String {
     }
 }
 
-/// The human-readable survey.
+/// A plain-text table: a header, a rule, and the rows, columns padded to their widest cell.
+pub fn table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
+    let mut width: Vec<usize> = header.iter().map(|h| h.as_ref().chars().count()).collect();
+    for row in rows {
+        for (w, c) in width.iter_mut().zip(row.iter()) {
+            *w = (*w).max(c.chars().count());
+        }
+    }
+    let line = |cells: &mut dyn Iterator<Item = &str>| {
+        let mut s = String::new();
+        for (i, c) in cells.enumerate() {
+            s += c;
+            if i + 1 < width.len() {
+                s += &" ".repeat(width[i] - c.chars().count() + 2);
+            }
+        }
+        s.trim_end().to_string() + "\n"
+    };
+    let mut out = line(&mut header.iter().map(|h| h.as_ref()));
+    let rules: Vec<String> = width.iter().map(|&w| "─".repeat(w)).collect();
+    out += &line(&mut rules.iter().map(String::as_str));
+    for row in rows {
+        out += &line(&mut row.iter().map(String::as_str));
+    }
+    out
+}
+
+/// The human-readable survey, with advice for a sub-LSB signal of none.
 pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
+    survey_text_with(r, link_name, &advise(r, &AdviceOptions::default()))
+}
+
+/// The human-readable survey with its advice block and scan plan.
+pub fn survey_text_with(r: &SurveyReport, link_name: &str, advice: &BoardAdvice) -> String {
     let b = &r.board;
     let m = &r.model;
     let mut out = String::new();
@@ -144,28 +192,8 @@ pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
             ]
         })
         .collect();
-    let mut width = header.map(|h| h.chars().count());
-    for row in &rows {
-        for (w, c) in width.iter_mut().zip(row.iter()) {
-            *w = (*w).max(c.chars().count());
-        }
-    }
-    let line = |cells: &[String]| {
-        let mut s = String::new();
-        for (i, c) in cells.iter().enumerate() {
-            let pad = width[i] - c.chars().count();
-            s += c;
-            if i + 1 < cells.len() {
-                s += &" ".repeat(pad + 2);
-            }
-        }
-        s.trim_end().to_string() + "\n"
-    };
-    out += &line(&header.map(String::from));
-    out += &line(&width.map(|w| "─".repeat(w)));
-    for row in &rows {
-        out += &line(row);
-    }
+    let rows: Vec<Vec<String>> = rows.into_iter().map(Vec::from).collect();
+    out += &table(&header, &rows);
     let notes: Vec<String> = r
         .pins
         .iter()
@@ -178,6 +206,7 @@ pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
             out += "\n";
         }
     }
+    out += &advice_text(r, advice);
     if let Some(f) = &r.fault {
         out += &format!("\nthe survey was cut short: {f}\n");
     }
@@ -191,5 +220,170 @@ pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
         r.board_seconds,
         r.wall_seconds
     );
+    out
+}
+
+fn advice_json(a: &PinAdvice) -> Value {
+    json!({
+        "sample": a.sample.map(|s| json!({"index": s.index, "sample_ns": s.sample_ns})),
+        "settle": a.settle.map(|f| json!({
+            "source_ohms": f.source_ohms,
+            "buffer_max_ohms": f.buffer_max_ohms,
+            "hold_multiple": f.hold_multiple,
+            "min_farads": f.min_farads,
+            "min_farads_max_rate_hz": f.min_farads_max_rate_hz,
+            "suggested_farads": f.suggested_farads,
+            "suggested_max_rate_hz": f.suggested_max_rate_hz,
+            "suggested_sample_ns": f.suggested_sample_ns,
+        })),
+        "memory": a.memory.map(|m| json!({
+            "worst_shift_lsb": m.worst_shift_lsb,
+            "after_dummy_lsb": m.after_dummy_lsb,
+            "similar_within_volts": m.similar_within_volts,
+        })),
+        "averaging": a.averaging.map(|v| json!({
+            "resolve_volts": v.resolve_volts,
+            "noise_lsb_rms": v.noise_lsb_rms,
+            "readings": v.readings,
+            "extra_bits": v.extra_bits,
+            "seconds": v.seconds,
+            "staircase_volts": v.staircase_volts,
+            "needs_dither": v.needs_dither,
+        })),
+        "hum_period_s": a.hum_period_s,
+        "note": a.note,
+    })
+}
+
+fn plan_json(plan: &ScanPlan, r: &SurveyReport) -> Value {
+    let label = |ch: u8| r.pins.iter().find(|p| p.channel == ch).map(|p| p.label.clone());
+    json!({
+        "limit_lsb": 0.5,
+        "entries": plan.entries.iter().enumerate().map(|(i, e)| json!({
+            "position": i + 1,
+            "channel": e.channel,
+            "label": label(e.channel),
+            "sample_index": e.sample_index,
+            "sample_ns": e.sample_ns,
+            "dummies": e.dummies,
+            "worst_error_lsb": e.worst_error_lsb,
+            "error_now_lsb": e.error_now_lsb,
+        })).collect::<Vec<_>>(),
+        "idle_s": plan.idle_s,
+        "idle_for": plan.idle_for,
+        "scan_s": plan.scan_s,
+        "scan_hz": if plan.scan_s > 0.0 { Value::from(1.0 / plan.scan_s) } else { Value::Null },
+        "worst_error_lsb": plan.worst_error_lsb,
+        "left_out": plan.left_out.iter().map(|l| json!({"channel": l.channel, "reason": l.reason})).collect::<Vec<_>>(),
+    })
+}
+
+/// The advice block and the scan plan for the terminal.
+fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
+    use units::{farads, ns, ohms, si, volts};
+    let mut out = format!("\nadvice (1 LSB = {}; errors judged against ½ LSB):\n", volts(advice.lsb_volts));
+    for a in &advice.pins {
+        let label = r.pins.iter().find(|p| p.channel == a.channel).map_or("", |p| p.label.as_str());
+        out += &format!("  ch{} {label}: ", a.channel);
+        if let Some(note) = &a.note {
+            out += note;
+        } else if let Some(s) = a.sample {
+            out += &format!("use sample time {} (setting {})", ns(s.sample_ns), s.index);
+        } else if let Some(f) = a.settle {
+            out += &format!(
+                "no sample time settles with Rs up to {}: buffer it (an output resistance under {} settles at \
+                 the longest sample time), or add at least {} from pin to ground ({} × the hold capacitance), \
+                 which allows conversions of this pin at most at {} with neighbours a full scale away; \
+                 {} allows {}",
+                ohms(f.source_ohms),
+                ohms(f.buffer_max_ohms),
+                farads(f.min_farads),
+                f.hold_multiple,
+                si(f.min_farads_max_rate_hz, "Hz"),
+                farads(f.suggested_farads),
+                si(f.suggested_max_rate_hz, "Hz"),
+            );
+            if let Some(t) = f.suggested_sample_ns {
+                out += &format!(" at sample time {}", ns(t));
+            }
+        } else {
+            out += "no sample-time advice";
+        }
+        out += "\n";
+        if let Some(m) = a.memory {
+            out +=
+                &format!("    memory: the previous channel moves this reading by up to {:.2} LSB; ", m.worst_shift_lsb);
+            if let Some(d) = m.after_dummy_lsb {
+                out += &format!("a dummy conversion of this pin first leaves {d:.2} LSB");
+                out += if d > 0.5 { " (not enough: fix the settling first), " } else { ", " };
+            }
+            out += &format!("or convert it after a channel within {} of its level\n", volts(m.similar_within_volts));
+        }
+        if let Some(v) = a.averaging {
+            out += &format!(
+                "    averaging: to see {} average {} readings ({:.1} extra bits, {}; noise {:.2} LSB rms); ",
+                volts(v.resolve_volts),
+                v.readings,
+                v.extra_bits,
+                si(v.seconds, "s"),
+                v.noise_lsb_rms
+            );
+            if v.needs_dither {
+                out += &format!(
+                    "the noise is too small to dither the converter: the average keeps a staircase of up to {}, so add dither first\n",
+                    volts(v.staircase_volts)
+                );
+            } else {
+                // Below a picovolt the staircase is nothing worth a number.
+                let left = if v.staircase_volts < 1e-12 { "none".into() } else { volts(v.staircase_volts) };
+                out += &format!("the noise dithers the converter (staircase left: {left})\n");
+            }
+        }
+        if let Some(t) = a.hum_period_s {
+            out += &format!("    hum: average over whole periods of {}\n", si(t, "s"));
+        }
+    }
+    let plan = &advice.plan;
+    // Stricter than a pin's own advice, which takes its level as measured: here every level,
+    // this pin's too, may be anywhere in the range, so a sample time can come out longer.
+    out += "\nscan plan (worst error with every pin, this one too, at any level; limit ½ LSB):\n";
+    if plan.entries.is_empty() {
+        out += "  no pin to scan\n";
+    } else {
+        let rows: Vec<Vec<String>> = plan
+            .entries
+            .iter()
+            .enumerate()
+            .map(|(i, e)| {
+                vec![
+                    (i + 1).to_string(),
+                    e.channel.to_string(),
+                    r.pins.iter().find(|p| p.channel == e.channel).map_or(String::new(), |p| p.label.clone()),
+                    ns(e.sample_ns),
+                    e.dummies.to_string(),
+                    format!("{:.2} LSB", e.worst_error_lsb),
+                    format!("{:.2} LSB", e.error_now_lsb),
+                ]
+            })
+            .collect();
+        let header = ["#", "ch", "label", "sample", "dummies", "worst error", "error now"];
+        for line in table(&header, &rows).lines() {
+            out += "  ";
+            out += line;
+            out += "\n";
+        }
+        if let Some(ch) = plan.idle_for {
+            out += &format!("  idle {} after each scan, for ch{ch} (its node recovers slowly)\n", si(plan.idle_s, "s"));
+        }
+        out += &format!(
+            "  one scan takes {} ({}); worst error {:.2} LSB\n",
+            si(plan.scan_s, "s"),
+            si(1.0 / plan.scan_s, "Hz"),
+            plan.worst_error_lsb
+        );
+    }
+    for l in &plan.left_out {
+        out += &format!("  left out: ch{} {}\n", l.channel, l.reason);
+    }
     out
 }
