@@ -3,8 +3,11 @@ pub mod fit;
 pub mod link;
 pub mod model;
 pub mod noise;
+pub mod ports;
 pub mod report;
 pub mod scenario;
 pub mod session;
+#[cfg(unix)]
+pub mod simulate;
 pub mod survey;
 pub mod units;

@@ -35,6 +35,48 @@ enum Command {
     /// With no link option the built-in demo scenario runs on the simulated board.
     #[command(after_long_help = SURVEY_EXAMPLES)]
     Survey(SurveyArgs),
+    /// Serve the simulated board on a pseudo-terminal, so serial tools can talk to it.
+    ///
+    /// Prints the device path (e.g. /dev/pts/4) alone on the first line of stdout, then answers
+    /// on it until interrupted (Ctrl-C, SIGTERM). Notes go to stderr.
+    #[command(after_long_help = SIMULATE_EXAMPLES)]
+    Simulate(SimulateArgs),
+    /// List serial ports and mark those where a board answers the ohmsight handshake.
+    #[command(after_long_help = PORTS_EXAMPLES)]
+    Ports(PortsArgs),
+}
+
+#[derive(clap::Args)]
+struct SimulateArgs {
+    /// Wire the simulated board as described in this scenario file (TOML); the demo board if absent.
+    #[arg(long, value_name = "FILE.toml")]
+    scenario: Option<PathBuf>,
+    /// Seed of the simulated board's noise (overrides the scenario's).
+    #[arg(long, value_name = "N")]
+    seed: Option<u64>,
+    /// No notes on stderr about clients coming and going.
+    #[arg(long, short)]
+    quiet: bool,
+}
+
+#[derive(clap::Args)]
+struct PortsArgs {
+    /// Look only at these paths instead of every port found (e.g. the pseudo-terminal of
+    /// `ohmsight simulate`, which no scan finds).
+    #[arg(value_name = "PATH")]
+    paths: Vec<String>,
+    /// Only list; send nothing to any port.
+    #[arg(long)]
+    no_probe: bool,
+    /// Baud rate for the probe.
+    #[arg(long, value_name = "N", default_value_t = 115_200)]
+    baud: u32,
+    /// How long to wait for a port to answer, in milliseconds (ports are probed in parallel).
+    #[arg(long, value_name = "MS", default_value_t = 1500)]
+    wait_ms: u64,
+    /// Print one JSON document on stdout instead of the table.
+    #[arg(long)]
+    json: bool,
 }
 
 #[derive(clap::Args)]
@@ -76,6 +118,30 @@ Exit status: 0 surveyed; 1 the survey failed (link or board, said on stderr); 2 
 A board tied to mains or high voltage must be surveyed through an isolated link and supply;
 follow local codes and licensed practice.";
 
+const SIMULATE_EXAMPLES: &str = "Examples:
+  ohmsight simulate                                the demo board on a new pseudo-terminal
+  ohmsight simulate --scenario my-board.toml --seed 3
+
+In another terminal, with the path it printed:
+  ohmsight survey --port /dev/pts/4
+
+The simulated board keeps its state while clients come and go, like a powered board whose
+cable is unplugged and plugged back in. It accepts one client at a time.
+
+Exit status: 0 stopped by Ctrl-C or SIGTERM; 1 the pseudo-terminal failed; 2 bad input
+(scenario file, arguments).";
+
+const PORTS_EXAMPLES: &str = "Examples:
+  ohmsight ports                                   list and probe every serial port
+  ohmsight ports --no-probe                        list only, send nothing
+  ohmsight ports /dev/pts/4 --json                 only this port, as JSON
+
+Probing opens each port and sends a short ohmsight hello frame (a few bytes) at the given baud
+rate. Use --no-probe when ports lead to equipment that must not receive stray bytes. A board
+that resets when its port opens may need a longer --wait-ms.
+
+Exit status: 0 listed; 1 the ports could not be listed.";
+
 /// Exit status for bad input.
 const EXIT_INPUT: u8 = 2;
 /// Exit status for a failed survey.
@@ -95,6 +161,131 @@ fn main() -> ExitCode {
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Survey(args) => run_survey(args),
+        Command::Simulate(args) => run_simulate(args),
+        Command::Ports(args) => run_ports(args),
+    }
+}
+
+/// Loads the scenario of `--scenario` (or the demo) with the `--seed` override; `Err` is the
+/// exit status after the problem has been said.
+fn load_scenario(path: Option<&PathBuf>, seed: Option<u64>) -> Result<ohmsight_virtual::Scenario, ExitCode> {
+    let mut sc = match path {
+        Some(path) => scenario::load(path).map_err(|e| {
+            eprintln!("ohmsight: {e}");
+            ExitCode::from(EXIT_INPUT)
+        })?,
+        None => scenario::demo(),
+    };
+    if let Some(seed) = seed {
+        sc.seed = seed;
+    }
+    Ok(sc)
+}
+
+#[cfg(unix)]
+fn run_simulate(args: SimulateArgs) -> anyhow::Result<ExitCode> {
+    use ohmsight::simulate::{open_pty, serve, ServeEvent};
+    use std::sync::atomic::AtomicBool;
+    use std::sync::Arc;
+
+    let sc = match load_scenario(args.scenario.as_ref(), args.seed) {
+        Ok(s) => s,
+        Err(code) => return Ok(code),
+    };
+    let stop = Arc::new(AtomicBool::new(false));
+    stop_on_signals(stop.clone())?;
+    let (mut pty, path) = open_pty()?;
+    {
+        let mut stdout = std::io::stdout().lock();
+        writeln!(stdout, "{path}")?;
+        stdout.flush()?;
+    }
+    let quiet = args.quiet;
+    if !quiet {
+        eprintln!(
+            "ohmsight: simulated board \"{}\" ({} wired pins, seed {}) on {path}; Ctrl-C stops it",
+            sc.name,
+            sc.pins.len(),
+            sc.seed
+        );
+    }
+    let mut note = |e: ServeEvent| {
+        if quiet {
+            return;
+        }
+        match e {
+            ServeEvent::ClientArrived => eprintln!("ohmsight: a client opened {path}"),
+            ServeEvent::ClientLeft { bytes_in, bytes_out } => {
+                eprintln!("ohmsight: the client closed {path} ({bytes_in} bytes in, {bytes_out} out)")
+            }
+            ServeEvent::ReplyDropped { bytes, reason } => {
+                eprintln!("ohmsight: dropped {bytes} bytes of a reply: {reason}")
+            }
+        }
+    };
+    let stats = serve(&mut pty, &sc, &stop, &mut note)?;
+    if !quiet {
+        eprintln!(
+            "ohmsight: stopped after {} clients, {} bytes in, {} out, {} conversions",
+            stats.clients, stats.bytes_in, stats.bytes_out, stats.conversions
+        );
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+#[cfg(not(unix))]
+fn run_simulate(_args: SimulateArgs) -> anyhow::Result<ExitCode> {
+    anyhow::bail!("`ohmsight simulate` needs a Unix pseudo-terminal; on this system use `ohmsight survey --scenario`")
+}
+
+/// Sets `stop` on SIGINT or SIGTERM instead of dying, so serving ends with a summary.
+#[cfg(target_os = "linux")]
+fn stop_on_signals(stop: std::sync::Arc<std::sync::atomic::AtomicBool>) -> anyhow::Result<()> {
+    use nix::sys::signal::{SigSet, Signal};
+    use nix::sys::signalfd::SignalFd;
+    let mut mask = SigSet::empty();
+    mask.add(Signal::SIGINT);
+    mask.add(Signal::SIGTERM);
+    // Blocked before any thread starts, so every thread inherits the block and the signals
+    // wait in the signalfd instead of ending the process.
+    mask.thread_block()?;
+    let mut fd = SignalFd::new(&mask)?;
+    std::thread::spawn(move || {
+        if let Ok(Some(_)) = fd.read_signal() {
+            stop.store(true, std::sync::atomic::Ordering::Relaxed);
+        }
+    });
+    Ok(())
+}
+
+/// Elsewhere the default action of the signals ends the process (without the summary).
+#[cfg(all(unix, not(target_os = "linux")))]
+fn stop_on_signals(_stop: std::sync::Arc<std::sync::atomic::AtomicBool>) -> anyhow::Result<()> {
+    Ok(())
+}
+
+fn run_ports(args: PortsArgs) -> anyhow::Result<ExitCode> {
+    use ohmsight::ports;
+    let wait = std::time::Duration::from_millis(args.wait_ms);
+    let mut entries = ports::list(&args.paths).map_err(anyhow::Error::msg)?;
+    if !args.no_probe {
+        ports::probe_all(&mut entries, args.baud, wait);
+    }
+    let out = if args.json {
+        serde_json::to_string_pretty(&ports::json(&entries))? + "\n"
+    } else {
+        ports::table(&entries, wait)
+    };
+    print_out(&out)?;
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Writes `text` on stdout; a reader that went away (a closed pipe) is not an error.
+fn print_out(text: &str) -> anyhow::Result<()> {
+    let mut stdout = std::io::stdout().lock();
+    match stdout.write_all(text.as_bytes()).and_then(|_| stdout.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
+        _ => Ok(()),
     }
 }
 
@@ -116,28 +307,14 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
         session.link_bytes_per_s = u64::from(args.baud / 10);
         render(&mut session, &opts)?
     } else {
-        let mut sc = match &args.scenario {
-            Some(path) => match scenario::load(path) {
-                Ok(s) => s,
-                Err(e) => {
-                    eprintln!("ohmsight: {e}");
-                    return Ok(ExitCode::from(EXIT_INPUT));
-                }
-            },
-            None => scenario::demo(),
+        let sc = match load_scenario(args.scenario.as_ref(), args.seed) {
+            Ok(s) => s,
+            Err(code) => return Ok(code),
         };
-        if let Some(seed) = args.seed {
-            sc.seed = seed;
-        }
         let mut session = Session::new(InProcessLink::new(&sc));
         render(&mut session, &opts)?
     };
-    let mut stdout = std::io::stdout().lock();
-    let out = if args.json { json + "\n" } else { text };
-    match stdout.write_all(out.as_bytes()).and_then(|_| stdout.flush()) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => return Err(e.into()),
-        _ => {}
-    }
+    print_out(&if args.json { json + "\n" } else { text })?;
     if let Some(f) = fault {
         // What was measured is printed above; the exit status still says the survey is partial.
         eprintln!("ohmsight: the survey was cut short: {f}");

@@ -102,4 +102,5 @@ pub fn resolvable(board: &BoardProfile, ohms: f64, farads: f64) -> bool {
     informative_samples(board, ohms, farads) >= 2 || farads >= 1e-9
 }
 
+pub mod paths;
 pub mod spice;
