@@ -126,7 +126,8 @@ In another terminal, with the path it printed:
   ohmsight survey --port /dev/pts/4
 
 The simulated board keeps its state while clients come and go, like a powered board whose
-cable is unplugged and plugged back in. It accepts one client at a time.
+cable is unplugged and plugged back in. Give it one client at a time: two programs reading the
+same port take each other's bytes.
 
 Exit status: 0 stopped by Ctrl-C or SIGTERM; 1 the pseudo-terminal failed; 2 bad input
 (scenario file, arguments).";

@@ -18,6 +18,8 @@ use std::time::{Duration, Instant};
 pub const STALLED_CLIENT: Duration = Duration::from_secs(10);
 /// Pause between looks at a port that has no client.
 const IDLE_POLL: Duration = Duration::from_millis(20);
+/// Read errors in a row, other than a hang-up, taken for the port failing (about a second).
+const ODD_ERRORS_TOLERATED: u32 = 50;
 /// Longest wait for bytes before the stop flag is looked at again.
 const READ_SLICE: Duration = Duration::from_millis(100);
 
@@ -88,19 +90,34 @@ pub fn serve<P: SerialPort>(
     let mut stats = ServeStats::default();
     let mut connected = false;
     let (mut client_in, mut client_out) = (0u64, 0u64);
+    let mut odd_errors = 0u32;
+    // Whether the last look at the port saw a hang-up (the pseudo-terminal starts with none).
+    let mut hung_up = false;
     let mut buf = [0u8; 256];
     let mut reply: Vec<u8> = Vec::new();
     port.set_timeout(READ_SLICE).map_err(io::Error::other)?;
     while !stop.load(Ordering::Relaxed) {
         let n = match port.read(&mut buf) {
-            Ok(n) => n,
-            Err(e) if e.kind() == ErrorKind::TimedOut || e.kind() == ErrorKind::WouldBlock => 0,
+            Ok(n) => {
+                (odd_errors, hung_up) = (0, false);
+                n
+            }
+            Err(e) if e.kind() == ErrorKind::TimedOut || e.kind() == ErrorKind::WouldBlock => {
+                (odd_errors, hung_up) = (0, false);
+                0
+            }
             Err(e) if e.kind() == ErrorKind::Interrupted => continue,
-            Err(e) if is_hangup(&e) => {
+            // A hang-up, or an error that a hang-up racing a read can give (EIO after the poll
+            // saw data): the client is gone. Errors that persist while nobody hangs up are real.
+            Err(e) if e.kind() == ErrorKind::BrokenPipe || odd_errors < ODD_ERRORS_TOLERATED => {
+                odd_errors = if e.kind() == ErrorKind::BrokenPipe { 0 } else { odd_errors + 1 };
+                if !hung_up {
+                    hung_up = true;
+                    forget_client(&mut engine, port);
+                }
                 if connected {
                     connected = false;
                     on_event(ServeEvent::ClientLeft { bytes_in: client_in, bytes_out: client_out });
-                    forget_client(&mut engine, port);
                 }
                 std::thread::sleep(IDLE_POLL);
                 continue;
@@ -137,19 +154,14 @@ pub fn serve<P: SerialPort>(
     Ok(stats)
 }
 
-/// A read error that means "nobody has the other end open" rather than a broken port.
-fn is_hangup(e: &io::Error) -> bool {
-    // serialport turns POLLHUP into BrokenPipe; a plain read of a pty master says EIO.
-    e.kind() == ErrorKind::BrokenPipe || e.raw_os_error() == Some(5)
-}
-
 /// Drops what the client that left had half sent and never read, so the next one starts clean.
 fn forget_client<P: SerialPort>(engine: &mut SimEngine, port: &mut P) {
     // A delimiter ends any partial frame; the engine's complaint about it goes nowhere.
     let mut sink = Vec::new();
     let Ok(()) = engine.feed(&[0], &mut sink);
-    // On a pseudo-terminal this empties what waits to be read on the client's side.
-    let _ = port.clear(ClearBuffer::Output);
+    // On a pseudo-terminal: what the client sent after our last read (a hang-up hides it from
+    // the read), and what waits to be read on the client's side.
+    let _ = port.clear(ClearBuffer::All);
 }
 
 /// Writes as much of `bytes` as the client takes; returns how many were written. Gives up when
