@@ -137,6 +137,7 @@ pub fn serve<P: SerialPort>(
         client_in += n as u64;
         stats.bytes_in += n as u64;
         reply.clear();
+        let conversions_before = engine.conversions();
         let Ok(()) = engine.feed(&buf[..n], &mut reply);
         let sent = write_reply(port, &reply, stop);
         client_out += sent as u64;
@@ -149,7 +150,8 @@ pub fn serve<P: SerialPort>(
             };
             on_event(ServeEvent::ReplyDropped { bytes: reply.len() - sent, reason });
         }
-        stats.conversions = u64::from(engine.conversions());
+        // The engine counts in a wrapping u32; add what this request made.
+        stats.conversions += u64::from(engine.conversions().wrapping_sub(conversions_before));
     }
     Ok(stats)
 }

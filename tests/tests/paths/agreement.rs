@@ -12,7 +12,7 @@ fn a_survey_over_the_simulate_command_agrees_with_the_in_process_one() {
     let scenario = ohmsight::scenario::load(&file).expect("the bench scenario parses");
     let local =
         survey(&mut Session::new(InProcessLink::new(&scenario)), &SurveyOptions::default()).expect("in-process survey");
-    let sim = Simulator::start(exe(), &["--scenario", file.to_str().unwrap()]);
+    let mut sim = Simulator::start(exe(), &["--scenario", file.to_str().unwrap()]);
     let over_pty = survey_port(&sim.path);
     assert_same_survey(&local, &over_pty, "pty to `ohmsight simulate`");
     // The simulated board is deterministic and fresh: the very same records came back.
@@ -20,5 +20,14 @@ fn a_survey_over_the_simulate_command_agrees_with_the_in_process_one() {
     assert_eq!(over_pty.link.bytes_received, local.link.bytes_received);
     for (a, b) in local.pins.iter().zip(&over_pty.pins) {
         assert_eq!(a.source_ohms, b.source_ohms, "ch{}", a.channel);
+    }
+    // The server counted the same traffic the host did.
+    #[cfg(target_os = "linux")]
+    {
+        let status = sim.terminate(std::time::Duration::from_secs(3)).expect("SIGTERM stops it");
+        assert!(status.success());
+        let l = &over_pty.link;
+        let summary = format!("{} bytes in, {} out, {} conversions", l.bytes_sent, l.bytes_received, l.conversions);
+        assert!(sim.stderr().contains(&summary), "wanted {summary:?} in: {}", sim.stderr());
     }
 }
