@@ -52,12 +52,13 @@ fn ports_json(args: &[&str]) -> (serde_json::Value, Duration) {
 }
 
 #[test]
-fn ports_marks_the_simulated_board_and_nothing_else() {
+fn ports_marks_the_boards_that_answer_and_says_why_others_do_not() {
     let sim = Simulator::start(exe(), &["--quiet"]);
     let silent = Peer::start(PeerKind::Silent);
     let garbage = Peer::start(PeerKind::Garbage);
+    let newer = Peer::start(PeerKind::Version(PROTOCOL_VERSION + 1));
     let missing = "/dev/ohmsight-no-such-port";
-    let (doc, took) = ports_json(&["--wait-ms", "800", &sim.path, &silent.path, &garbage.path, missing]);
+    let (doc, took) = ports_json(&["--wait-ms", "800", &sim.path, &silent.path, &garbage.path, missing, &newer.path]);
     assert_eq!(doc["schema"], "ohmsight.ports.v1");
     let ports = doc["ports"].as_array().unwrap();
     let status: Vec<(&str, &str)> =
@@ -68,13 +69,17 @@ fn ports_marks_the_simulated_board_and_nothing_else() {
             (sim.path.as_str(), "answers"),
             (silent.path.as_str(), "no-answer"),
             (garbage.path.as_str(), "not-ohmsight"),
-            (missing, "failed")
+            (missing, "failed"),
+            (newer.path.as_str(), "other-version"),
         ]
     );
     assert_eq!(ports[0]["probe"]["ohmsight"], true);
     assert!(ports[0]["probe"]["board"]["channels"].as_u64().unwrap() >= 9, "{}", ports[0]);
-    assert!(ports[1..].iter().all(|p| p["probe"]["ohmsight"] == false));
+    assert!(ports[1..4].iter().all(|p| p["probe"]["ohmsight"] == false));
     assert!(ports[3]["probe"]["detail"].as_str().unwrap().contains("cannot open"));
+    // A board of another protocol version does answer the handshake, and says which version.
+    assert_eq!(ports[4]["probe"]["ohmsight"], true);
+    assert_eq!(ports[4]["probe"]["protocol"], PROTOCOL_VERSION + 1);
     assert!(ports.iter().all(|p| p["kind"] == "given" && p["usb"].is_null()));
     // Probes run side by side, each bounded: the silent port costs its wait, not more.
     assert!(took < Duration::from_millis(800 + 2500), "{took:?}");
