@@ -239,29 +239,16 @@ fn run_simulate(_args: SimulateArgs) -> anyhow::Result<ExitCode> {
     anyhow::bail!("`ohmsight simulate` needs a Unix pseudo-terminal; on this system use `ohmsight survey --scenario`")
 }
 
-/// Sets `stop` on SIGINT or SIGTERM instead of dying, so serving ends with a summary.
-#[cfg(target_os = "linux")]
+/// Sets `stop` on SIGINT or SIGTERM instead of dying, so serving ends with a summary; a second
+/// signal before serving has stopped ends the process at once.
+#[cfg(unix)]
 fn stop_on_signals(stop: std::sync::Arc<std::sync::atomic::AtomicBool>) -> anyhow::Result<()> {
-    use nix::sys::signal::{SigSet, Signal};
-    use nix::sys::signalfd::SignalFd;
-    let mut mask = SigSet::empty();
-    mask.add(Signal::SIGINT);
-    mask.add(Signal::SIGTERM);
-    // Blocked before any thread starts, so every thread inherits the block and the signals
-    // wait in the signalfd instead of ending the process.
-    mask.thread_block()?;
-    let mut fd = SignalFd::new(&mask)?;
-    std::thread::spawn(move || {
-        if let Ok(Some(_)) = fd.read_signal() {
-            stop.store(true, std::sync::atomic::Ordering::Relaxed);
-        }
-    });
-    Ok(())
-}
-
-/// Elsewhere the default action of the signals ends the process (without the summary).
-#[cfg(all(unix, not(target_os = "linux")))]
-fn stop_on_signals(_stop: std::sync::Arc<std::sync::atomic::AtomicBool>) -> anyhow::Result<()> {
+    use signal_hook::consts::{SIGINT, SIGTERM};
+    use signal_hook::flag;
+    for signal in [SIGINT, SIGTERM] {
+        flag::register_conditional_shutdown(signal, 1, stop.clone())?;
+        flag::register(signal, stop.clone())?;
+    }
     Ok(())
 }
 

@@ -102,5 +102,6 @@ pub fn resolvable(board: &BoardProfile, ohms: f64, farads: f64) -> bool {
     informative_samples(board, ohms, farads) >= 2 || farads >= 1e-9
 }
 
+#[cfg(unix)]
 pub mod paths;
 pub mod spice;

@@ -34,9 +34,28 @@ pub fn scenario_file(name: &str, toml: &str) -> PathBuf {
     path
 }
 
+/// Opens the serial port `path` so that processes the tests start do not inherit it.
+///
+/// Tests run side by side in threads that start processes, and serialport opens without
+/// close-on-exec: a port that a stray child holds open never hangs up for the board.
+pub fn open_port(path: &str) -> TTYPort {
+    let port = serialport::new(path, 115_200)
+        .timeout(Duration::from_millis(50))
+        .open_native()
+        .unwrap_or_else(|e| panic!("cannot open {path}: {e}"));
+    close_on_exec(&port);
+    port
+}
+
+fn close_on_exec(port: &TTYPort) {
+    use nix::fcntl::{fcntl, FcntlArg, FdFlag};
+    use std::os::fd::AsRawFd;
+    fcntl(port.as_raw_fd(), FcntlArg::F_SETFD(FdFlag::FD_CLOEXEC)).expect("setting close-on-exec");
+}
+
 /// Surveys the board on the serial port `path` (all pins, default options).
 pub fn survey_port(path: &str) -> SurveyReport {
-    let link = SerialLink::open(path, 115_200).unwrap_or_else(|e| panic!("{e}"));
+    let link = SerialLink::from_port(Box::new(open_port(path)), path);
     let mut session = Session::new(link);
     session.link_bytes_per_s = PTY_BYTES_PER_S;
     survey(&mut session, &SurveyOptions::default()).unwrap_or_else(|e| panic!("survey over {path}: {e}"))
@@ -136,7 +155,6 @@ impl Simulator {
 
     /// Sends SIGTERM and waits (at most `within`) for it to end; its exit status, or `None` if
     /// it was still running (it is then killed).
-    #[cfg(target_os = "linux")]
     pub fn terminate(&mut self, within: Duration) -> Option<ExitStatus> {
         use nix::sys::signal::{kill, Signal};
         use nix::unistd::Pid;
@@ -187,6 +205,7 @@ impl Peer {
     /// Starts answering as `kind`.
     pub fn start(kind: PeerKind) -> Peer {
         let (master, slave) = TTYPort::pair().expect("a pseudo-terminal pair");
+        close_on_exec(&master);
         let path = slave.name().expect("pty path");
         // Only the client may read that side.
         drop(slave);
@@ -256,11 +275,7 @@ pub struct RawPort {
 impl RawPort {
     /// Opens `path`.
     pub fn open(path: &str) -> RawPort {
-        let port = serialport::new(path, 115_200)
-            .timeout(Duration::from_millis(50))
-            .open()
-            .unwrap_or_else(|e| panic!("cannot open {path}: {e}"));
-        RawPort { port, rx: FrameAccumulator::new() }
+        RawPort { port: Box::new(open_port(path)), rx: FrameAccumulator::new() }
     }
 
     /// Sends bytes as they are.

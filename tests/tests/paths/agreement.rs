@@ -22,12 +22,9 @@ fn a_survey_over_the_simulate_command_agrees_with_the_in_process_one() {
         assert_eq!(a.source_ohms, b.source_ohms, "ch{}", a.channel);
     }
     // The server counted the same traffic the host did.
-    #[cfg(target_os = "linux")]
-    {
-        let status = sim.terminate(std::time::Duration::from_secs(3)).expect("SIGTERM stops it");
-        assert!(status.success());
-        let l = &over_pty.link;
-        let summary = format!("{} bytes in, {} out, {} conversions", l.bytes_sent, l.bytes_received, l.conversions);
-        assert!(sim.stderr().contains(&summary), "wanted {summary:?} in: {}", sim.stderr());
-    }
+    let status = sim.terminate(std::time::Duration::from_secs(3)).expect("SIGTERM stops it");
+    assert!(status.success(), "{status:?}: {}", sim.stderr());
+    let l = &over_pty.link;
+    let summary = format!("{} bytes in, {} out, {} conversions", l.bytes_sent, l.bytes_received, l.conversions);
+    assert!(sim.stderr().contains(&summary), "wanted {summary:?} in: {}", sim.stderr());
 }

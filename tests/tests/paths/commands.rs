@@ -12,7 +12,6 @@ fn hello_answered(path: &str) -> bool {
 }
 
 #[test]
-#[cfg(target_os = "linux")]
 fn simulate_prints_the_path_alone_serves_clients_in_turn_and_stops_on_sigterm() {
     let file = scenario_file("commands.toml", BENCH_TOML);
     let mut sim = Simulator::start(exe(), &["--scenario", file.to_str().unwrap(), "--seed", "4"]);
@@ -23,14 +22,17 @@ fn simulate_prints_the_path_alone_serves_clients_in_turn_and_stops_on_sigterm() 
     std::thread::sleep(Duration::from_millis(200));
     assert!(hello_answered(&sim.path));
     std::thread::sleep(Duration::from_millis(200));
+    // SIGTERM while a third client holds the port open (the server then waits on the port).
+    let mut third = RawPort::open(&sim.path);
+    assert!(matches!(third.ask(&Request::Describe, 1)[0], Response::FrontEnd(_)));
     let status = sim.terminate(Duration::from_secs(3)).expect("SIGTERM stops it within 3 s");
     assert!(status.success(), "{status:?}: {}", sim.stderr());
     assert_eq!(sim.stdout(), format!("{}\n", sim.path), "stdout holds the path and nothing else");
     let err = sim.stderr();
     assert!(err.contains("\"paths bench\"") && err.contains("seed 4") && err.contains(&sim.path), "{err}");
-    assert_eq!(err.matches("a client opened").count(), 2, "{err}");
+    assert_eq!(err.matches("a client opened").count(), 3, "{err}");
     assert_eq!(err.matches("the client closed").count(), 2, "{err}");
-    assert!(err.contains("stopped after 2 clients"), "{err}");
+    assert!(err.contains("stopped after 3 clients"), "{err}");
 }
 
 #[test]
