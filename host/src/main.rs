@@ -227,8 +227,12 @@ fn run_simulate(args: SimulateArgs) -> anyhow::Result<ExitCode> {
     let stats = serve(&mut pty, &sc, &stop, &mut note)?;
     if !quiet {
         eprintln!(
-            "ohmsight: stopped after {} clients, {} bytes in, {} out, {} conversions",
-            stats.clients, stats.bytes_in, stats.bytes_out, stats.conversions
+            "ohmsight: stopped after {} client{}, {} bytes in, {} out, {} conversions",
+            stats.clients,
+            if stats.clients == 1 { "" } else { "s" },
+            stats.bytes_in,
+            stats.bytes_out,
+            stats.conversions
         );
     }
     Ok(ExitCode::SUCCESS)
