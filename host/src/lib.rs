@@ -5,8 +5,11 @@ pub mod link;
 pub mod loading;
 pub mod model;
 pub mod noise;
+pub mod ports;
 pub mod report;
 pub mod scenario;
 pub mod session;
+#[cfg(unix)]
+pub mod simulate;
 pub mod survey;
 pub mod units;

@@ -227,13 +227,19 @@ impl<L: Link> Session<L> {
 
     /// First exchange: versions, board, front end and channels.
     pub fn handshake(&mut self, any_version: bool) -> Result<BoardInfo, SessionError> {
+        let mut complaints = 0;
         let (protocol, firmware, name, unit_id, n_channels) = loop {
             match self.ask(&Request::Hello { protocol: PROTOCOL_VERSION }, "hello")? {
                 Response::Hello { protocol, firmware, board, unit_id, channels } => {
                     break (protocol, firmware.to_string(), board.to_string(), unit_id, channels)
                 }
-                // A board of another version says so first, then hellos with its version.
-                Response::Error { kind: ErrorKind::Version, .. } => continue,
+                // A board of another version says so first, then hellos with its version. A
+                // board that still held half a frame of an earlier client that died mid-send
+                // complains about the joined frame; the next hello gets through.
+                Response::Error { kind: ErrorKind::Version | ErrorKind::BadFrame, .. } if complaints < TRIES => {
+                    complaints += 1;
+                    continue;
+                }
                 other => return Err(SessionError::Unexpected(format!("{other:?} to hello"))),
             }
         };
@@ -376,6 +382,21 @@ mod tests {
         assert!(matches!(err, SessionError::Version { board: 99 }), "{err:?}");
         let text = err.to_string();
         assert!(text.contains("99") && text.contains("--any-version"), "{text}");
+    }
+
+    #[test]
+    fn a_hello_lost_in_an_earlier_half_frame_is_asked_again_but_not_forever() {
+        let bad = Response::Error { seq: 0, kind: ErrorKind::BadFrame };
+        let link = Scripted {
+            answers: VecDeque::from([vec![bad.clone()], vec![hello(PROTOCOL_VERSION)]]),
+            out: VecDeque::new(),
+        };
+        // The second hello is answered: the handshake goes on to ask for the description.
+        let err = Session::new(link).handshake(false).unwrap_err();
+        assert!(matches!(err, SessionError::Timeout { waiting_for: "front-end description", .. }), "{err:?}");
+        let link = Scripted { answers: VecDeque::from(vec![vec![bad]; 10]), out: VecDeque::new() };
+        let err = Session::new(link).handshake(false).unwrap_err();
+        assert!(matches!(err, SessionError::Unexpected(_)), "{err:?}");
     }
 
     #[test]

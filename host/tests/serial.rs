@@ -5,37 +5,11 @@
 
 use ohmsight::link::{InProcessLink, SerialLink};
 use ohmsight::session::Session;
+use ohmsight::simulate::serve;
 use ohmsight::survey::{survey, SurveyOptions};
-use ohmsight_firmware::Engine;
-use ohmsight_virtual::{Scenario, VirtualBoard, VirtualClock, VirtualDelay};
 use serialport::{SerialPort, TTYPort};
-use std::io::{Read, Write};
-use std::rc::Rc;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
-
-/// Serves the simulated board on `port` until `stop` is set.
-fn serve(mut port: TTYPort, scenario: Scenario, stop: Arc<AtomicBool>) {
-    let clock = Rc::new(VirtualClock::new());
-    let board = VirtualBoard::new(&scenario, clock.clone());
-    let desc = board.description();
-    let mut engine = Engine::new(board, VirtualDelay(clock), desc);
-    let mut buf = [0u8; 256];
-    let mut out: Vec<u8> = Vec::new();
-    while !stop.load(Ordering::Relaxed) {
-        match port.read(&mut buf) {
-            Ok(n) => {
-                out.clear();
-                let Ok(()) = engine.feed(&buf[..n], &mut out);
-                if port.write_all(&out).is_err() {
-                    return;
-                }
-            }
-            Err(e) if e.kind() == std::io::ErrorKind::TimedOut => {}
-            Err(_) => return,
-        }
-    }
-}
 
 #[test]
 fn survey_over_a_pseudo_terminal_matches_in_process() {
@@ -50,7 +24,10 @@ fn survey_over_a_pseudo_terminal_matches_in_process() {
     let stop = Arc::new(AtomicBool::new(false));
     let server = {
         let (sc, stop) = (scenario.clone(), stop.clone());
-        std::thread::spawn(move || serve(master, sc, stop))
+        std::thread::spawn(move || {
+            let mut master = master;
+            serve(&mut master, &sc, &stop, &mut |_| {}).expect("serving the pty")
+        })
     };
     let name = slave.name().unwrap_or_default();
     let mut session = Session::new(SerialLink::from_port(Box::new(slave), &name));

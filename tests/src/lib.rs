@@ -102,6 +102,8 @@ pub fn resolvable(board: &BoardProfile, ohms: f64, farads: f64) -> bool {
     informative_samples(board, ohms, farads) >= 2 || farads >= 1e-9
 }
 
+#[cfg(unix)]
+pub mod paths;
 pub mod spice;
 
 /// A seeded source of standard normal numbers (SplitMix64 and Box–Muller: small, well known,
