@@ -1,5 +1,6 @@
 //! The host side of ohmsight (always runs on the host, never on the target).
 pub mod fit;
+pub mod html;
 pub mod link;
 pub mod model;
 pub mod noise;

@@ -8,7 +8,7 @@ use clap::{Parser, Subcommand};
 use ohmsight::link::{InProcessLink, Link, SerialLink};
 use ohmsight::session::Session;
 use ohmsight::survey::{survey, SurveyOptions};
-use ohmsight::{report, scenario};
+use ohmsight::{html, report, scenario};
 use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -57,6 +57,9 @@ struct SurveyArgs {
     /// Print one JSON document on stdout instead of the table.
     #[arg(long)]
     json: bool,
+    /// Also write the survey as one self-contained HTML page (plots inline, opens offline).
+    #[arg(long, value_name = "FILE")]
+    html: Option<PathBuf>,
     /// No progress bar.
     #[arg(long, short)]
     quiet: bool,
@@ -69,6 +72,7 @@ const SURVEY_EXAMPLES: &str = "Examples:
   ohmsight survey                                  the demo board, simulated
   ohmsight survey --scenario boards/virtual/scenarios/demo.toml --seed 7
   ohmsight survey --port /dev/ttyACM0 --json > unit-0042.json
+  ohmsight survey --html demo-report.html          the table, and a page with the plots
 
 Exit status: 0 surveyed; 1 the survey failed (link or board, said on stderr); 2 bad input
 (scenario file, arguments, a serial port that cannot be opened).
@@ -104,7 +108,7 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
         progress: !args.quiet && std::io::IsTerminal::is_terminal(&std::io::stderr()),
         channels: args.channels.clone(),
     };
-    let (text, json, fault) = if let Some(port) = &args.port {
+    let (text, json, page, fault) = if let Some(port) = &args.port {
         let link = match SerialLink::open(port, args.baud) {
             Ok(l) => l,
             Err(e) => {
@@ -114,7 +118,7 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
         };
         let mut session = Session::new(link);
         session.link_bytes_per_s = u64::from(args.baud / 10);
-        render(&mut session, &opts)?
+        render(&mut session, &opts, args.html.is_some())?
     } else {
         let mut sc = match &args.scenario {
             Some(path) => match scenario::load(path) {
@@ -130,13 +134,22 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
             sc.seed = seed;
         }
         let mut session = Session::new(InProcessLink::new(&sc));
-        render(&mut session, &opts)?
+        render(&mut session, &opts, args.html.is_some())?
     };
     let mut stdout = std::io::stdout().lock();
     let out = if args.json { json + "\n" } else { text };
     match stdout.write_all(out.as_bytes()).and_then(|_| stdout.flush()) {
         Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => return Err(e.into()),
         _ => {}
+    }
+    if let (Some(path), Some(page)) = (&args.html, page) {
+        if let Err(e) = write_page(path, &page) {
+            eprintln!(
+                "ohmsight: cannot write the HTML report to {}: {e} (the table above is complete; pick another path)",
+                path.display()
+            );
+            return Ok(ExitCode::from(EXIT_INPUT));
+        }
     }
     if let Some(f) = fault {
         // What was measured is printed above; the exit status still says the survey is partial.
@@ -146,10 +159,26 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// The survey as text and as JSON, and the link fault that cut it short, if any.
-fn render<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> anyhow::Result<(String, String, Option<String>)> {
+/// The survey as text, as JSON and (when asked for) as an HTML page, and the link fault that
+/// cut it short, if any.
+type Rendered = (String, String, Option<String>, Option<String>);
+
+fn render<L: Link>(session: &mut Session<L>, opts: &SurveyOptions, page: bool) -> anyhow::Result<Rendered> {
     let name = session.link().name();
     let r = survey(session, opts)?;
     let json = serde_json::to_string_pretty(&report::survey_json(&r, &name))?;
-    Ok((report::survey_text(&r, &name), json, r.fault.clone()))
+    let page = page.then(|| html::survey_html(&r, &name));
+    Ok((report::survey_text(&r, &name), json, page, r.fault.clone()))
+}
+
+/// Writes the page beside its destination first, so an interrupted write never leaves a
+/// half page under the name asked for.
+fn write_page(path: &std::path::Path, page: &str) -> std::io::Result<()> {
+    let mut tmp = path.as_os_str().to_owned();
+    tmp.push(".part");
+    let tmp = PathBuf::from(tmp);
+    std::fs::write(&tmp, page)?;
+    std::fs::rename(&tmp, path).inspect_err(|_| {
+        let _ = std::fs::remove_file(&tmp);
+    })
 }

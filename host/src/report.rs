@@ -1,6 +1,7 @@
 //! Survey output: the terminal table and the JSON document.
 
 use crate::fit::Interval;
+use crate::model::BoardModel;
 use crate::survey::{PinReport, SurveyReport};
 use crate::units;
 use serde_json::{json, Map, Value};
@@ -104,17 +105,11 @@ pub fn interval_text(iv: &Interval, fmt: fn(f64) -> String) -> String {
     }
 }
 
-/// The human-readable survey.
-pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
-    let b = &r.board;
-    let m = &r.model;
-    let mut out = String::new();
-    out += &format!(
-        "ohmsight survey — board \"{}\" unit {:016x}, firmware {}, over the {}\n",
-        b.name, b.unit_id, b.firmware, link_name
-    );
-    out += &format!(
-        "converter: {} bits, Vref {}, hold {} ±{:.0}%, switch {} ±{:.0}%, sample times {}…{}, 1 LSB = {}\n\n",
+/// `12 bits, Vref 3.30 V, hold 4.00 pF ±5%, …, 1 LSB = 806 µV`: the converter as the board
+/// described it.
+pub fn converter_text(m: &BoardModel) -> String {
+    format!(
+        "{} bits, Vref {}, hold {} ±{:.0}%, switch {} ±{:.0}%, sample times {}…{}, 1 LSB = {}",
         m.bits,
         units::volts(m.vref_volts),
         units::farads(m.hold_farads),
@@ -124,7 +119,19 @@ pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
         units::ns(f64::from(m.sample_ps[0]) / 1000.0),
         units::ns(f64::from(*m.sample_ps.last().unwrap_or(&0)) / 1000.0),
         units::volts(m.lsb_volts()),
+    )
+}
+
+/// The human-readable survey.
+pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
+    let b = &r.board;
+    let m = &r.model;
+    let mut out = String::new();
+    out += &format!(
+        "ohmsight survey — board \"{}\" unit {:016x}, firmware {}, over the {}\n",
+        b.name, b.unit_id, b.firmware, link_name
     );
+    out += &format!("converter: {}\n\n", converter_text(m));
     let header =
         ["ch", "label", "verdict", "source R (95%)", "node C (95%)", "source V", "noise", "min sample", "flags"];
     let rows: Vec<[String; 9]> = r
