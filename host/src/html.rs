@@ -338,8 +338,9 @@ fn inside_runs(pts: &[(f64, f64)], lo: f64, hi: f64) -> Vec<Vec<(f64, f64)>> {
     runs
 }
 
-fn label_style(size: u32) -> TextStyle<'static> {
-    (FONT, size).into_font().color(&INK)
+/// Text of `px` pixels (plotters' SVG backend writes a size 1.24 times smaller than it is given).
+fn label_style(px: u32) -> TextStyle<'static> {
+    (FONT, f64::from(px) * 1.24).into_font().color(&INK)
 }
 
 /// A chart in our layout: margins and room for the axis labels.
@@ -358,8 +359,8 @@ where
     Y: Ranged<ValueType = YT> + ValueFormatter<YT>,
 {
     let mut m = chart.configure_mesh();
-    m.light_line_style(GRID)
-        .bold_line_style(GRID.mix(0.0))
+    m.light_line_style(GRID.mix(0.0))
+        .bold_line_style(GRID)
         .label_style(label_style(11))
         .axis_desc_style(label_style(12));
     m
@@ -424,7 +425,11 @@ fn precharge_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String
             .x_label_area_size(28)
             .y_label_area_size(58)
             .build_cartesian_2d((t_lo..t_hi).log_scale(), y_lo..y_hi)?;
-        mesh(&mut chart).x_label_formatter(&seconds_label).y_desc("mean code, LSB").draw()?;
+        mesh(&mut chart)
+            .x_label_formatter(&seconds_label)
+            .y_desc("mean code, LSB")
+            .y_label_formatter(&|v| short(*v))
+            .draw()?;
         for (pre, c) in &curves {
             let colour = precharge_colour(m, *pre);
             chart.draw_series(LineSeries::new(c.iter().copied(), colour.mix(0.9).stroke_width(2)))?;
@@ -454,13 +459,14 @@ fn precharge_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String
         // Zoom: reading minus settled level, with the ½ LSB band.
         let Some(s) = settled else { return Ok(()) };
         let mut zoom = builder(&bottom)
-            .x_label_area_size(34)
+            .x_label_area_size(40)
             .y_label_area_size(58)
             .build_cartesian_2d((t_lo..t_hi).log_scale(), -ZOOM_LSB..ZOOM_LSB)?;
         mesh(&mut zoom)
             .x_label_formatter(&seconds_label)
             .x_desc("sample time")
             .y_desc("minus settled, LSB")
+            .y_label_formatter(&|v| format!("{v:.0}"))
             .y_labels(5)
             .draw()?;
         zoom.draw_series([Rectangle::new([(t_lo, -0.5), (t_hi, 0.5)], BAND.mix(0.45).filled())])?;
@@ -569,13 +575,14 @@ fn period_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String {
     let svg = svg(PLOT_W, PLOT_H, |root| {
         let mut chart = builder(root)
             .caption("droop vs pair period", label_style(15))
-            .x_label_area_size(34)
+            .x_label_area_size(40)
             .y_label_area_size(58)
             .build_cartesian_2d((x_lo..x_hi).log_scale(), y_lo..y_hi)?;
         mesh(&mut chart)
             .x_label_formatter(&seconds_label)
             .x_desc("period of [precharge, pin] pairs")
             .y_desc(if settled.is_some() { "minus settled, LSB" } else { "mean code, LSB" })
+            .y_label_formatter(&|v| short(*v))
             .draw()?;
         if settled.is_some() {
             chart.draw_series([Rectangle::new([(x_lo, -0.5), (x_hi, 0.5)], BAND.mix(0.45).filled())])?;
@@ -664,7 +671,7 @@ fn histogram_plot(r: &SurveyReport, p: &PinReport) -> String {
     let svg = svg(PLOT_W, PLOT_H, |root| {
         let mut chart = builder(root)
             .caption("codes of the noise record", label_style(15))
-            .x_label_area_size(34)
+            .x_label_area_size(40)
             .y_label_area_size(58)
             .build_cartesian_2d(x_lo..x_hi, 0.0..y_hi)?;
         mesh(&mut chart)
@@ -735,7 +742,7 @@ fn spectrum_plot(r: &SurveyReport, p: &PinReport) -> String {
     let svg = svg(PLOT_W, PLOT_H, |root| {
         let mut chart = builder(root)
             .caption("power spectral density", label_style(15))
-            .x_label_area_size(34)
+            .x_label_area_size(40)
             .y_label_area_size(58)
             .build_cartesian_2d((f_lo..nyquist).log_scale(), (d_lo..d_hi).log_scale())?;
         mesh(&mut chart)
@@ -820,13 +827,17 @@ fn memory_rows(r: &SurveyReport, cols: &[(u8, Option<f64>)]) -> Vec<MemoryRow> {
                         Some(0.0)
                     } else if ch == mem.previous {
                         Some(mem.shift_lsb)
-                    } else if p.verdict == Verdict::Floating {
-                        // A floating node is no linear network at rest: nothing to scale.
-                        None
                     } else {
-                        // The reading is a weighted average of the pin and the previous level:
-                        // it cannot overshoot, whatever noise did to a small measured step.
-                        level.map(|l| mem.coefficient.clamp(0.0, 1.0) * (l - mem.level_lsb))
+                        // Charge sharing makes the reading a weighted average of the pin and the
+                        // previous level (a coefficient from 0 to 1); a coefficient outside that
+                        // within the shift's noise is one inside it. A floating node, or a real
+                        // shift no weighted average explains, is something else: nothing to scale.
+                        let within_noise = mem.shift_lsb.abs() <= 3.0 * mem.shift_se_lsb;
+                        let sharing = (0.0..=1.0).contains(&mem.coefficient) || within_noise;
+                        let coefficient = mem.coefficient.clamp(0.0, 1.0);
+                        level
+                            .filter(|_| sharing && p.verdict != Verdict::Floating)
+                            .map(|l| coefficient * (l - mem.level_lsb))
                     }
                 })
                 .collect();
@@ -933,10 +944,10 @@ fn memory_caption(r: &SurveyReport) -> String {
         "<b>Memory of the previous channel.</b> How far a pin's reading moves, in LSB, when it is \
          converted right after another channel instead of after itself{at}. Outlined cells were \
          measured by an order swap; the others follow from the measured coefficient and the \
-         difference of levels (charge sharing on the hold capacitor is linear; the coefficient is \
-         taken between 0 and 1, as a weighted average cannot overshoot). Dots: nothing to say \
-         (a pin at a rail has no order swap; a floating node is no linear network, so only its \
-         measured cell is shown). Cells inside ±½ LSB are near white."
+         difference of levels (charge sharing on the hold capacitor is linear). Dots: nothing to \
+         scale (a pin at a rail has no order swap; a floating node, or a shift that no weighted \
+         average of the two levels explains, shows only its measured cell). Cells inside ±½ LSB \
+         are near white."
     )
 }
 
