@@ -112,6 +112,18 @@ fn short(v: f64) -> String {
     }
 }
 
+/// A label formatter for an axis spanning `span`: as many decimals as its ticks need.
+fn axis_label(span: f64) -> impl Fn(&f64) -> String {
+    let digits = if span >= 20.0 {
+        0
+    } else if span >= 2.0 {
+        1
+    } else {
+        2
+    };
+    move |v: &f64| format!("{v:.digits$}")
+}
+
 /// `n` points from `a` to `b`, evenly spaced in log.
 fn log_space(a: f64, b: f64, n: usize) -> Vec<f64> {
     let (la, lb) = (a.ln(), b.ln());
@@ -428,7 +440,7 @@ fn precharge_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String
         mesh(&mut chart)
             .x_label_formatter(&seconds_label)
             .y_desc("mean code, LSB")
-            .y_label_formatter(&|v| short(*v))
+            .y_label_formatter(&axis_label(y_hi - y_lo))
             .draw()?;
         for (pre, c) in &curves {
             let colour = precharge_colour(m, *pre);
@@ -514,10 +526,15 @@ fn precharge_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String
             short(s)
         )
     });
+    let model = if p.fit.is_some() {
+        " Crosses: the fitted model for the cells as run; lines: the most detailed sweep replayed with \
+         its nearest sample time varied."
+    } else {
+        " No fit was made for this pin."
+    };
     let caption = format!(
-        "<b>{title}.</b> Each dot is the mean of one cell (a sample time after a precharge conversion). \
-         Crosses: the fitted model for the cells as run; lines: the most detailed sweep replayed \
-         with its nearest sample time varied.{zoom}"
+        "<b>{title}.</b> Each dot is the mean of one cell (a sample time after a precharge \
+         conversion).{model}{zoom}"
     );
     figure(&id, svg, &caption)
 }
@@ -560,7 +577,11 @@ fn period_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String {
     let x_lo = pts.iter().map(|q| q.x).fold(f64::INFINITY, f64::min) / 1.5;
     let x_hi = pts.iter().map(|q| q.x).fold(0.0, f64::max) * 1.5;
     let (mut y_lo, mut y_hi) = if settled.is_some() { (-1.0f64, 1.0f64) } else { (f64::INFINITY, f64::NEG_INFINITY) };
-    for y in pts.iter().map(|q| q.mean - s).chain(curves.iter().flat_map(|(_, c)| c.iter().map(|q| q.1))) {
+    for y in pts
+        .iter()
+        .flat_map(|q| [q.mean - s - 2.0 * q.se, q.mean - s + 2.0 * q.se])
+        .chain(curves.iter().flat_map(|(_, c)| c.iter().map(|q| q.1)))
+    {
         if y.is_finite() {
             y_lo = y_lo.min(y);
             y_hi = y_hi.max(y);
@@ -582,7 +603,7 @@ fn period_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String {
             .x_label_formatter(&seconds_label)
             .x_desc("period of [precharge, pin] pairs")
             .y_desc(if settled.is_some() { "minus settled, LSB" } else { "mean code, LSB" })
-            .y_label_formatter(&|v| short(*v))
+            .y_label_formatter(&axis_label(y_hi - y_lo))
             .draw()?;
         if settled.is_some() {
             chart.draw_series([Rectangle::new([(x_lo, -0.5), (x_hi, 0.5)], BAND.mix(0.45).filled())])?;
@@ -634,7 +655,7 @@ fn period_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String {
         "<b>{title}.</b> Pairs of [precharge, pin] conversions repeated at each period: {level}, ±2 \
          standard errors. A source that cannot refill the node between pairs droops toward the \
          precharge at short periods. Crosses: the fitted model for the cells as run; lines: the same \
-         run with its nearest period varied."
+         run with its nearest period varied (where a fit was made)."
     );
     figure(&id, svg, &caption)
 }
@@ -1339,5 +1360,25 @@ node_farads = 10e-12
         // The histogram counts every code of the noise record.
         assert!(figure("pin-0-histogram").contains(&format!("{} readings", driven.noise_codes.len())));
         assert!(driven.noise_codes.len() >= 1000);
+
+        // A survey a link fault cut short: the fault is said, the unsurveyed pin's figures
+        // say why they are empty, and the page is still whole.
+        let mut cut = r.clone();
+        cut.fault = Some("no answer <from> the board".into());
+        let p0 = &mut cut.pins[0];
+        (p0.fit, p0.noise, p0.memory) = (None, None, None);
+        p0.events.clear();
+        p0.noise_codes.clear();
+        p0.verdict = Verdict::Unknown;
+        p0.reason = Some("not surveyed: the link failed before this pin was done".into());
+        let html = survey_html(&cut, "test link");
+        assert!(html.contains("class=\"fault\">The survey was cut short: no answer &lt;from&gt; the board"));
+        assert!(html.trim_end().ends_with("</html>"));
+        for plot in ["precharge", "period", "histogram", "spectrum", "memory"] {
+            let start = html.find(&format!("<figure id=\"pin-0-{plot}\"")).unwrap();
+            let end = start + html[start..].find("</figure>").unwrap();
+            assert!(html[start..end].contains("class=\"nodata\""), "pin 0 {plot}: {}", &html[start..end]);
+        }
+        assert!(html.contains("the pin was not surveyed"));
     }
 }
