@@ -1,6 +1,7 @@
 //! The host side of ohmsight (always runs on the host, never on the target).
 pub mod advice;
 pub mod fit;
+pub mod html;
 pub mod link;
 pub mod loading;
 pub mod model;

@@ -9,7 +9,7 @@ use ohmsight::advice::{advise, AdviceOptions};
 use ohmsight::link::{InProcessLink, Link, SerialLink};
 use ohmsight::session::Session;
 use ohmsight::survey::{survey, SurveyOptions};
-use ohmsight::{loading, report, scenario};
+use ohmsight::{html, loading, report, scenario};
 use ohmsight_protocol::ChannelRole;
 use std::io::Write;
 use std::path::PathBuf;
@@ -147,6 +147,9 @@ struct SurveyArgs {
     /// Print one JSON document on stdout instead of the table.
     #[arg(long)]
     json: bool,
+    /// Also write the survey as one self-contained HTML page (plots inline, opens offline).
+    #[arg(long, value_name = "FILE")]
+    html: Option<PathBuf>,
     /// No progress bar.
     #[arg(long, short)]
     quiet: bool,
@@ -167,6 +170,7 @@ const SURVEY_EXAMPLES: &str = "Examples:
   ohmsight survey                                  the demo board, simulated
   ohmsight survey --scenario boards/virtual/scenarios/demo.toml --seed 7
   ohmsight survey --port /dev/ttyACM0 --json > unit-0042.json
+  ohmsight survey --html demo-report.html          the table, and a page with the plots
 
 The text and the JSON end with advice per pin (sample time to use, a buffer or filter
 capacitor where none settles, dummy conversions against memory, averaging) and a scan plan
@@ -412,6 +416,15 @@ fn run_survey(args: SurveyArgs) -> anyhow::Result<ExitCode> {
         report::survey_text_with(&r, &name, &advice)
     };
     print(&out)?;
+    if let Some(path) = &args.html {
+        if let Err(e) = write_page(path, &html::survey_html(&r, &name)) {
+            eprintln!(
+                "ohmsight: cannot write the HTML report to {}: {e} (the table above is complete; pick another path)",
+                path.display()
+            );
+            return Ok(ExitCode::from(EXIT_INPUT));
+        }
+    }
     if let Some(f) = &r.fault {
         // What was measured is printed above; the exit status still says the survey is partial.
         eprintln!("ohmsight: the survey was cut short: {f}");
@@ -491,4 +504,16 @@ fn run_loading(args: LoadingArgs) -> anyhow::Result<ExitCode> {
     };
     print(&out)?;
     Ok(ExitCode::SUCCESS)
+}
+
+/// Writes the page beside its destination first, so an interrupted write never leaves a
+/// half page under the name asked for.
+fn write_page(path: &std::path::Path, page: &str) -> std::io::Result<()> {
+    let mut tmp = path.as_os_str().to_owned();
+    tmp.push(".part");
+    let tmp = PathBuf::from(tmp);
+    std::fs::write(&tmp, page)?;
+    std::fs::rename(&tmp, path).inspect_err(|_| {
+        let _ = std::fs::remove_file(&tmp);
+    })
 }

@@ -10,7 +10,8 @@ use rustfft::{num_complex::Complex, FftPlanner};
 
 /// Mains frequencies looked for, Hz.
 pub const MAINS_HZ: [f64; 2] = [50.0, 60.0];
-const HARMONICS: usize = 3;
+/// Harmonics of each mains frequency fitted (the fundamental included).
+pub const HARMONICS: usize = 3;
 /// Control frequencies, Hz: near the mains lines but on none of their harmonics. A real hum
 /// line stands well above them; broadband drift (a node still recovering) does not.
 pub const CONTROL_HZ: [f64; 4] = [37.0, 43.0, 77.0, 83.0];

@@ -2,6 +2,7 @@
 
 use crate::advice::{advise, AdviceOptions, BoardAdvice, PinAdvice, ScanPlan};
 use crate::fit::Interval;
+use crate::model::BoardModel;
 use crate::survey::{PinReport, SurveyReport};
 use crate::units;
 use serde_json::{json, Map, Value};
@@ -147,6 +148,23 @@ pub fn table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
     out
 }
 
+/// `12 bits, Vref 3.30 V, hold 4.00 pF ±5%, …, 1 LSB = 806 µV`: the converter as the board
+/// described it.
+pub fn converter_text(m: &BoardModel) -> String {
+    format!(
+        "{} bits, Vref {}, hold {} ±{:.0}%, switch {} ±{:.0}%, sample times {}…{}, 1 LSB = {}",
+        m.bits,
+        units::volts(m.vref_volts),
+        units::farads(m.hold_farads),
+        m.hold_tolerance * 100.0,
+        units::ohms(m.switch_ohms),
+        m.switch_tolerance * 100.0,
+        units::ns(f64::from(m.sample_ps[0]) / 1000.0),
+        units::ns(f64::from(*m.sample_ps.last().unwrap_or(&0)) / 1000.0),
+        units::volts(m.lsb_volts()),
+    )
+}
+
 /// The human-readable survey, with advice for a sub-LSB signal of none.
 pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
     survey_text_with(r, link_name, &advise(r, &AdviceOptions::default()))
@@ -161,18 +179,7 @@ pub fn survey_text_with(r: &SurveyReport, link_name: &str, advice: &BoardAdvice)
         "ohmsight survey — board \"{}\" unit {:016x}, firmware {}, over the {}\n",
         b.name, b.unit_id, b.firmware, link_name
     );
-    out += &format!(
-        "converter: {} bits, Vref {}, hold {} ±{:.0}%, switch {} ±{:.0}%, sample times {}…{}, 1 LSB = {}\n\n",
-        m.bits,
-        units::volts(m.vref_volts),
-        units::farads(m.hold_farads),
-        m.hold_tolerance * 100.0,
-        units::ohms(m.switch_ohms),
-        m.switch_tolerance * 100.0,
-        units::ns(f64::from(m.sample_ps[0]) / 1000.0),
-        units::ns(f64::from(*m.sample_ps.last().unwrap_or(&0)) / 1000.0),
-        units::volts(m.lsb_volts()),
-    );
+    out += &format!("converter: {}\n\n", converter_text(m));
     let header =
         ["ch", "label", "verdict", "source R (95%)", "node C (95%)", "source V", "noise", "min sample", "flags"];
     let rows: Vec<[String; 9]> = r

@@ -106,6 +106,10 @@ impl Flag {
 pub struct Memory {
     /// Sample index it was measured at.
     pub sample: u8,
+    /// The channel converted before this one (the precharge farther from the pin's level).
+    pub previous: u8,
+    /// Mean reading after itself, LSB.
+    pub level_lsb: f64,
     /// Reading after the far precharge minus reading after itself, LSB.
     pub shift_lsb: f64,
     /// Standard error of that shift, LSB.
@@ -141,6 +145,8 @@ pub struct PinReport {
     pub flags: Vec<Flag>,
     /// Noise-record analysis.
     pub noise: Option<NoiseSummary>,
+    /// The raw codes of the noise record that `noise` analyses (for histograms).
+    pub noise_codes: Vec<u16>,
     /// Memory of the previous channel.
     pub memory: Option<Memory>,
     /// The fit, where one was made.
@@ -216,6 +222,7 @@ struct PinWork {
     conversions: u64,
     screen: Vec<CellObs>,
     noise: Option<NoiseSummary>,
+    noise_codes: Vec<u16>,
     rail: Option<f64>,
     /// Drift between the halves of the screening run of back-to-back pairs, LSB.
     burst_droop: f64,
@@ -403,7 +410,8 @@ impl<L: Link> Runner<'_, L> {
             settle_ns: NOISE_SETTLE_NS,
         };
         let rec = self.run(Some(pin), exp, false)?;
-        pin.noise = analyse(&rec.samples[8.min(rec.samples.len())..], f64::from(NOISE_PERIOD_NS) * 1e-9);
+        pin.noise_codes = rec.samples[8.min(rec.samples.len())..].to_vec();
+        pin.noise = analyse(&pin.noise_codes, f64::from(NOISE_PERIOD_NS) * 1e-9);
         if let Some(n) = &pin.noise {
             // Hum is nearly constant over a cell that spans a fraction of its period: it adds
             // to each cell mean as an offset. Averaged down for cells spanning many cycles.
@@ -444,7 +452,14 @@ impl<L: Link> Runner<'_, L> {
             if (coefficient * full_scale).abs() > 0.5 && shift.abs() > 3.0 * se {
                 r.flags.push(Flag::Memory);
             }
-            r.memory = Some(Memory { sample, shift_lsb: shift, shift_se_lsb: se, coefficient });
+            r.memory = Some(Memory {
+                sample,
+                previous: far,
+                level_lsb: cells[3].mean,
+                shift_lsb: shift,
+                shift_se_lsb: se,
+                coefficient,
+            });
         }
         Ok(())
     }
@@ -539,6 +554,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
             conversions: 0,
             screen: Vec::new(),
             noise: None,
+            noise_codes: Vec::new(),
             rail: None,
             burst_droop: 0.0,
             far: hi,
@@ -598,6 +614,7 @@ pub fn survey<L: Link>(session: &mut Session<L>, opts: &SurveyOptions) -> Result
         }
         r.conversions = pin.conversions;
         r.events = pin.events;
+        r.noise_codes = pin.noise_codes;
         r.flags.sort();
         r.flags.dedup();
         reports.push(r);
@@ -647,6 +664,7 @@ fn judge(model: &BoardModel, pin: &PinWork, fit: Option<Fit>) -> PinReport {
         min_sample_index: None,
         flags: Vec::new(),
         noise: None,
+        noise_codes: Vec::new(),
         memory: None,
         fit: None,
         conversions: 0,

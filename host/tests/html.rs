@@ -1,0 +1,141 @@
+//! The HTML report in a real browser: headless Chromium (Debian's `chromium`) loads the page the
+//! binary wrote for the demo board, finds every pin section and plot in the DOM it built, logs no
+//! console message, and takes a screenshot (written under the target directory; its path is
+//! printed).
+//!
+//! Chromium is required: a machine without it fails this test with a message saying what to
+//! install (CI installs the Debian package `chromium`).
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output, Stdio};
+use std::time::{Duration, Instant};
+
+/// What Chromium is called as (override with `OHMSIGHT_CHROMIUM`).
+fn chromium() -> String {
+    std::env::var("OHMSIGHT_CHROMIUM").unwrap_or_else(|_| "chromium".into())
+}
+
+fn require_chromium() {
+    let found = Command::new(chromium()).arg("--version").stdout(Stdio::null()).stderr(Stdio::null()).status();
+    assert!(
+        found.is_ok_and(|s| s.success()),
+        "`{}` was not found: this test needs a headless browser; install it (Debian/Ubuntu: \
+         `apt-get install chromium`) or point OHMSIGHT_CHROMIUM at one",
+        chromium()
+    );
+}
+
+/// Runs headless Chromium on `page` with `args`, killing it after two minutes.
+fn run_chromium(profile: &Path, page: &Path, args: &[&str]) -> Output {
+    let mut child = Command::new(chromium())
+        .args(["--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars", "--enable-logging=stderr", "--v=0"])
+        .arg(format!("--user-data-dir={}", profile.display()))
+        .args(args)
+        .arg(format!("file://{}", page.display()))
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("chromium starts");
+    let started = Instant::now();
+    // Read the pipes on threads so a large DOM cannot fill a pipe and stall the browser.
+    let mut out_pipe = child.stdout.take().unwrap();
+    let mut err_pipe = child.stderr.take().unwrap();
+    let out = std::thread::spawn(move || {
+        let mut v = Vec::new();
+        std::io::Read::read_to_end(&mut out_pipe, &mut v).map(|_| v)
+    });
+    let err = std::thread::spawn(move || {
+        let mut v = Vec::new();
+        std::io::Read::read_to_end(&mut err_pipe, &mut v).map(|_| v)
+    });
+    let status = loop {
+        if let Some(s) = child.try_wait().unwrap() {
+            break s;
+        }
+        if started.elapsed() > Duration::from_secs(120) {
+            let _ = child.kill();
+            panic!("chromium did not finish within two minutes on {}", page.display());
+        }
+        std::thread::sleep(Duration::from_millis(100));
+    };
+    Output { status, stdout: out.join().unwrap().unwrap(), stderr: err.join().unwrap().unwrap() }
+}
+
+/// Width and height from a PNG's IHDR chunk.
+fn png_size(bytes: &[u8]) -> (u32, u32) {
+    assert_eq!(&bytes[..8], b"\x89PNG\r\n\x1a\n", "a PNG signature");
+    assert_eq!(&bytes[12..16], b"IHDR");
+    let be = |i: usize| u32::from_be_bytes([bytes[i], bytes[i + 1], bytes[i + 2], bytes[i + 3]]);
+    (be(16), be(20))
+}
+
+#[test]
+fn demo_report_loads_in_chromium_with_every_pin_and_a_screenshot() {
+    require_chromium();
+    let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("html-report");
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    let page = dir.join("report-demo.html");
+
+    let out = Command::new(env!("CARGO_BIN_EXE_ohmsight"))
+        .args(["survey", "--json", "--quiet", "--html"])
+        .arg(&page)
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let doc: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let channels: Vec<u64> = doc["pins"].as_array().unwrap().iter().map(|p| p["channel"].as_u64().unwrap()).collect();
+    assert!(channels.len() >= 8);
+    let html = std::fs::read_to_string(&page).unwrap();
+    assert!(!dir.join("report-demo.html.part").exists(), "the page was written whole");
+
+    // The DOM Chromium built: the whole page parsed, every pin and plot in it.
+    let dom = run_chromium(&dir.join("profile"), &page, &["--dump-dom"]);
+    assert!(dom.status.success(), "chromium --dump-dom failed: {}", String::from_utf8_lossy(&dom.stderr));
+    let text = String::from_utf8_lossy(&dom.stdout);
+    assert!(text.contains("id=\"report-end\""), "the page loaded to its end");
+    for ch in &channels {
+        assert!(text.contains(&format!("id=\"pin-{ch}\"")), "pin {ch} has a section");
+        for plot in ["precharge", "period", "histogram", "spectrum", "memory"] {
+            assert!(text.contains(&format!("id=\"pin-{ch}-{plot}\"")), "pin {ch} has its {plot} figure");
+        }
+    }
+    assert_eq!(text.matches("<svg").count(), html.matches("<svg").count(), "every inline SVG is in the DOM");
+    assert!(html.matches("<svg").count() >= 4 * channels.len(), "most pins have most plots drawn");
+    // No script, so no console output at all: a message here means the page did something.
+    let log = String::from_utf8_lossy(&dom.stderr);
+    let console: Vec<&str> = log.lines().filter(|l| l.contains(":CONSOLE")).collect();
+    assert!(console.is_empty(), "console messages: {console:#?}");
+
+    // The screenshot, kept in the target directory (CI keeps it as an artefact).
+    let shot = dir.join("report-demo.png");
+    let run = run_chromium(
+        &dir.join("profile"),
+        &page,
+        &[&format!("--screenshot={}", shot.display()), "--window-size=1200,3000"],
+    );
+    assert!(run.status.success(), "chromium --screenshot failed: {}", String::from_utf8_lossy(&run.stderr));
+    let png = std::fs::read(&shot).expect("a screenshot file");
+    assert_eq!(png_size(&png), (1200, 3000));
+    // A blank page compresses to a few kilobytes; tables and plots do not.
+    assert!(png.len() > 100_000, "the screenshot holds a drawn page ({} bytes)", png.len());
+    println!("screenshot of the demo report: {}", shot.display());
+}
+
+#[test]
+fn a_page_that_cannot_be_written_is_bad_input_after_the_table() {
+    let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("html-report-missing");
+    let _ = std::fs::remove_dir_all(&dir);
+    let page = dir.join("no-such-folder").join("r.html");
+    let out = Command::new(env!("CARGO_BIN_EXE_ohmsight"))
+        .args(["survey", "--quiet", "--channel", "3", "--html"])
+        .arg(&page)
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2), "{}", String::from_utf8_lossy(&out.stderr));
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert!(stdout.contains("light sensor buffer"), "the table is printed first: {stdout}");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains(&page.display().to_string()), "the error names the path: {stderr}");
+    assert!(!page.exists());
+}
