@@ -13,4 +13,4 @@ mod engine;
 mod frontend;
 
 pub use engine::{BoardDescription, Engine, FIRMWARE_VERSION};
-pub use frontend::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind};
+pub use frontend::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind, SetupProgress};
