@@ -3,7 +3,7 @@
 
 use anyhow::{bail, Context, Result};
 use std::io::{BufRead, BufReader, Read};
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::sync::{Arc, Mutex};
 
@@ -23,13 +23,32 @@ pub struct Qemu {
     /// The pseudo-terminal QEMU put UART0 on (`/dev/pts/N`).
     pub device: String,
     log: Arc<Mutex<String>>,
+    monitor: PathBuf,
+}
+
+/// What cortex-m-rt's `paint-stack` start-up fills the stack with.
+const STACK_PAINT: u32 = 0xcccc_cccc;
+
+/// How much of its stack an image has used so far.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct StackUse {
+    /// Bytes from the top of the stack down to the deepest word ever written.
+    pub used: u64,
+    /// Bytes looked at (the used part can only be told within them).
+    pub window: u64,
 }
 
 impl Qemu {
     /// Starts `elf` on the emulated board and waits for QEMU to say where the UART is.
     pub fn start(elf: &Path) -> Result<Qemu> {
+        static STARTED: std::sync::atomic::AtomicU32 = std::sync::atomic::AtomicU32::new(0);
+        let n = STARTED.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+        let monitor = std::env::temp_dir().join(format!("ohmsight-qemu-{}-{n}.sock", std::process::id()));
+        let _ = std::fs::remove_file(&monitor);
         let mut cmd = Command::new(QEMU);
-        cmd.args(["-machine", MACHINE, "-display", "none", "-monitor", "none", "-serial", "pty", "-kernel"])
+        cmd.args(["-machine", MACHINE, "-display", "none", "-serial", "pty", "-monitor"])
+            .arg(format!("unix:{},server=on,wait=off", monitor.display()))
+            .arg("-kernel")
             .arg(elf)
             .stdin(Stdio::null())
             .stdout(Stdio::piped())
@@ -82,7 +101,65 @@ impl Qemu {
                 }
             }
         };
-        Ok(Qemu { child, device, log })
+        Ok(Qemu { child, device, log, monitor })
+    }
+
+    /// Reads `words` 32-bit words of guest memory at `addr` through QEMU's monitor.
+    pub fn read_words(&self, addr: u32, words: usize) -> Result<Vec<u32>> {
+        use std::io::Write;
+        let mut sock = std::os::unix::net::UnixStream::connect(&self.monitor)
+            .with_context(|| format!("connecting to QEMU's monitor at {}", self.monitor.display()))?;
+        sock.set_read_timeout(Some(std::time::Duration::from_secs(10)))?;
+        let mut text = String::new();
+        let mut buf = [0u8; 65536];
+        let mut until_prompt = |sock: &mut std::os::unix::net::UnixStream, text: &mut String| -> Result<()> {
+            while !text.ends_with("(qemu) ") {
+                let n = sock.read(&mut buf).context("reading QEMU's monitor")?;
+                if n == 0 {
+                    bail!("QEMU's monitor closed");
+                }
+                text.push_str(&String::from_utf8_lossy(&buf[..n]));
+            }
+            Ok(())
+        };
+        until_prompt(&mut sock, &mut text)?;
+        let mut out = Vec::with_capacity(words);
+        let mut at = addr;
+        while out.len() < words {
+            let chunk = (words - out.len()).min(1024);
+            text.clear();
+            writeln!(sock, "xp /{chunk}wx {at:#x}")?;
+            until_prompt(&mut sock, &mut text)?;
+            // Lines look like "0000000020000000: 0xcccccccc 0xcccccccc 0x00000000 0x20000010".
+            let got: Vec<u32> = text
+                .lines()
+                .filter_map(|l| l.split_once(": ").map(|(_, rest)| rest))
+                .flat_map(str::split_whitespace)
+                .filter_map(|w| u32::from_str_radix(w.strip_prefix("0x")?, 16).ok())
+                .collect();
+            if got.len() != chunk {
+                bail!("QEMU's monitor gave {} words for {chunk}:\n{text}", got.len());
+            }
+            out.extend(got);
+            at += 4 * chunk as u32;
+        }
+        Ok(out)
+    }
+
+    /// The deepest stack use so far of `elf` (which must be built with cortex-m-rt's
+    /// `paint-stack`), looking at most `window` bytes below the top of the stack.
+    pub fn stack_use(&self, elf: &Path, window: u64) -> Result<StackUse> {
+        use object::{Object, ObjectSymbol};
+        let bytes = std::fs::read(elf)?;
+        let file = object::File::parse(&*bytes)?;
+        let sym = |name: &str| file.symbols().find(|s| s.name() == Ok(name)).map(|s| s.address());
+        let top = sym("_stack_start").context("no _stack_start symbol (not a cortex-m-rt image?)")?;
+        let bottom = sym("_stack_end").context("no _stack_end symbol (cortex-m-rt 0.7.4 or newer needed)")?;
+        let window = window.min(top - bottom) & !3;
+        let start = top - window;
+        let words = self.read_words(start as u32, (window / 4) as usize)?;
+        let deepest = words.iter().position(|&w| w != STACK_PAINT).unwrap_or(words.len());
+        Ok(StackUse { used: window - 4 * deepest as u64, window })
     }
 
     /// Whether QEMU is still running.
@@ -105,6 +182,7 @@ impl Drop for Qemu {
     fn drop(&mut self) {
         let _ = self.child.kill();
         let _ = self.child.wait();
+        let _ = std::fs::remove_file(&self.monitor);
     }
 }
 

@@ -4,8 +4,6 @@
 #![no_std]
 #![no_main]
 
-use core::mem::MaybeUninit;
-use core::ptr::addr_of_mut;
 use cortex_m_rt::entry;
 use embedded_hal::delay::DelayNs;
 use heapless::{String, Vec};
@@ -63,15 +61,12 @@ fn board() -> BoardDescription {
     }
 }
 
-static mut ENGINE: MaybeUninit<Engine<StubAdc, SpinDelay>> = MaybeUninit::uninit();
-
 #[entry]
 fn main() -> ! {
     // SAFETY: a CMSDK UART at the MPS2 UART0 address stands for the board's UART; nothing else
     // drives it.
     let mut uart = unsafe { CmsdkUart::new(0x4000_4000, 25_000_000, 115_200) };
-    // SAFETY: `main` runs once and is the only user of ENGINE, so this is the only reference.
-    let engine = unsafe { (*addr_of_mut!(ENGINE)).write(Engine::new(StubAdc { code: 0 }, SpinDelay, board())) };
+    let mut engine = Engine::new(StubAdc { code: 0 }, SpinDelay, board());
     engine.serve(&mut uart)
 }
 

@@ -67,6 +67,11 @@ fn a_scenario_loaded_into_the_qemu_board_surveys_like_in_process() {
     agree(&remote, &local);
     let exact = remote.pins.iter().zip(&local.pins).all(|(a, b)| a.source_ohms == b.source_ohms);
     eprintln!("estimates bit-identical to the in-process survey: {exact}");
+    // The stack reserve in the footprint table must hold what a whole survey used.
+    let reserve = xtask::firmware::footprint(&image.elf).unwrap().stack_reserve;
+    let stack = qemu.stack_use(&image.elf, 4 * reserve).expect("reading the stack through QEMU's monitor");
+    eprintln!("qemu-m4 stack used by the survey: {} of {} bytes reserved", stack.used, reserve);
+    assert!(stack.used > 1024 && stack.used <= reserve, "stack {stack:?} against a reserve of {reserve} bytes");
 }
 
 #[test]
