@@ -1,6 +1,6 @@
 //! Command loop and experiment execution.
 
-use crate::frontend::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind};
+use crate::frontend::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind, SetupProgress};
 use embedded_hal::delay::DelayNs;
 use embedded_io::{Read, Write};
 use heapless::{String, Vec};
@@ -76,6 +76,17 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
         }
     }
 
+    /// [`Engine::run`] on a link that cannot fail (a polled UART): the board's main loop.
+    pub fn serve<L: Read + Write + embedded_io::ErrorType<Error = core::convert::Infallible>>(
+        &mut self,
+        link: &mut L,
+    ) -> ! {
+        match self.run(link) {
+            Ok(never) => match never {},
+            Err(never) => match never {},
+        }
+    }
+
     /// Processes received bytes; every complete request is answered on `out`.
     pub fn feed<W: Write>(&mut self, bytes: &[u8], out: &mut W) -> Result<(), W::Error> {
         for &b in bytes {
@@ -125,6 +136,17 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
                     Ok(Err(kind)) => self.send(out, &Response::Error { seq, kind }),
                     Err(e) => Err(e),
                 }
+            }
+            Request::Simulate(part) => {
+                let answer = match self.fe.simulate(part) {
+                    Ok(SetupProgress::Pending(pending)) => Response::SimLoaded { pending },
+                    Ok(SetupProgress::Ready(board)) => {
+                        self.board = board;
+                        Response::SimLoaded { pending: 0 }
+                    }
+                    Err(kind) => Response::Error { seq: 0, kind },
+                };
+                self.send(out, &answer)
             }
         }
     }
@@ -205,7 +227,7 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use ohmsight_protocol::{ChannelRole, Experiment, Precharge};
+    use ohmsight_protocol::{ChannelRole, Experiment, Precharge, SimPart};
     use std::vec::Vec as StdVec;
 
     /// A front end whose code is `100·channel + sample`, logging every conversion.
@@ -315,6 +337,55 @@ mod tests {
         assert_eq!(r[4], Response::Error { seq: 0, kind: ErrorKind::Version });
         assert!(matches!(r[5], Response::Hello { .. }));
         assert!(e.fe.log.is_empty(), "nothing was converted for refused requests");
+    }
+
+    #[test]
+    fn a_set_up_is_refused_by_a_real_converter_and_the_engine_keeps_answering() {
+        let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
+        let mut out = StdVec::new();
+        let [part, _] = SimPart::largest_for_tests();
+        let mut bytes = frame(&Request::Simulate(part));
+        bytes.extend(frame(&Request::Hello { protocol: PROTOCOL_VERSION }));
+        e.feed(&bytes, &mut out).unwrap();
+        let r = responses(&out);
+        assert_eq!(r[0], Response::Error { seq: 0, kind: ErrorKind::Unsupported });
+        assert!(matches!(&r[1], Response::Hello { board, .. } if board == "test"));
+    }
+
+    /// A front end that takes a set-up of one pin and then calls itself "rewired".
+    struct Rewirable;
+    impl AnalogFrontEnd for Rewirable {
+        type Error = core::convert::Infallible;
+        fn convert(&mut self, _: u8, _: u8) -> Result<u16, Self::Error> {
+            Ok(0)
+        }
+        fn simulate(&mut self, part: &SimPart) -> Result<SetupProgress, ErrorKind> {
+            match part {
+                SimPart::Board(b) => Ok(SetupProgress::Pending(b.pins)),
+                SimPart::Pin(_) => {
+                    let mut d = board();
+                    d.name = String::try_from("rewired").unwrap();
+                    d.channels.truncate(1);
+                    Ok(SetupProgress::Ready(d))
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn a_completed_set_up_replaces_the_board_description() {
+        let mut e = Engine::new(Rewirable, NoDelay(0), board());
+        let mut out = StdVec::new();
+        let [SimPart::Board(mut head), pin] = SimPart::largest_for_tests() else { panic!() };
+        head.pins = 1;
+        let mut bytes = frame(&Request::Simulate(SimPart::Board(head)));
+        bytes.extend(frame(&Request::Simulate(pin)));
+        bytes.extend(frame(&Request::Hello { protocol: PROTOCOL_VERSION }));
+        e.feed(&bytes, &mut out).unwrap();
+        let r = responses(&out);
+        assert_eq!(r[0], Response::SimLoaded { pending: 1 });
+        assert_eq!(r[1], Response::SimLoaded { pending: 0 });
+        assert!(matches!(&r[2], Response::Hello { board, channels: 1, .. } if board == "rewired"));
     }
 
     #[test]

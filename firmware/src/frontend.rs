@@ -1,5 +1,19 @@
 //! The board-facing trait.
 
+use crate::BoardDescription;
+use ohmsight_protocol::{ErrorKind, SimPart};
+
+/// How far a simulated set-up has been loaded (see [`AnalogFrontEnd::simulate`]).
+#[derive(Debug, Clone, PartialEq)]
+// Returned once per set-up part, and there is no heap to box it in on the target.
+#[allow(clippy::large_enum_variant)]
+pub enum SetupProgress {
+    /// Waiting for this many more pins.
+    Pending(u8),
+    /// The new set-up is live; the engine describes the board this way from now on.
+    Ready(BoardDescription),
+}
+
 /// What kind of failure a front end reports (in the style of embedded-hal's error kinds).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[non_exhaustive]
@@ -38,11 +52,21 @@ pub trait AnalogFrontEnd {
 
     /// One conversion.
     fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, Self::Error>;
+
+    /// Takes one part of a simulated set-up. Only a simulated board can be rewired over the
+    /// link; a real converter keeps this default, which refuses.
+    fn simulate(&mut self, part: &SimPart) -> Result<SetupProgress, ErrorKind> {
+        let _ = part;
+        Err(ErrorKind::Unsupported)
+    }
 }
 
 impl<T: AnalogFrontEnd + ?Sized> AnalogFrontEnd for &mut T {
     type Error = T::Error;
     fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, Self::Error> {
         T::convert(self, channel, sample)
+    }
+    fn simulate(&mut self, part: &SimPart) -> Result<SetupProgress, ErrorKind> {
+        T::simulate(self, part)
     }
 }

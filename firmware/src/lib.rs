@@ -5,7 +5,7 @@
 //! and an `embedded-io` byte link. It decodes framed [`Request`](ohmsight_protocol::Request)s,
 //! runs the experiment sequences of [`ohmsight_protocol::sequence`] and streams integer
 //! aggregates back. Bad requests get an error record; nothing here panics, allocates or uses
-//! floating point. Board crates are tiny: they build the front end and call [`Engine::run`].
+//! floating point. Board crates are tiny: they build the front end and call [`Engine::serve`].
 #![cfg_attr(not(any(test, feature = "std")), no_std)]
 #![deny(missing_docs)]
 
@@ -13,4 +13,4 @@ mod engine;
 mod frontend;
 
 pub use engine::{BoardDescription, Engine, FIRMWARE_VERSION};
-pub use frontend::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind};
+pub use frontend::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind, SetupProgress};

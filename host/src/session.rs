@@ -260,6 +260,25 @@ impl<L: Link> Session<L> {
         Ok(BoardInfo { protocol, firmware, name, unit_id, front_end, channels })
     }
 
+    /// Loads `scenario` into a simulated board over the link (the board part, then one part per
+    /// pin; a part sent twice is harmless). From then on the board describes and simulates the
+    /// new set-up, so run [`Session::handshake`] after it. A real board refuses.
+    pub fn load_scenario(&mut self, scenario: &ohmsight_virtual::Scenario) -> Result<(), SessionError> {
+        let what = "simulated set-up";
+        let mut pending = None;
+        for part in scenario.to_parts() {
+            match self.ask(&Request::Simulate(part), what)? {
+                Response::SimLoaded { pending: p } => pending = Some(p),
+                Response::Error { kind, .. } => return Err(SessionError::Refused { what, kind }),
+                other => return Err(SessionError::Unexpected(format!("{other:?} to a {what} part"))),
+            }
+        }
+        match pending {
+            Some(0) => Ok(()),
+            other => Err(SessionError::Unexpected(format!("the board still waits for {other:?} pins of the set-up"))),
+        }
+    }
+
     /// Runs an experiment, re-running it when the link loses or corrupts a record.
     /// `nominal` is its expected duration on the board (for the time-out).
     pub fn run(&mut self, experiment: &Experiment, nominal: Duration) -> Result<RunRecords, SessionError> {

@@ -219,6 +219,9 @@ mod tests {
         encode_frame(&Response::Samples { seq: u16::MAX, offset: u16::MAX, codes }, &mut out).unwrap();
         encode_frame(&Response::FrontEnd(FrontEnd::largest_for_tests()), &mut out).unwrap();
         encode_frame(&Request::Run { seq: u16::MAX, experiment: Experiment::largest_for_tests() }, &mut out).unwrap();
+        for part in SimPart::largest_for_tests() {
+            encode_frame(&Request::Simulate(part), &mut out).unwrap();
+        }
     }
 
     #[test]

@@ -24,4 +24,7 @@ pub use sequence::{Step, StepRecord, Steps, Timing};
 
 /// Version of the wire protocol. The host refuses a board that answers with another version
 /// unless told to try anyway.
-pub const PROTOCOL_VERSION: u16 = 1;
+///
+/// History: 1 the first release; 2 added [`Request::Simulate`] (loading a set-up into a
+/// simulated board), [`Response::SimLoaded`] and [`ErrorKind::BadSetup`].
+pub const PROTOCOL_VERSION: u16 = 2;

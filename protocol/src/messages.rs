@@ -52,6 +52,11 @@ pub enum Request {
         /// What to run.
         experiment: Experiment,
     },
+    /// One part of a simulated set-up (only simulated boards accept it; others answer
+    /// [`ErrorKind::Unsupported`]). Answered by [`Response::SimLoaded`]. A [`SimPart::Board`]
+    /// starts a new set-up; once all its pins have arrived the board is rebuilt and describes
+    /// the new set-up from then on (its virtual clock starts again at zero).
+    Simulate(SimPart),
 }
 
 /// Board → host.
@@ -99,6 +104,11 @@ pub enum Response {
         /// Conversions performed, precharge conversions included.
         conversions: u32,
     },
+    /// Answer to [`Request::Simulate`].
+    SimLoaded {
+        /// Pins of the set-up still to come; 0 means the new set-up is live.
+        pending: u8,
+    },
     /// The request was refused or failed; nothing more follows for it.
     Error {
         /// The run's sequence number (0 for requests without one).
@@ -132,6 +142,8 @@ pub enum ErrorKind {
     BadPosition,
     /// The host speaks another protocol version.
     Version,
+    /// A simulated set-up with values the simulator cannot use, or a pin without its board part.
+    BadSetup,
 }
 
 impl core::fmt::Display for ErrorKind {
@@ -147,7 +159,129 @@ impl core::fmt::Display for ErrorKind {
             ErrorKind::BadFrame => "the board could not decode the request frame",
             ErrorKind::BadPosition => "no channel at that position",
             ErrorKind::Version => "protocol version not supported by the board",
+            ErrorKind::BadSetup => "simulated set-up out of range or out of order (send the board part first)",
         })
+    }
+}
+
+/// Most pins a simulated set-up can wire.
+pub const MAX_SIM_PINS: usize = 16;
+
+/// A simulated set-up, sent in parts so each fits one frame: the board, then each pin.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub enum SimPart {
+    /// The board profile and how many pins follow.
+    Board(SimBoard),
+    /// One pin.
+    Pin(SimPin),
+}
+
+/// The simulated board's profile, in integers (resolution: the unit in each field's name).
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SimBoard {
+    /// Free-text name of the set-up.
+    pub name: String<48>,
+    /// Seed of the simulator's noise generator.
+    pub seed: u64,
+    /// Resolution, bits.
+    pub bits: u8,
+    /// Full-scale reference, µV.
+    pub vref_microvolts: u32,
+    /// Nominal hold capacitance, aF.
+    pub hold_attofarads: u32,
+    /// ±2σ relative uncertainty of the hold capacitance, ppm.
+    pub hold_tolerance_ppm: u32,
+    /// Nominal switch + multiplexer resistance, mΩ.
+    pub switch_milliohms: u32,
+    /// ±2σ relative uncertainty of the switch resistance, ppm.
+    pub switch_tolerance_ppm: u32,
+    /// ADC clock, mHz.
+    pub adc_clock_millihertz: u64,
+    /// Selectable sample times, thousandths of an ADC cycle, ascending.
+    pub sample_millicycles: Vec<u32, MAX_SAMPLE_TIMES>,
+    /// Conversion time, thousandths of an ADC cycle.
+    pub conversion_millicycles: u32,
+    /// Datasheet ADC noise, milli-LSB rms.
+    pub noise_millilsb: u32,
+    /// Input leakage bound, fA.
+    pub leakage_femtoamps: u32,
+    /// Number of [`SimPart::Pin`] parts that follow.
+    pub pins: u8,
+}
+
+/// What drives a simulated pin.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum SimSource {
+    /// A Thevenin source.
+    Driven {
+        /// Open-circuit voltage, µV.
+        microvolts: i32,
+        /// Source resistance, mΩ.
+        milliohms: u64,
+    },
+    /// Nothing connected.
+    Floating,
+}
+
+/// One simulated pin.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SimPin {
+    /// Position in the set-up's pin list (0-based): sending a part twice is harmless.
+    pub index: u8,
+    /// ADC channel number.
+    pub channel: u8,
+    /// Free-text label.
+    pub label: String<24>,
+    /// What drives it.
+    pub source: SimSource,
+    /// Pin + trace + filter capacitance, aF.
+    pub node_attofarads: u64,
+    /// Mains pickup amplitude, µV.
+    pub hum_microvolts: u32,
+    /// Mains frequency, mHz.
+    pub hum_millihertz: u32,
+    /// White noise at the source, µV rms.
+    pub noise_microvolts: u32,
+}
+
+impl SimPart {
+    /// The largest parts, for frame-size tests.
+    #[doc(hidden)]
+    pub fn largest_for_tests() -> [Self; 2] {
+        let mut sample_millicycles = Vec::new();
+        while sample_millicycles.push(u32::MAX).is_ok() {}
+        let mut name = String::new();
+        while name.push('\u{7ff}').is_ok() {}
+        let mut label = String::new();
+        while label.push('\u{7ff}').is_ok() {}
+        [
+            SimPart::Board(SimBoard {
+                name,
+                seed: u64::MAX,
+                bits: u8::MAX,
+                vref_microvolts: u32::MAX,
+                hold_attofarads: u32::MAX,
+                hold_tolerance_ppm: u32::MAX,
+                switch_milliohms: u32::MAX,
+                switch_tolerance_ppm: u32::MAX,
+                adc_clock_millihertz: u64::MAX,
+                sample_millicycles,
+                conversion_millicycles: u32::MAX,
+                noise_millilsb: u32::MAX,
+                leakage_femtoamps: u32::MAX,
+                pins: u8::MAX,
+            }),
+            SimPart::Pin(SimPin {
+                index: u8::MAX,
+                channel: u8::MAX,
+                label,
+                source: SimSource::Driven { microvolts: i32::MIN, milliohms: u64::MAX },
+                node_attofarads: u64::MAX,
+                hum_microvolts: u32::MAX,
+                hum_millihertz: u32::MAX,
+                noise_microvolts: u32::MAX,
+            }),
+        ]
     }
 }
 

@@ -5,6 +5,7 @@
 //! - `bench`: a 16-pin survey on the simulated board; prints wall time, conversions and link bytes.
 //! - `study`: one pin surveyed over several seeds, optionally with some of the simulated board's
 //!   non-idealities switched off; prints the estimates against the truth.
+//! - `firmware <board>`, `qemu [--scenario F]`, `size`: board images (see the library).
 
 use anyhow::{bail, Context, Result};
 use ohmsight::link::InProcessLink;
@@ -22,8 +23,12 @@ fn main() -> Result<()> {
         Some("test") => setup::test(&args[1..]),
         Some("bench") => bench(),
         Some("study") => study(&args[1..]),
+        Some("firmware") => xtask::firmware::command(&args[1..]),
+        Some("qemu") => xtask::qemu::command(&args[1..]),
+        Some("size") => xtask::firmware::size_command(),
         _ => {
             eprintln!("usage: cargo xtask test [ARGS] | bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
+            eprintln!("       cargo xtask firmware <board> | qemu [--scenario FILE] | size");
             bail!("unknown or missing command")
         }
     }

@@ -6,9 +6,11 @@ use core::ops::Deref;
 use embedded_hal::delay::DelayNs;
 use heapless::{String, Vec};
 use libm::{cos, log, round, sin, sqrt};
-use ohmsight_firmware::{AnalogFrontEnd, BoardDescription, FrontEndError, FrontEndErrorKind};
+use ohmsight_firmware::{AnalogFrontEnd, BoardDescription, FrontEndError, FrontEndErrorKind, SetupProgress};
 use ohmsight_protocol::analog::{volts_to_lsb, Network, State};
-use ohmsight_protocol::{ChannelInfo, ChannelRole, FrontEnd, Precharge};
+use ohmsight_protocol::{
+    ChannelInfo, ChannelRole, ErrorKind, FrontEnd, Precharge, SimBoard, SimPart, SimPin, MAX_SIM_PINS,
+};
 use rand_xoshiro::rand_core::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 
@@ -40,6 +42,10 @@ impl VirtualClock {
     /// Moves time forward.
     pub fn advance_ps(&self, ps: u64) {
         self.now_ps.set(self.now_ps.get() + ps);
+    }
+    /// Back to zero (a board rewired over the link starts its time again, like a fresh one).
+    pub fn restart(&self) {
+        self.now_ps.set(0);
     }
 }
 
@@ -138,6 +144,10 @@ struct SimChannel {
 /// The simulated board: implements [`AnalogFrontEnd`] over a [`VirtualClock`].
 pub struct VirtualBoard<C> {
     clock: C,
+    board_name: String<24>,
+    realism: Realism,
+    /// A set-up arriving over the link: its board part and the pins received so far.
+    staged: Option<(SimBoard, Vec<Option<SimPin>, MAX_SIM_PINS>)>,
     rng: Xoshiro256PlusPlus,
     spare_normal: Option<f64>,
     scenario_name: String<48>,
@@ -173,22 +183,23 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
 
     /// Builds the board with only some non-idealities (for studies of the fit).
     pub fn with_realism(scenario: &Scenario, clock: C, realism: Realism) -> Self {
-        let mut rng = Xoshiro256PlusPlus::seed_from_u64(scenario.seed);
-        let p = &scenario.board;
         let mut b = Self {
             clock,
+            board_name: String::try_from("virtual").unwrap_or_default(),
+            realism,
+            staged: None,
             rng: Xoshiro256PlusPlus::seed_from_u64(0),
             spare_normal: None,
-            scenario_name: scenario.name.clone(),
-            seed: scenario.seed,
+            scenario_name: String::new(),
+            seed: 0,
             description: describe(scenario),
             channels: Vec::new(),
-            hold_volts: p.vref_volts / 2.0,
-            sample_s: p.sample_cycles.iter().map(|c| c / p.adc_clock_hz).collect(),
-            conversion_s: p.conversion_cycles / p.adc_clock_hz,
-            full_scale: (1u64 << p.bits) as f64,
-            vref: p.vref_volts,
-            bits: p.bits,
+            hold_volts: 0.0,
+            sample_s: Vec::new(),
+            conversion_s: 0.0,
+            full_scale: 0.0,
+            vref: 0.0,
+            bits: 0,
             offset_lsb: 0.0,
             gain: 1.0,
             inl_lsb: 0.0,
@@ -201,11 +212,33 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
             jitter_ps: 0.0,
             conversions: 0,
         };
+        b.wire(scenario);
+        b
+    }
+
+    /// Wires the board for a scenario: the unit's deviations from its profile are drawn from
+    /// the scenario's seed, so one scenario always gives one unit.
+    fn wire(&mut self, scenario: &Scenario) {
+        let mut rng = Xoshiro256PlusPlus::seed_from_u64(scenario.seed);
+        let p = &scenario.board;
+        let b = self;
+        b.spare_normal = None;
+        b.scenario_name = scenario.name.clone();
+        b.seed = scenario.seed;
+        b.description = describe(scenario);
+        b.description.name = b.board_name.clone();
+        b.channels.clear();
+        b.hold_volts = p.vref_volts / 2.0;
+        b.sample_s = p.sample_cycles.iter().map(|c| c / p.adc_clock_hz).collect();
+        b.conversion_s = p.conversion_cycles / p.adc_clock_hz;
+        b.full_scale = (1u64 << p.bits) as f64;
+        b.vref = p.vref_volts;
+        b.bits = p.bits;
         // The unit: within the profile's ±2σ tolerance (truncated normal, σ = tolerance / 2).
         let within = |tol: f64, rng: &mut Xoshiro256PlusPlus| (normal(rng) * tol / 2.0).clamp(-tol, tol);
         // Every draw is made whatever is switched on, so one seed gives one unit.
         let on = |flag: bool, v: f64, off: f64| if flag { v } else { off };
-        let r = realism;
+        let r = b.realism;
         let hold = p.hold_farads * (1.0 + on(r.unit_spread, within(p.hold_tolerance, &mut rng), 0.0));
         let switch = p.switch_ohms * (1.0 + on(r.unit_spread, within(p.switch_tolerance, &mut rng), 0.0));
         b.offset_lsb = on(r.converter_errors, uniform(&mut rng, -0.6, 0.6), 0.0);
@@ -271,7 +304,13 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
             });
         }
         b.rng = rng;
-        b
+    }
+
+    /// Reports `name` as the board name (an image that runs the simulated board names itself).
+    pub fn named(mut self, name: &str) -> Self {
+        self.board_name = String::try_from(name).unwrap_or_default();
+        self.description.name = self.board_name.clone();
+        self
     }
 
     /// What the board tells the host about itself.
@@ -390,6 +429,39 @@ impl<C: Deref<Target = VirtualClock>> AnalogFrontEnd for VirtualBoard<C> {
         self.conversions += 1;
         Ok(code)
     }
+
+    /// Stages the parts of a set-up; when the last pin arrives the board is wired anew for it
+    /// (seeded unit, fresh nodes) and its clock starts again at zero, so a survey after a load
+    /// over the link sees what a survey of a board built for that scenario sees.
+    fn simulate(&mut self, part: &SimPart) -> Result<SetupProgress, ErrorKind> {
+        match part {
+            SimPart::Board(head) => {
+                if head.pins == 0 || usize::from(head.pins) > MAX_SIM_PINS {
+                    return Err(ErrorKind::BadSetup);
+                }
+                let mut slots = Vec::new();
+                slots.resize(usize::from(head.pins), None).map_err(|_| ErrorKind::BadSetup)?;
+                self.staged = Some((head.clone(), slots));
+                Ok(SetupProgress::Pending(head.pins))
+            }
+            SimPart::Pin(pin) => {
+                let (head, slots) = self.staged.as_mut().ok_or(ErrorKind::BadSetup)?;
+                *slots.get_mut(usize::from(pin.index)).ok_or(ErrorKind::BadSetup)? = Some(pin.clone());
+                let pending = slots.iter().filter(|p| p.is_none()).count() as u8;
+                if pending > 0 {
+                    return Ok(SetupProgress::Pending(pending));
+                }
+                let pins: Vec<SimPin, MAX_SIM_PINS> = slots.iter().flatten().cloned().collect();
+                let scenario = Scenario::from_parts(head, &pins);
+                // A set-up the simulator cannot use is dropped whole: the board keeps its old one.
+                self.staged = None;
+                let scenario = scenario?;
+                self.wire(&scenario);
+                self.clock.restart();
+                Ok(SetupProgress::Ready(self.description()))
+            }
+        }
+    }
 }
 
 fn uniform(rng: &mut Xoshiro256PlusPlus, lo: f64, hi: f64) -> f64 {
@@ -459,6 +531,7 @@ fn describe(s: &Scenario) -> BoardDescription {
 mod tests {
     use super::*;
     use crate::scenario::{BoardProfile, PinSetup};
+    use ohmsight_protocol::SimPin;
 
     fn scenario(source: Source, node_farads: f64) -> Scenario {
         let mut pins = Vec::new();
@@ -519,5 +592,78 @@ mod tests {
         let mut b = VirtualBoard::new(&scenario(Source::Floating, 5e-12), &clock);
         assert_eq!(b.convert(5, 0), Err(VirtualError::BadChannel));
         assert_eq!(b.convert(0, 8), Err(VirtualError::BadSampleTime));
+    }
+
+    fn two_pins() -> Scenario {
+        let mut s = scenario(Source::Driven { volts: 1.3, ohms: 68e3 }, 12e-12);
+        let _ = s.pins.push(PinSetup {
+            channel: 3,
+            label: String::try_from("open").unwrap(),
+            source: Source::Floating,
+            node_farads: 7.5e-12,
+            hum_volts: 0.021,
+            hum_hz: 60.0,
+            noise_volts: 0.0,
+        });
+        s.board.sample_cycles = Vec::from_slice(&[1.5, 7.5, 239.5]).unwrap();
+        s.name = String::try_from("wired over the link").unwrap();
+        s.seed = 99;
+        s
+    }
+
+    #[test]
+    fn parts_round_trip_exactly() {
+        let s = two_pins();
+        let parts: std::vec::Vec<SimPart> = s.to_parts().collect();
+        let SimPart::Board(head) = &parts[0] else { panic!("the board part comes first") };
+        assert_eq!(usize::from(head.pins), parts.len() - 1);
+        let pins: std::vec::Vec<SimPin> =
+            parts[1..].iter().map(|p| if let SimPart::Pin(p) = p { p.clone() } else { panic!() }).collect();
+        assert_eq!(Scenario::from_parts(head, &pins), Ok(s));
+    }
+
+    #[test]
+    fn a_board_rewired_over_the_link_equals_one_built_for_the_scenario() {
+        let s = two_pins();
+        let (c1, c2) = (VirtualClock::new(), VirtualClock::new());
+        let mut built = VirtualBoard::new(&s, &c1);
+        let mut rewired = VirtualBoard::new(&scenario(Source::Floating, 5e-12), &c2);
+        rewired.convert(0, 2).unwrap(); // it has lived a little before the load
+        let mut last = None;
+        for part in s.to_parts().collect::<std::vec::Vec<_>>().iter().rev() {
+            // Pins may come in any order, once the board part is in; here the board comes last
+            // and is refused first.
+            last = Some(rewired.simulate(part));
+        }
+        assert_eq!(last, Some(Ok(SetupProgress::Pending(2))));
+        let mut got = None;
+        for part in s.to_parts() {
+            got = Some(rewired.simulate(&part));
+        }
+        assert_eq!(got, Some(Ok(SetupProgress::Ready(built.description()))));
+        assert_eq!(c2.now_ps(), 0);
+        for i in 0..200u8 {
+            let (ch, sample) = ([0, 3, PRECHARGE_HIGH][usize::from(i % 3)], i % 3);
+            assert_eq!(built.convert(ch, sample), rewired.convert(ch, sample), "conversion {i}");
+        }
+    }
+
+    #[test]
+    fn bad_set_ups_are_refused_and_the_old_one_stays() {
+        let clock = VirtualClock::new();
+        let mut b = VirtualBoard::new(&two_pins(), &clock);
+        let before = b.description();
+        let parts: std::vec::Vec<SimPart> = two_pins().to_parts().collect();
+        assert_eq!(b.simulate(&parts[1]), Err(ErrorKind::BadSetup), "a pin before any board part");
+        let SimPart::Board(mut head) = parts[0].clone() else { panic!() };
+        head.sample_millicycles = Vec::from_slice(&[7500, 1500]).unwrap();
+        assert_eq!(b.simulate(&SimPart::Board(head.clone())), Ok(SetupProgress::Pending(2)));
+        assert_eq!(b.simulate(&parts[1]), Ok(SetupProgress::Pending(1)));
+        assert_eq!(b.simulate(&parts[2]), Err(ErrorKind::BadSetup), "sample times not ascending");
+        assert_eq!(b.description(), before);
+        assert_eq!(b.simulate(&parts[2]), Err(ErrorKind::BadSetup), "the refused set-up was dropped");
+        head.pins = 0;
+        assert_eq!(b.simulate(&SimPart::Board(head)), Err(ErrorKind::BadSetup));
+        assert!(b.convert(3, 2).is_ok(), "the old set-up still converts");
     }
 }

@@ -1,6 +1,8 @@
 //! What the simulated board is and what is wired to it.
 
 use heapless::{String, Vec};
+use libm::round;
+use ohmsight_protocol::{ErrorKind, SimBoard, SimPart, SimPin, SimSource};
 
 /// Most external pins a scenario can wire.
 pub const MAX_PINS: usize = 16;
@@ -96,4 +98,105 @@ pub struct Scenario {
     pub board: BoardProfile,
     /// Wired pins, by ascending channel.
     pub pins: Vec<PinSetup, MAX_PINS>,
+}
+
+impl Scenario {
+    /// The set-up as the parts [`ohmsight_protocol::Request::Simulate`] carries: the board
+    /// first, then one part per pin. Values are rounded to each field's unit (µV, mΩ, aF, fA,
+    /// mHz, thousandths of a cycle, ppm), which round-trips every value written with at most
+    /// that many decimals.
+    pub fn to_parts(&self) -> impl Iterator<Item = SimPart> + '_ {
+        let p = &self.board;
+        let board = SimBoard {
+            name: self.name.clone(),
+            seed: self.seed,
+            bits: p.bits,
+            vref_microvolts: scaled(p.vref_volts, 1e6) as u32,
+            hold_attofarads: scaled(p.hold_farads, 1e18) as u32,
+            hold_tolerance_ppm: scaled(p.hold_tolerance, 1e6) as u32,
+            switch_milliohms: scaled(p.switch_ohms, 1e3) as u32,
+            switch_tolerance_ppm: scaled(p.switch_tolerance, 1e6) as u32,
+            adc_clock_millihertz: scaled(p.adc_clock_hz, 1e3) as u64,
+            sample_millicycles: p.sample_cycles.iter().map(|&c| scaled(c, 1e3) as u32).collect(),
+            conversion_millicycles: scaled(p.conversion_cycles, 1e3) as u32,
+            noise_millilsb: scaled(p.adc_noise_lsb, 1e3) as u32,
+            leakage_femtoamps: scaled(p.leakage_amps, 1e15) as u32,
+            pins: self.pins.len() as u8,
+        };
+        let pins = self.pins.iter().enumerate().map(|(index, pin)| {
+            SimPart::Pin(SimPin {
+                index: index as u8,
+                channel: pin.channel,
+                label: pin.label.clone(),
+                source: match pin.source {
+                    Source::Driven { volts, ohms } => {
+                        SimSource::Driven { microvolts: scaled(volts, 1e6) as i32, milliohms: scaled(ohms, 1e3) as u64 }
+                    }
+                    Source::Floating => SimSource::Floating,
+                },
+                node_attofarads: scaled(pin.node_farads, 1e18) as u64,
+                hum_microvolts: scaled(pin.hum_volts, 1e6) as u32,
+                hum_millihertz: scaled(pin.hum_hz, 1e3) as u32,
+                noise_microvolts: scaled(pin.noise_volts, 1e6) as u32,
+            })
+        });
+        core::iter::once(SimPart::Board(board)).chain(pins)
+    }
+
+    /// The scenario the parts describe, or [`ErrorKind::BadSetup`] when the simulator could
+    /// not run it (no pins, a channel wired twice or out of range, a zero clock or capacitance,
+    /// sample times not ascending, more than 16 bits).
+    pub fn from_parts(board: &SimBoard, pins: &[SimPin]) -> Result<Scenario, ErrorKind> {
+        let bad = ErrorKind::BadSetup;
+        let ok = |c: bool| if c { Ok(()) } else { Err(bad) };
+        ok((6..=16).contains(&board.bits))?;
+        ok(board.vref_microvolts > 0 && board.hold_attofarads > 0 && board.switch_milliohms > 0)?;
+        ok(board.adc_clock_millihertz > 0 && board.conversion_millicycles > 0)?;
+        ok(!board.sample_millicycles.is_empty() && board.sample_millicycles[0] > 0)?;
+        ok(board.sample_millicycles.windows(2).all(|w| w[0] < w[1]))?;
+        ok(!pins.is_empty() && pins.len() <= MAX_PINS)?;
+        let profile = BoardProfile {
+            bits: board.bits,
+            vref_volts: f64::from(board.vref_microvolts) / 1e6,
+            hold_farads: f64::from(board.hold_attofarads) / 1e18,
+            hold_tolerance: f64::from(board.hold_tolerance_ppm) / 1e6,
+            switch_ohms: f64::from(board.switch_milliohms) / 1e3,
+            switch_tolerance: f64::from(board.switch_tolerance_ppm) / 1e6,
+            adc_clock_hz: board.adc_clock_millihertz as f64 / 1e3,
+            sample_cycles: board.sample_millicycles.iter().map(|&c| f64::from(c) / 1e3).collect(),
+            conversion_cycles: f64::from(board.conversion_millicycles) / 1e3,
+            adc_noise_lsb: f64::from(board.noise_millilsb) / 1e3,
+            leakage_amps: f64::from(board.leakage_femtoamps) / 1e15,
+        };
+        let mut wired: Vec<PinSetup, MAX_PINS> = Vec::new();
+        for p in pins {
+            ok(usize::from(p.channel) < MAX_PINS && p.node_attofarads > 0)?;
+            ok(!wired.iter().any(|q| q.channel == p.channel))?;
+            let source = match p.source {
+                SimSource::Driven { microvolts, milliohms } => {
+                    ok(milliohms > 0)?;
+                    Source::Driven { volts: f64::from(microvolts) / 1e6, ohms: milliohms as f64 / 1e3 }
+                }
+                SimSource::Floating => Source::Floating,
+            };
+            wired
+                .push(PinSetup {
+                    channel: p.channel,
+                    label: p.label.clone(),
+                    source,
+                    node_farads: p.node_attofarads as f64 / 1e18,
+                    hum_volts: f64::from(p.hum_microvolts) / 1e6,
+                    hum_hz: f64::from(p.hum_millihertz) / 1e3,
+                    noise_volts: f64::from(p.noise_microvolts) / 1e6,
+                })
+                .map_err(|_| bad)?;
+        }
+        wired.sort_unstable_by_key(|p| p.channel);
+        Ok(Scenario { name: board.name.clone(), seed: board.seed, board: profile, pins: wired })
+    }
+}
+
+/// `value · scale` rounded to the nearest integer (saturating where it is cast).
+fn scaled(value: f64, scale: f64) -> f64 {
+    round(value * scale)
 }
