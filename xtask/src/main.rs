@@ -3,6 +3,10 @@
 //! - `bench`: a 16-pin survey on the simulated board; prints wall time, conversions and link bytes.
 //! - `study`: one pin surveyed over several seeds, optionally with some of the simulated board's
 //!   non-idealities switched off; prints the estimates against the truth.
+//! - `accuracy`: a grid of simulated set-ups; errors, interval coverage, verdicts, cost and the
+//!   Cramér–Rao bound (see [`accuracy`]).
+
+mod accuracy;
 
 use anyhow::{bail, Context, Result};
 use ohmsight::link::InProcessLink;
@@ -17,8 +21,10 @@ fn main() -> Result<()> {
     match args.first().map(String::as_str) {
         Some("bench") => bench(),
         Some("study") => study(&args[1..]),
+        Some("accuracy") => accuracy::accuracy(&args[1..]),
         _ => {
             eprintln!("usage: cargo xtask bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
+            eprintln!("       cargo xtask accuracy [--quick] [--seeds N] [--jobs N] [--detail]");
             bail!("unknown or missing command")
         }
     }
