@@ -285,17 +285,27 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
     // Starting level: the cells read at the longest sample time.
     let longest = b.sample_ps.len().saturating_sub(1) as u8;
     let vs0 = start_level(input, longest).unwrap_or(b.vref_volts / 2.0);
+    // A source behind a large node capacitor droops under repeated sampling, so the level read
+    // at the longest sample time can sit tens of LSB from Vs; the level after the longest
+    // period of a period sweep (the node rested) is then the better start. With Vs off by
+    // that much no grid point is near the truth and LM can settle in a wrong valley.
+    let mut levels = vec![vs0];
+    if let Some(v) = rested_level(input).filter(|v| (v - vs0).abs() > 0.5 * b.lsb_volts()) {
+        levels.push(v);
+    }
     // Coarse grid over (ln Rs, ln Cn) at half-decade steps; the best few start LM.
     let mut starts: Vec<(f64, [f64; N_THETA])> = Vec::new();
-    let mut rs: f64 = RS_RANGE.0 * 10.0;
-    while rs <= RS_RANGE.1 {
-        let mut cn: f64 = 1e-12;
-        while cn <= 2e-6 {
-            let t = [rs.ln(), cn.ln(), vs0, 0.0, 0.0, OVERHEAD_START_US.ln()];
-            starts.push((p.objective(&t), t));
-            cn *= 10f64.sqrt();
+    for &vs in &levels {
+        let mut rs: f64 = RS_RANGE.0 * 10.0;
+        while rs <= RS_RANGE.1 {
+            let mut cn: f64 = 1e-12;
+            while cn <= 2e-6 {
+                let t = [rs.ln(), cn.ln(), vs, 0.0, 0.0, OVERHEAD_START_US.ln()];
+                starts.push((p.objective(&t), t));
+                cn *= 10f64.sqrt();
+            }
+            rs *= 10f64.sqrt();
         }
-        rs *= 10f64.sqrt();
     }
     starts.sort_by(|a, b| a.0.total_cmp(&b.0));
     let mut best: Option<(f64, [f64; N_THETA])> = None;
@@ -398,6 +408,20 @@ fn start_level(input: &FitInput<'_>, sample: u8) -> Option<f64> {
         }
     }
     (acc.1 > 0).then(|| input.board.code_volts(acc.0 / f64::from(acc.1)))
+}
+
+/// Mean level of the period-sweep cells at the longest period used (when it is not back to
+/// back), V: the node has had the longest time to recover toward its source there.
+fn rested_level(input: &FitInput<'_>) -> Option<f64> {
+    let mut cells: Vec<(u32, f64)> = Vec::new();
+    for ev in input.events {
+        if let (ohmsight_protocol::Experiment::PeriodSweep { periods_ns, .. }, Some(c)) = (&ev.experiment, &ev.cells) {
+            cells.extend(periods_ns.iter().zip(c).map(|(&p, c)| (p, c.mean)));
+        }
+    }
+    let longest = cells.iter().map(|c| c.0).max().filter(|&p| p > 0)?;
+    let at: Vec<f64> = cells.iter().filter(|c| c.0 == longest).map(|c| c.1).collect();
+    Some(input.board.code_volts(at.iter().sum::<f64>() / at.len() as f64))
 }
 
 fn pseudo_inverse(m: &DMatrix<f64>) -> DMatrix<f64> {

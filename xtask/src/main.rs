@@ -6,6 +6,10 @@
 //! - `study`: one pin surveyed over several seeds, optionally with some of the simulated board's
 //!   non-idealities switched off; prints the estimates against the truth.
 //! - `firmware <board>`, `qemu [--scenario F]`, `size`: board images (see the library).
+//! - `accuracy`: a grid of simulated set-ups; errors, interval coverage, verdicts, cost and the
+//!   Cramér–Rao bound (see [`accuracy`]).
+
+mod accuracy;
 
 use anyhow::{bail, Context, Result};
 use ohmsight::link::InProcessLink;
@@ -23,12 +27,14 @@ fn main() -> Result<()> {
         Some("test") => setup::test(&args[1..]),
         Some("bench") => bench(),
         Some("study") => study(&args[1..]),
+        Some("accuracy") => accuracy::accuracy(&args[1..]),
         Some("firmware") => xtask::firmware::command(&args[1..]),
         Some("qemu") => xtask::qemu::command(&args[1..]),
         Some("size") => xtask::firmware::size_command(),
         _ => {
             eprintln!("usage: cargo xtask test [ARGS] | bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
             eprintln!("       cargo xtask firmware <board> | qemu [--scenario FILE] | size");
+            eprintln!("       cargo xtask accuracy [--quick] [--seeds N] [--jobs N] [--detail]");
             bail!("unknown or missing command")
         }
     }

@@ -343,6 +343,12 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
         self.channels.first().map(|c| (c.net.hold_farads, c.net.switch_ohms)).unwrap_or((0.0, 0.0))
     }
 
+    /// The firmware overhead this unit adds before every conversion, s (its mean: the jitter
+    /// around it is not included).
+    pub fn true_overhead_s(&self) -> f64 {
+        self.overhead_ps * 1e-12
+    }
+
     fn gauss(&mut self) -> f64 {
         if let Some(z) = self.spare_normal.take() {
             return z;

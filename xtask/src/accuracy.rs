@@ -1,0 +1,851 @@
+//! `cargo xtask accuracy`: how well the survey recovers what is wired to a pin, over a grid of
+//! simulated set-ups, and how close the fit comes to the best any unbiased estimator could do.
+//!
+//! The grid: source resistances at 1 and 3.16 per decade from 100 Ω to 100 MΩ, node
+//! capacitances of 5 pF (a bare pin and short trace), 50 pF (a long trace or a cable), 1 nF
+//! and 100 nF (filter capacitors: the regime where the source only shows between conversions),
+//! on two simulated converters (the default 4 pF / 6 kΩ one and the "fast" 8 pF / 1 kΩ one),
+//! over several seeds (each seed is another unit: its hold capacitor, switch, offset and INL
+//! are drawn anew), plus open pins and pins tied to each rail through a small and a large
+//! resistor. Sixteen pins share one simulated board, as on a real one.
+//!
+//! Besides errors, coverage, verdicts and cost it prints the Cramér–Rao lower bound for `ln Rs`
+//! from the Fisher information of the host's forward model, for the experiments the survey ran
+//! on each pin, with the board's two uncertain constants and the firmware overhead as nuisance
+//! parameters under the fit's own priors (the Bayesian, Van Trees form), and the ratio of the
+//! fit's observed variance over seeds to that bound.
+
+use anyhow::{bail, Context, Result};
+use indicatif::{ProgressBar, ProgressStyle};
+use nalgebra::DMatrix;
+use ohmsight::fit::{Interval, OVERHEAD_PRIOR_US};
+use ohmsight::link::InProcessLink;
+use ohmsight::model::{predict, BoardModel, Event, PinParams};
+use ohmsight::session::Session;
+use ohmsight::survey::{survey, SurveyOptions, Verdict};
+use ohmsight::units;
+use ohmsight_tests::{covers, default_board, driven, fast_board, floating};
+use ohmsight_virtual::{BoardProfile, PinSetup, Scenario, MAX_PINS};
+use std::collections::BTreeMap;
+use std::io::IsTerminal;
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::Mutex;
+use std::time::Instant;
+
+/// Node capacitances of the full grid, F (see the module docs for why these).
+const NODE_FARADS: [f64; 4] = [5e-12, 50e-12, 1e-9, 100e-9];
+/// Node capacitances of the quick grid, F: one small and one filter capacitor.
+const QUICK_NODE_FARADS: [f64; 2] = [5e-12, 1e-9];
+/// Resistances through which pins are tied to a rail, Ω: a direct tie and a weak pull.
+const RAIL_OHMS: [f64; 2] = [100.0, 1e6];
+/// The issue's range for the median-error target, Ω: its ends, widened to the nearest grid
+/// points (3.16 kΩ … 3.16 MΩ), so the check is the stricter one.
+const ERROR_RANGE_OHMS: (f64, f64) = (3e3, 3.2e6);
+/// Median relative `Rs` error allowed in [`ERROR_RANGE_OHMS`].
+const ERROR_TARGET: f64 = 0.10;
+/// Interval coverage target over the grid.
+const COVERAGE_TARGET: (f64, f64) = (0.90, 0.99);
+/// Up to this source resistance no driven pin may be called floating, Ω.
+const CONFUSION_OHMS: f64 = 10e6;
+/// Observed variance of `ln Rs` over seeds at most this multiple of the bound.
+const CRLB_RATIO_TARGET: f64 = 2.0;
+/// `Rs` is resolvable where the bound's standard deviation of `ln Rs` is below this (a 95%
+/// interval narrower than about ±20%).
+const RESOLVABLE_SIGMA: f64 = 0.1;
+
+/// Indices of θ in the Fisher information of one pin.
+const F_VS: usize = 0;
+const F_LN_RS: usize = 1;
+const F_LN_CN: usize = 2;
+const F_LN_CH: usize = 3;
+const F_LN_RM: usize = 4;
+const F_OVERHEAD_US: usize = 5;
+const F_N: usize = 6;
+
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Truth {
+    Driven { volts: f64, ohms: f64 },
+    Floating,
+    Rail { volts: f64, ohms: f64 },
+}
+
+/// One pin of the grid.
+#[derive(Debug, Clone, Copy)]
+struct Case {
+    board: usize,
+    truth: Truth,
+    node_farads: f64,
+}
+
+/// What the survey made of one case.
+#[derive(Debug, Clone)]
+struct Outcome {
+    case: Case,
+    verdict: Verdict,
+    source_ohms: Interval,
+    /// The fit's best `ln Rs` (reported as a number or only as a bound).
+    best_ln_rs: Option<f64>,
+    /// The fit's own standard deviation of `ln Rs` (from its covariance).
+    fit_sd_ln_rs: Option<f64>,
+    conversions: u64,
+    /// Fisher information of the data at the truth (driven pins with a fit).
+    fisher: Option<DMatrix<f64>>,
+    /// Prior information of the nuisance parameters (diagonal).
+    prior: [f64; F_N],
+}
+
+struct Options {
+    quick: bool,
+    seeds: usize,
+    jobs: usize,
+    detail: bool,
+}
+
+const BOARD_NAMES: [&str; 2] = ["default", "fast"];
+
+fn boards() -> [BoardProfile; 2] {
+    [default_board(), fast_board()]
+}
+
+/// Source resistances of the grid: 1 and 3.16 per decade (only 1 per decade when quick).
+fn grid_ohms(quick: bool) -> Vec<f64> {
+    let steps = if quick { 6 } else { 12 };
+    (0..=steps).map(|k| 100.0 * 10f64.powf(f64::from(k) * 6.0 / f64::from(steps))).collect()
+}
+
+/// Every pin of the grid for one board and seed.
+fn cases(board: usize, quick: bool, vref: f64) -> Vec<Case> {
+    let farads: &[f64] = if quick { &QUICK_NODE_FARADS } else { &NODE_FARADS };
+    let mut out = Vec::new();
+    for &c in farads {
+        for (k, &r) in grid_ohms(quick).iter().enumerate() {
+            // Source levels spread over 10–90% of full scale, away from the rails.
+            let frac = (0.1 + 0.8 * ((k + 5 * out.len()) as f64 * 0.618_034).fract()) * vref;
+            out.push(Case { board, truth: Truth::Driven { volts: frac, ohms: r }, node_farads: c });
+        }
+        out.push(Case { board, truth: Truth::Floating, node_farads: c });
+    }
+    let rail_farads: &[f64] = if quick { &farads[..1] } else { &farads[..2] };
+    for &c in rail_farads {
+        for ohms in RAIL_OHMS {
+            for volts in [0.0, vref] {
+                out.push(Case { board, truth: Truth::Rail { volts, ohms }, node_farads: c });
+            }
+        }
+    }
+    out
+}
+
+fn setup(channel: u8, case: &Case) -> PinSetup {
+    match case.truth {
+        Truth::Driven { volts, ohms } | Truth::Rail { volts, ohms } => driven(channel, volts, ohms, case.node_farads),
+        Truth::Floating => floating(channel, case.node_farads),
+    }
+}
+
+/// Runs the whole grid and prints the tables.
+pub fn accuracy(args: &[String]) -> Result<()> {
+    let mut opts = Options {
+        quick: false,
+        seeds: 4,
+        jobs: std::thread::available_parallelism().map_or(1, |n| n.get()),
+        detail: false,
+    };
+    let mut it = args.iter();
+    while let Some(a) = it.next() {
+        let mut val = || it.next().context("missing value");
+        match a.as_str() {
+            "--quick" => {
+                opts.quick = true;
+                opts.seeds = opts.seeds.min(2);
+            }
+            "--seeds" => opts.seeds = val()?.parse().context("--seeds takes a whole number")?,
+            "--jobs" => opts.jobs = val()?.parse().context("--jobs takes a whole number")?,
+            "--detail" => opts.detail = true,
+            other => bail!("unknown option {other} (accuracy takes --quick, --seeds N, --jobs N, --detail)"),
+        }
+    }
+    if opts.seeds < 2 {
+        bail!("--seeds must be at least 2: the variance over seeds needs two fits");
+    }
+    let started = Instant::now();
+    let profiles = boards();
+    // Scenarios: every (board, seed) grid cut into boards of MAX_PINS pins.
+    let mut jobs: Vec<(u64, usize, Vec<Case>)> = Vec::new();
+    for (b, profile) in profiles.iter().enumerate() {
+        for seed in 0..opts.seeds {
+            let all = cases(b, opts.quick, profile.vref_volts);
+            for (chunk, pins) in all.chunks(MAX_PINS).enumerate() {
+                let scenario_seed = 50_000 + 1_000 * b as u64 + 10 * seed as u64 + chunk as u64;
+                jobs.push((scenario_seed, b, pins.to_vec()));
+            }
+        }
+    }
+    let n_pins: usize = jobs.iter().map(|j| j.2.len()).sum();
+    eprintln!(
+        "accuracy: {} simulated boards, {n_pins} pins, {} worker threads{}",
+        jobs.len(),
+        opts.jobs,
+        if opts.quick { " (quick grid)" } else { "" }
+    );
+    let bar = ProgressBar::new(jobs.len() as u64);
+    bar.set_style(
+        ProgressStyle::with_template("{spinner} {bar:30} {pos}/{len} boards · {elapsed_precise} · eta {eta}")
+            .unwrap_or_else(|_| ProgressStyle::default_bar()),
+    );
+    let interactive = std::io::stderr().is_terminal();
+    let next = AtomicUsize::new(0);
+    let results: Mutex<Vec<Outcome>> = Mutex::new(Vec::new());
+    let failure: Mutex<Option<anyhow::Error>> = Mutex::new(None);
+    std::thread::scope(|scope| {
+        for _ in 0..opts.jobs.max(1) {
+            scope.spawn(|| loop {
+                let k = next.fetch_add(1, Ordering::Relaxed);
+                let Some((seed, b, pins)) = jobs.get(k) else { break };
+                match survey_board(&profiles[*b], *seed, pins) {
+                    Ok(out) => results.lock().map(|mut r| r.extend(out)).unwrap_or(()),
+                    Err(e) => {
+                        if let Ok(mut f) = failure.lock() {
+                            f.get_or_insert(e.context(format!("board seed {seed}")));
+                        }
+                    }
+                }
+                bar.inc(1);
+                if !interactive {
+                    // No bar in a log: one line a board instead.
+                    eprintln!(
+                        "  board {}/{} done, {:.0} s",
+                        bar.position(),
+                        jobs.len(),
+                        started.elapsed().as_secs_f64()
+                    );
+                }
+            });
+        }
+    });
+    bar.finish_and_clear();
+    if let Some(e) = failure.into_inner().ok().flatten() {
+        return Err(e);
+    }
+    let outcomes = results.into_inner().map_err(|_| anyhow::anyhow!("a worker panicked"))?;
+    let misses = report(&outcomes, &opts);
+    println!(
+        "\n{} pins on {} simulated boards in {:.1} s wall time ({} worker threads)",
+        outcomes.len(),
+        jobs.len(),
+        started.elapsed().as_secs_f64(),
+        opts.jobs
+    );
+    if misses > 0 {
+        println!("{misses} target(s) missed (a benchmark: the exit code stays 0)");
+    }
+    Ok(())
+}
+
+/// Surveys one simulated board and returns what it found on each pin.
+fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case]) -> Result<Vec<Outcome>> {
+    let pins: Vec<PinSetup> = cases.iter().enumerate().map(|(ch, c)| setup(ch as u8, c)).collect();
+    let sc = Scenario {
+        name: "accuracy".try_into().unwrap_or_default(),
+        seed,
+        board: profile.clone(),
+        pins: heapless::Vec::from_slice(&pins).map_err(|_| anyhow::anyhow!("too many pins for one board"))?,
+    };
+    let mut link = InProcessLink::new(&sc);
+    let (hold, switch) = link.board().true_hold_and_switch();
+    let overhead_s = link.board().true_overhead_s();
+    let mut session = Session::new(link);
+    let r = survey(&mut session, &SurveyOptions::default()).context("survey")?;
+    let prior = prior_information(&r.model);
+    let mut out = Vec::new();
+    for (case, p) in cases.iter().zip(&r.pins) {
+        let fisher = match (case.truth, &p.fit) {
+            (Truth::Driven { volts, ohms }, Some(_)) => {
+                let truth = PinParams {
+                    source_ohms: ohms,
+                    node_farads: case.node_farads,
+                    source_volts: volts,
+                    hold_farads: hold,
+                    switch_ohms: switch,
+                    overhead_s,
+                };
+                Some(pin_fisher(&r.model, &p.events, &truth))
+            }
+            _ => None,
+        };
+        out.push(Outcome {
+            case: *case,
+            verdict: p.verdict,
+            source_ohms: p.source_ohms,
+            best_ln_rs: p.fit.as_ref().map(|f| f.theta[ohmsight::fit::LN_RS]),
+            fit_sd_ln_rs: p.fit.as_ref().map(|f| f.sigma_ln_rs),
+            conversions: p.conversions,
+            fisher,
+            prior,
+        });
+    }
+    Ok(out)
+}
+
+/// Prior information of θ: the fit's Gaussian priors on the board's hold capacitance, switch
+/// resistance (σ = half the ±2σ tolerance, in the log) and firmware overhead.
+fn prior_information(model: &BoardModel) -> [f64; F_N] {
+    let sd_ch = (1.0 + model.hold_tolerance).ln() / 2.0;
+    let sd_rm = (1.0 + model.switch_tolerance).ln() / 2.0;
+    let info = |sd: f64| if sd > 0.0 { 1.0 / (sd * sd) } else { 0.0 };
+    let mut p = [0.0; F_N];
+    p[F_LN_CH] = info(sd_ch);
+    p[F_LN_RM] = info(sd_rm);
+    p[F_OVERHEAD_US] = info(OVERHEAD_PRIOR_US);
+    p
+}
+
+/// Fisher information of one pin's cell means about θ = (Vs, ln Rs, ln Cn, ln Ch/Ch₀,
+/// ln Rm/Rm₀, overhead µs) at `truth`, for the exact experiments and counts the survey ran,
+/// each reading with the converter's noise plus quantization (`σ² + 1/12` LSB²).
+fn pin_fisher(model: &BoardModel, events: &[Event], truth: &PinParams) -> DMatrix<f64> {
+    let counts: Vec<f64> =
+        events.iter().filter_map(|e| e.cells.as_ref()).flatten().map(|c| f64::from(c.count)).collect();
+    let theta = [
+        truth.source_volts,
+        truth.source_ohms.ln(),
+        truth.node_farads.ln(),
+        (truth.hold_farads / model.hold_farads).ln(),
+        (truth.switch_ohms / model.switch_ohms).ln(),
+        truth.overhead_s * 1e6,
+    ];
+    let steps = [2e-5 * model.vref_volts, 2e-3, 2e-3, 2e-3, 2e-3, 1e-2];
+    let mean_codes = |t: &[f64]| {
+        let p = PinParams {
+            source_volts: t[F_VS],
+            source_ohms: t[F_LN_RS].exp(),
+            node_farads: t[F_LN_CN].exp(),
+            hold_farads: model.hold_farads * t[F_LN_CH].exp(),
+            switch_ohms: model.switch_ohms * t[F_LN_RM].exp(),
+            overhead_s: t[F_OVERHEAD_US].max(0.0) * 1e-6,
+        };
+        let mut out = Vec::new();
+        predict(model, &p, events, &mut out);
+        out
+    };
+    fisher_gaussian(mean_codes, &theta, &steps, &counts, model.variance_floor_lsb2())
+}
+
+/// Fisher information of independent Gaussian cell means: cell `k` averages `counts[k]`
+/// readings of variance `variance` around `μₖ(θ)`, so `J = Σₖ nₖ ∂μₖ/∂θᵀ ∂μₖ/∂θ / σ²`
+/// (Kay, Fundamentals of Statistical Signal Processing: Estimation Theory, 1993, ch. 3, the
+/// general Gaussian case with a parameter-free covariance — from memory). Derivatives by
+/// central differences with the given steps.
+pub fn fisher_gaussian(
+    mu: impl Fn(&[f64]) -> Vec<f64>,
+    theta: &[f64],
+    steps: &[f64],
+    counts: &[f64],
+    variance: f64,
+) -> DMatrix<f64> {
+    let n = theta.len();
+    let grads: Vec<Vec<f64>> = (0..n)
+        .map(|i| {
+            let (mut up, mut dn) = (theta.to_vec(), theta.to_vec());
+            up[i] += steps[i];
+            dn[i] -= steps[i];
+            let (a, b) = (mu(&up), mu(&dn));
+            a.iter().zip(&b).map(|(x, y)| (x - y) / (2.0 * steps[i])).collect()
+        })
+        .collect();
+    DMatrix::from_fn(n, n, |i, j| {
+        grads[i].iter().zip(&grads[j]).zip(counts).map(|((a, b), c)| c * a * b).sum::<f64>() / variance
+    })
+}
+
+/// `[ (J + diag(prior))⁻¹ ]ᵢᵢ`: the lower bound on the variance of parameter `i` (the Bayesian
+/// form when `prior` holds the information of Gaussian priors). Infinite when the information
+/// does not determine the parameters (singular).
+pub fn variance_bound(j: &DMatrix<f64>, prior: &[f64], i: usize) -> f64 {
+    let mut total = j.clone();
+    for (k, p) in prior.iter().enumerate() {
+        total[(k, k)] += p;
+    }
+    // Scale to unit diagonal first: θ mixes volts, logs and µs.
+    let d: Vec<f64> = (0..total.nrows()).map(|k| total[(k, k)].sqrt()).collect();
+    if d.iter().any(|x| !(x.is_finite() && *x > 0.0)) {
+        return f64::INFINITY;
+    }
+    let scaled = DMatrix::from_fn(total.nrows(), total.ncols(), |a, b| total[(a, b)] / (d[a] * d[b]));
+    let Some(chol) = scaled.cholesky() else { return f64::INFINITY };
+    // A near-singular matrix (condition beyond 1e12) does not determine the parameters.
+    let diag = chol.l_dirty().diagonal();
+    let (lo, hi) = diag.iter().fold((f64::INFINITY, 0.0f64), |(l, h), &x| (l.min(x), h.max(x)));
+    if lo <= 0.0 || (hi / lo).powi(2) > 1e12 {
+        return f64::INFINITY;
+    }
+    chol.inverse()[(i, i)] / (d[i] * d[i])
+}
+
+fn median(v: &mut [f64]) -> Option<f64> {
+    percentile(v, 0.5)
+}
+
+/// Nearest-rank percentile (`q` in 0..1); sorts `v`.
+fn percentile(v: &mut [f64], q: f64) -> Option<f64> {
+    if v.is_empty() {
+        return None;
+    }
+    v.sort_by(f64::total_cmp);
+    let rank = ((q * v.len() as f64).ceil() as usize).clamp(1, v.len());
+    Some(v[rank - 1])
+}
+
+fn pct(x: Option<f64>) -> String {
+    x.map_or("—".into(), |v| format!("{:.1}%", v * 100.0))
+}
+
+fn ratio_text(x: Option<f64>) -> String {
+    x.map_or("—".into(), |v| format!("{v:.2}"))
+}
+
+/// Decade of a resistance: 2 for 100 Ω … 999 Ω.
+fn decade(ohms: f64) -> i32 {
+    (ohms.log10() + 1e-9).floor() as i32
+}
+
+/// The grid's resistances in decade `d`, as text ("100 Ω, 316 Ω").
+fn decade_label(d: i32, all: &[f64]) -> String {
+    let mut v: Vec<f64> = all.iter().copied().filter(|&r| decade(r) == d).collect();
+    v.sort_by(f64::total_cmp);
+    v.dedup();
+    v.iter().map(|&r| units::ohms(r)).collect::<Vec<_>>().join(", ")
+}
+
+/// The variance ratio of several groups pooled by their degrees of freedom:
+/// `Σ (nᵢ−1)·sᵢ²/boundᵢ / Σ (nᵢ−1)`. Unbiased where a median of few-seed variances is not (the
+/// median of a χ² with 3 degrees of freedom over 3 is 0.79, not 1).
+fn pooled_ratio(gs: &[&Group]) -> Option<f64> {
+    let dof: f64 = gs.iter().map(|g| g.ln_rs.len() as f64 - 1.0).sum();
+    (dof > 0.0).then(|| gs.iter().map(|g| (g.ln_rs.len() as f64 - 1.0) * g.ratio()).sum::<f64>() / dof)
+}
+
+/// One (board, Rs, Cn) point of the grid over its seeds, for the bound.
+struct Group {
+    ohms: f64,
+    board: usize,
+    node_farads: f64,
+    /// Fitted ln Rs of each seed.
+    ln_rs: Vec<f64>,
+    /// √ of the bound for ln Rs.
+    bound_sd: f64,
+}
+
+impl Group {
+    fn variance(&self) -> f64 {
+        let n = self.ln_rs.len() as f64;
+        let m = self.ln_rs.iter().sum::<f64>() / n;
+        self.ln_rs.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (n - 1.0)
+    }
+    fn mse(&self) -> f64 {
+        let t = self.ohms.ln();
+        self.ln_rs.iter().map(|x| (x - t).powi(2)).sum::<f64>() / self.ln_rs.len() as f64
+    }
+    fn ratio(&self) -> f64 {
+        self.variance() / self.bound_sd.powi(2)
+    }
+    fn resolvable(&self) -> bool {
+        self.bound_sd < RESOLVABLE_SIGMA
+    }
+}
+
+/// Groups the driven pins by (board, Rs, Cn) and computes each group's bound from the Fisher
+/// information averaged over its seeds (the units differ: the Van Trees bound averages the
+/// data information over the prior) plus the prior information.
+fn groups(outcomes: &[Outcome]) -> Vec<Group> {
+    // (board, Rs bits, Cn bits) → (fitted ln Rs, data information, prior information)
+    type Seeds<'a> = (Vec<f64>, Vec<&'a DMatrix<f64>>, [f64; F_N]);
+    let mut map: BTreeMap<(usize, u64, u64), Seeds<'_>> = BTreeMap::new();
+    for o in outcomes {
+        let (Truth::Driven { ohms, .. }, Some(ln), Some(j)) = (o.case.truth, o.best_ln_rs, &o.fisher) else {
+            continue;
+        };
+        let e = map.entry((o.case.board, ohms.to_bits(), o.case.node_farads.to_bits())).or_insert((
+            Vec::new(),
+            Vec::new(),
+            o.prior,
+        ));
+        e.0.push(ln);
+        e.1.push(j);
+    }
+    map.into_iter()
+        .filter(|(_, (ln, _, _))| ln.len() >= 2)
+        .map(|((board, r, c), (ln_rs, js, prior))| {
+            let mean = js.iter().fold(DMatrix::zeros(F_N, F_N), |acc, j| acc + *j) / js.len() as f64;
+            Group {
+                ohms: f64::from_bits(r),
+                board,
+                node_farads: f64::from_bits(c),
+                ln_rs,
+                bound_sd: variance_bound(&mean, &prior, F_LN_RS).sqrt(),
+            }
+        })
+        .collect()
+}
+
+/// Prints every table and the targets; returns the number of targets missed.
+fn report(outcomes: &[Outcome], opts: &Options) -> usize {
+    let grid = if opts.quick { "quick grid" } else { "full grid" };
+    println!(
+        "ohmsight accuracy benchmark ({grid}: Rs {} per decade 100 Ω–100 MΩ, Cn {}, boards {}, {} seeds)",
+        if opts.quick { "1" } else { "1 and 3.16" },
+        (if opts.quick { &QUICK_NODE_FARADS[..] } else { &NODE_FARADS[..] })
+            .iter()
+            .map(|&c| units::farads(c))
+            .collect::<Vec<_>>()
+            .join(", "),
+        BOARD_NAMES.join(" and "),
+        opts.seeds
+    );
+    let groups = groups(outcomes);
+    let driven: Vec<&Outcome> = outcomes.iter().filter(|o| matches!(o.case.truth, Truth::Driven { .. })).collect();
+    let ohms_of = |o: &Outcome| match o.case.truth {
+        Truth::Driven { ohms, .. } | Truth::Rail { ohms, .. } => ohms,
+        Truth::Floating => f64::INFINITY,
+    };
+    let rel_err = |o: &Outcome| o.best_ln_rs.map(|l| (l.exp() / ohms_of(o) - 1.0).abs());
+
+    println!("\nSource resistance by decade (driven pins; error of the best fit, bounds included)");
+    println!(
+        "{:<16} {:>5} {:>6} {:>8} {:>8} {:>9} {:>6} {:>8} {:>8} {:>7} {:>9} {:>6} {:>9}",
+        "Rs",
+        "pins",
+        "bounds",
+        "med err",
+        "p95 err",
+        "coverage",
+        "z rms",
+        "conv/pin",
+        "CRLB sd",
+        "resolv",
+        "var/CRLB",
+        "pooled",
+        "mse/CRLB"
+    );
+    let grid: Vec<f64> = driven.iter().map(|o| ohms_of(o)).collect();
+    let mut decades: Vec<i32> = driven.iter().map(|o| decade(ohms_of(o))).collect();
+    decades.dedup();
+    decades.sort_unstable();
+    decades.dedup();
+    let mut decade_ratio: Vec<(i32, f64)> = Vec::new();
+    for &d in &decades {
+        let here: Vec<&&Outcome> = driven.iter().filter(|o| decade(ohms_of(o)) == d).collect();
+        let mut errs: Vec<f64> = here.iter().filter_map(|o| rel_err(o)).collect();
+        let bounds = here.iter().filter(|o| o.best_ln_rs.is_some() && o.source_ohms.estimate.is_none()).count();
+        let fitted: Vec<&&&Outcome> = here.iter().filter(|o| o.best_ln_rs.is_some()).collect();
+        let inside = fitted.iter().filter(|o| covers(&o.source_ohms, ohms_of(o))).count();
+        let mut conv: Vec<f64> = here.iter().map(|o| o.conversions as f64).collect();
+        let gs: Vec<&Group> = groups.iter().filter(|g| decade(g.ohms) == d).collect();
+        let mut sd: Vec<f64> = gs.iter().map(|g| g.bound_sd).collect();
+        let res: Vec<&&Group> = gs.iter().filter(|g| g.resolvable()).collect();
+        let res: Vec<&Group> = res.into_iter().copied().collect();
+        let mut ratio: Vec<f64> = res.iter().map(|g| g.ratio()).collect();
+        let mse: Vec<f64> = res.iter().map(|g| g.mse() / g.bound_sd.powi(2)).collect();
+        let mse_mean = (!mse.is_empty()).then(|| mse.iter().sum::<f64>() / mse.len() as f64);
+        let pooled = pooled_ratio(&res);
+        let med_ratio = median(&mut ratio);
+        if let Some(r) = med_ratio {
+            decade_ratio.push((d, r));
+        }
+        // The fit's own σ against its actual error: 1.0 when the reported intervals are right.
+        let zs: Vec<f64> = here
+            .iter()
+            .filter(|o| o.source_ohms.estimate.is_some())
+            .filter_map(|o| {
+                let (l, sd) = (o.best_ln_rs?, o.fit_sd_ln_rs?);
+                (sd > 0.0).then(|| (l - ohms_of(o).ln()) / sd)
+            })
+            .collect();
+        let z_rms = (!zs.is_empty()).then(|| (zs.iter().map(|z| z * z).sum::<f64>() / zs.len() as f64).sqrt());
+        println!(
+            "{:<16} {:>5} {:>6} {:>8} {:>8} {:>9} {:>6} {:>8} {:>8} {:>7} {:>9} {:>6} {:>9}",
+            decade_label(d, &grid),
+            here.len(),
+            bounds,
+            pct(median(&mut errs)),
+            pct(percentile(&mut errs, 0.95)),
+            format!("{inside}/{}", fitted.len()),
+            ratio_text(z_rms),
+            median(&mut conv).map_or("—".into(), |c| format!("{c:.0}")),
+            median(&mut sd).map_or("—".into(), |s| if s.is_finite() { format!("{:.3}", s) } else { "∞".into() }),
+            format!("{}/{}", res.len(), gs.len()),
+            ratio_text(med_ratio),
+            ratio_text(pooled),
+            ratio_text(mse_mean),
+        );
+    }
+    println!(
+        "  med/p95 err: |Rs_fit/Rs − 1|, the best fit even where only a bound is reported; bounds: pins\n  \
+         reported only as a bound; coverage: truth inside the 95% interval (bounds on their side); z rms:\n  \
+         rms of ln(Rs_fit/Rs)/σ_fit over estimates (1.00 when the fit's σ is right); conv/pin: median\n  \
+         conversions per pin; CRLB sd: median bound on the sd of ln Rs; resolv: (board, Rs, Cn) points\n  \
+         with CRLB sd < {RESOLVABLE_SIGMA}; var/CRLB: median over those points of the observed variance of\n  \
+         ln Rs over seeds / bound (with 4 seeds a median of sample variances runs ~0.8× the true one);\n  \
+         pooled: the same pooled by degrees of freedom (unbiased, but one gross misfit dominates it);\n  \
+         mse/CRLB: mean square error around the truth / bound, averaged over those points"
+    );
+
+    // Cost of the other classes.
+    for (name, pick) in [
+        ("floating", &(|t: &Truth| matches!(t, Truth::Floating)) as &dyn Fn(&Truth) -> bool),
+        ("at a rail", &|t: &Truth| matches!(t, Truth::Rail { .. })),
+    ] {
+        let mut conv: Vec<f64> =
+            outcomes.iter().filter(|o| pick(&o.case.truth)).map(|o| o.conversions as f64).collect();
+        if !conv.is_empty() {
+            println!(
+                "conversions per pin, {name}: median {:.0}, max {:.0} ({} pins)",
+                median(&mut conv).unwrap_or(0.0),
+                conv.last().copied().unwrap_or(0.0),
+                conv.len()
+            );
+        }
+    }
+
+    // Confusion matrix.
+    let verdicts = [Verdict::Driven, Verdict::Floating, Verdict::AtRail, Verdict::Unknown];
+    type Class<'a> = (&'a str, &'a dyn Fn(&Outcome) -> bool);
+    let classes: [Class<'_>; 5] = [
+        ("driven ≤ 10 MΩ", &|o| matches!(o.case.truth, Truth::Driven { ohms, .. } if ohms <= CONFUSION_OHMS)),
+        ("driven > 10 MΩ", &|o| matches!(o.case.truth, Truth::Driven { ohms, .. } if ohms > CONFUSION_OHMS)),
+        ("floating", &|o| matches!(o.case.truth, Truth::Floating)),
+        ("rail via 100 Ω", &|o| matches!(o.case.truth, Truth::Rail { ohms, .. } if ohms < 1e3)),
+        ("rail via 1 MΩ", &|o| matches!(o.case.truth, Truth::Rail { ohms, .. } if ohms >= 1e3)),
+    ];
+    println!("\nVerdicts (rows: truth, columns: verdict)");
+    println!("{:<16} {:>8} {:>9} {:>8} {:>8}", "", "driven", "floating", "at-rail", "unknown");
+    for (name, pick) in &classes {
+        let row: Vec<usize> =
+            verdicts.iter().map(|v| outcomes.iter().filter(|o| pick(o) && o.verdict == *v).count()).collect();
+        println!("{name:<16} {:>8} {:>9} {:>8} {:>8}", row[0], row[1], row[2], row[3]);
+    }
+
+    if opts.detail {
+        println!("\nPins whose verdict is not their class's");
+        for o in outcomes {
+            let want = match o.case.truth {
+                Truth::Driven { .. } => Verdict::Driven,
+                Truth::Floating => Verdict::Floating,
+                Truth::Rail { .. } => Verdict::AtRail,
+            };
+            if o.verdict != want {
+                let truth = match o.case.truth {
+                    Truth::Driven { volts, ohms } => format!("{} behind {}", units::volts(volts), units::ohms(ohms)),
+                    Truth::Floating => "open".into(),
+                    Truth::Rail { volts, ohms } => format!("rail {} behind {}", units::volts(volts), units::ohms(ohms)),
+                };
+                println!(
+                    "  {} board, {truth}, Cn {}: {} (Rs {})",
+                    BOARD_NAMES[o.case.board],
+                    units::farads(o.case.node_farads),
+                    o.verdict.as_str(),
+                    ohmsight::report::interval_text(&o.source_ohms, units::ohms)
+                );
+            }
+        }
+        println!("\nEvery (board, Rs, Cn) point: fitted ln Rs over seeds against the bound");
+        println!(
+            "{:<8} {:>10} {:>9} {:>10} {:>10} {:>10} {:>9}",
+            "board", "Rs", "Cn", "mean err", "obs sd", "CRLB sd", "var/CRLB"
+        );
+        for g in &groups {
+            let m = g.ln_rs.iter().sum::<f64>() / g.ln_rs.len() as f64;
+            println!(
+                "{:<8} {:>10} {:>9} {:>10} {:>10.4} {:>10.4} {:>9.2}",
+                BOARD_NAMES[g.board],
+                units::ohms(g.ohms),
+                units::farads(g.node_farads),
+                format!("{:+.1}%", ((m - g.ohms.ln()).exp() - 1.0) * 100.0),
+                g.variance().sqrt(),
+                g.bound_sd,
+                g.variance() / g.bound_sd.powi(2)
+            );
+        }
+    }
+
+    // Targets.
+    println!("\nTargets");
+    let mut misses = 0;
+    let mut verdict_line = |ok: bool, what: String| {
+        misses += usize::from(!ok);
+        println!("  {}  {what}", if ok { "PASS" } else { "MISS" });
+    };
+    let fitted: Vec<&&Outcome> = driven.iter().filter(|o| o.best_ln_rs.is_some()).collect();
+    let inside = fitted.iter().filter(|o| covers(&o.source_ohms, ohms_of(o))).count();
+    let share = inside as f64 / fitted.len().max(1) as f64;
+    verdict_line(
+        (COVERAGE_TARGET.0..=COVERAGE_TARGET.1).contains(&share),
+        format!(
+            "interval coverage {inside}/{} = {:.1}% (target {:.0}–{:.0}%)",
+            fitted.len(),
+            share * 100.0,
+            COVERAGE_TARGET.0 * 100.0,
+            COVERAGE_TARGET.1 * 100.0
+        ),
+    );
+    let mut errs: Vec<f64> = driven
+        .iter()
+        .filter(|o| (ERROR_RANGE_OHMS.0..=ERROR_RANGE_OHMS.1).contains(&ohms_of(o)))
+        .map(|o| rel_err(o).unwrap_or(f64::INFINITY))
+        .collect();
+    let med = median(&mut errs).unwrap_or(f64::INFINITY);
+    verdict_line(
+        med <= ERROR_TARGET,
+        format!(
+            "median Rs error {} over {} pins of 3.16 kΩ–3.16 MΩ (target ≤ {:.0}%)",
+            pct(Some(med)),
+            errs.len(),
+            ERROR_TARGET * 100.0
+        ),
+    );
+    let driven_floating = outcomes
+        .iter()
+        .filter(|o| {
+            matches!(o.case.truth, Truth::Driven { ohms, .. } | Truth::Rail { ohms, .. } if ohms <= CONFUSION_OHMS)
+                && o.verdict == Verdict::Floating
+        })
+        .count();
+    // An open pin reported as a source of at most 10 MΩ is the other confusion in that range.
+    let open_driven = |o: &&Outcome| o.case.truth == Truth::Floating && o.verdict == Verdict::Driven;
+    let floating_driven = outcomes
+        .iter()
+        .filter(open_driven)
+        .filter(|o| o.source_ohms.high.or(o.source_ohms.estimate).is_some_and(|h| h <= CONFUSION_OHMS))
+        .count();
+    verdict_line(
+        driven_floating + floating_driven == 0,
+        format!(
+            "floating/driven confusions for Rs ≤ 10 MΩ: {driven_floating} driven called floating, \
+             {floating_driven} open pins called driven ≤ 10 MΩ (target 0)"
+        ),
+    );
+    let above: Vec<&Outcome> = outcomes.iter().filter(open_driven).collect();
+    if !above.is_empty() {
+        let mut cn: Vec<String> = above.iter().map(|o| units::farads(o.case.node_farads)).collect();
+        cn.dedup();
+        println!(
+            "        (outside the target's range: {} of {} open pins called driven above 10 MΩ, node {})",
+            above.len(),
+            outcomes.iter().filter(|o| o.case.truth == Truth::Floating).count(),
+            cn.join(", ")
+        );
+    }
+    let worst = decade_ratio.iter().copied().max_by(|a, b| a.1.total_cmp(&b.1));
+    let all: Vec<&Group> = groups.iter().filter(|g| g.resolvable()).collect();
+    let grid: Vec<f64> = groups.iter().map(|g| g.ohms).collect();
+    verdict_line(
+        worst.is_some_and(|(_, r)| r <= CRLB_RATIO_TARGET),
+        format!(
+            "fit variance / CRLB where resolvable: median per decade, worst {} (target ≤ {CRLB_RATIO_TARGET})",
+            worst.map_or("—".into(), |(d, r)| format!("{r:.2} at {}", decade_label(d, &grid)))
+        ),
+    );
+    let gross = all.iter().filter(|g| g.ratio() > 10.0).count();
+    println!(
+        "        (pooled over all {} resolvable points {}; {gross} of them above 10×, where a seed's fit went astray)",
+        all.len(),
+        ratio_text(pooled_ratio(&all)),
+    );
+    misses
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn line_fit_bound_matches_the_textbook() {
+        // Kay, Fundamentals of Statistical Signal Processing: Estimation Theory (1993), ch. 3,
+        // line fitting x[n] = A + B·n + w[n], n = 0 … N−1, white Gaussian noise σ² (from
+        // memory): var(Â) ≥ 2(2N−1)σ²/(N(N+1)) and var(B̂) ≥ 12σ²/(N(N²−1)).
+        let n = 20usize;
+        let sigma2 = 0.7;
+        let mu = |t: &[f64]| (0..n).map(|k| t[0] + t[1] * k as f64).collect::<Vec<f64>>();
+        let j = fisher_gaussian(mu, &[1.5, -0.2], &[1e-3, 1e-3], &vec![1.0; n], sigma2);
+        let nf = n as f64;
+        let want_a = 2.0 * (2.0 * nf - 1.0) * sigma2 / (nf * (nf + 1.0));
+        let want_b = 12.0 * sigma2 / (nf * (nf * nf - 1.0));
+        let got_a = variance_bound(&j, &[0.0, 0.0], 0);
+        let got_b = variance_bound(&j, &[0.0, 0.0], 1);
+        assert!((got_a / want_a - 1.0).abs() < 1e-9, "A: {got_a} vs {want_a}");
+        assert!((got_b / want_b - 1.0).abs() < 1e-9, "B: {got_b} vs {want_b}");
+    }
+
+    #[test]
+    fn cell_counts_and_a_gaussian_prior_add_information() {
+        // Kay (1993) ch. 3: the mean of N readings of variance σ² has CRLB σ²/N; a cell of
+        // count N carries the same information as N cells of one. With a Gaussian prior of
+        // variance σp² the Bayesian bound is 1/(N/σ² + 1/σp²) (Kay ch. 10, the linear Gaussian
+        // model, where it is the MMSE itself; from memory).
+        let mu = |t: &[f64]| vec![t[0], t[0]];
+        let (sigma2, prior_var) = (0.25, 0.01);
+        let j = fisher_gaussian(mu, &[2.0], &[1e-3], &[30.0, 10.0], sigma2);
+        assert!((variance_bound(&j, &[0.0], 0) - sigma2 / 40.0).abs() < 1e-12);
+        let want = 1.0 / (40.0 / sigma2 + 1.0 / prior_var);
+        assert!((variance_bound(&j, &[1.0 / prior_var], 0) - want).abs() < 1e-12);
+    }
+
+    #[test]
+    fn exponential_settling_bound() {
+        // A single RC settling x[k] = A·exp(−t_k/τ) + w with A known: ∂μ/∂ln τ = A·(t/τ)·e^{−t/τ},
+        // so var(ln τ̂) ≥ σ² / Σ (A t_k/τ e^{−t_k/τ})² (the scalar CRLB, Kay 1993 ch. 3).
+        let (a, tau, sigma2) = (1000.0, 2.0, 0.4);
+        let times: Vec<f64> = (0..8).map(|k| 0.5 * f64::from(k)).collect();
+        let mu = |t: &[f64]| times.iter().map(|&x| a * (-x / t[0].exp()).exp()).collect::<Vec<f64>>();
+        let j = fisher_gaussian(mu, &[f64::ln(tau)], &[1e-4], &vec![1.0; times.len()], sigma2);
+        let info: f64 = times.iter().map(|&x| (a * x / tau * (-x / tau).exp()).powi(2)).sum::<f64>() / sigma2;
+        let got = variance_bound(&j, &[0.0], 0);
+        assert!((got * info - 1.0).abs() < 1e-6, "{got} vs {}", 1.0 / info);
+    }
+
+    #[test]
+    fn an_undetermined_parameter_has_no_finite_bound() {
+        // μ depends on a + b only: a and b cannot be told apart.
+        let mu = |t: &[f64]| vec![t[0] + t[1]; 5];
+        let j = fisher_gaussian(mu, &[1.0, 1.0], &[1e-3, 1e-3], &[1.0; 5], 1.0);
+        assert!(variance_bound(&j, &[0.0, 0.0], 0).is_infinite());
+        // A prior on b pins it down, and then a is known as well as a + b.
+        let got = variance_bound(&j, &[0.0, 1e6], 0);
+        assert!((got - 0.2).abs() < 1e-3, "{got}");
+    }
+
+    #[test]
+    fn the_grid_is_what_the_issue_asks() {
+        let r = grid_ohms(false);
+        assert_eq!(r.len(), 13);
+        assert!((r[0] - 100.0).abs() < 1e-9 && (r[12] - 100e6).abs() < 1e-3);
+        assert!((r[1] - 316.227_766).abs() < 1e-3);
+        let c = cases(0, false, 3.3);
+        // 13 Rs × 4 Cn driven, 4 open pins, 8 rail pins: four boards of 16.
+        assert_eq!(c.len(), 64);
+        assert!(c.iter().all(|c| match c.truth {
+            Truth::Driven { volts, .. } => (0.3..=3.0).contains(&volts),
+            _ => true,
+        }));
+    }
+
+    #[test]
+    fn variance_ratios_pool_by_degrees_of_freedom() {
+        // Sample variances 1 (3 dof, bound 0.5 → ratio 2) and 0.5 (1 dof, bound 1 → 0.5):
+        // pooled (3·2 + 1·0.5)/4.
+        let g = |ln_rs: Vec<f64>, bound_sd: f64| Group { ohms: 1e3, board: 0, node_farads: 1e-12, ln_rs, bound_sd };
+        let a = g(vec![-1.5, -0.5, 0.5, 1.5], (0.5f64 * 5.0 / 3.0).sqrt());
+        let b = g(vec![0.0, 1.0], 1.0);
+        assert!((a.variance() - 5.0 / 3.0).abs() < 1e-12 && (b.variance() - 0.5).abs() < 1e-12);
+        let got = pooled_ratio(&[&a, &b]).unwrap();
+        assert!((got - (3.0 * 2.0 + 0.5) / 4.0).abs() < 1e-12, "{got}");
+    }
+
+    #[test]
+    fn percentiles_by_nearest_rank() {
+        let mut v: Vec<f64> = (1..=20).map(f64::from).collect();
+        assert_eq!(percentile(&mut v, 0.95), Some(19.0));
+        assert_eq!(median(&mut v), Some(10.0));
+        assert_eq!(percentile(&mut [], 0.5), None);
+    }
+}
