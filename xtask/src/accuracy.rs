@@ -25,7 +25,7 @@ use ohmsight::session::Session;
 use ohmsight::survey::{survey, SurveyOptions, Verdict};
 use ohmsight::units;
 use ohmsight_tests::{covers, default_board, driven, fast_board, floating};
-use ohmsight_virtual::{BoardProfile, PinSetup, Scenario, MAX_PINS};
+use ohmsight_virtual::{BoardProfile, PinSetup, Realism, Scenario, MAX_PINS};
 use std::collections::BTreeMap;
 use std::io::IsTerminal;
 use std::sync::atomic::{AtomicUsize, Ordering};
@@ -99,6 +99,8 @@ struct Options {
     seeds: usize,
     jobs: usize,
     detail: bool,
+    /// The simulated board's non-idealities (all on unless switched off).
+    realism: Realism,
 }
 
 const BOARD_NAMES: [&str; 2] = ["default", "fast"];
@@ -150,6 +152,7 @@ pub fn accuracy(args: &[String]) -> Result<()> {
         seeds: 4,
         jobs: std::thread::available_parallelism().map_or(1, |n| n.get()),
         detail: false,
+        realism: Realism::full(),
     };
     let mut it = args.iter();
     while let Some(a) = it.next() {
@@ -162,7 +165,11 @@ pub fn accuracy(args: &[String]) -> Result<()> {
             "--seeds" => opts.seeds = val()?.parse().context("--seeds takes a whole number")?,
             "--jobs" => opts.jobs = val()?.parse().context("--jobs takes a whole number")?,
             "--detail" => opts.detail = true,
-            other => bail!("unknown option {other} (accuracy takes --quick, --seeds N, --jobs N, --detail)"),
+            "--ideal" => opts.realism = Realism::ideal(),
+            "--off" => crate::switch_off(&mut opts.realism, val()?)?,
+            other => bail!(
+                "unknown option {other} (accuracy takes --quick, --seeds N, --jobs N, --detail, --ideal, --off a,b)"
+            ),
         }
     }
     if opts.seeds < 2 {
@@ -202,7 +209,7 @@ pub fn accuracy(args: &[String]) -> Result<()> {
             scope.spawn(|| loop {
                 let k = next.fetch_add(1, Ordering::Relaxed);
                 let Some((seed, b, pins)) = jobs.get(k) else { break };
-                match survey_board(&profiles[*b], *seed, pins) {
+                match survey_board(&profiles[*b], *seed, pins, opts.realism) {
                     Ok(out) => results.lock().map(|mut r| r.extend(out)).unwrap_or(()),
                     Err(e) => {
                         if let Ok(mut f) = failure.lock() {
@@ -243,7 +250,7 @@ pub fn accuracy(args: &[String]) -> Result<()> {
 }
 
 /// Surveys one simulated board and returns what it found on each pin.
-fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case]) -> Result<Vec<Outcome>> {
+fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Realism) -> Result<Vec<Outcome>> {
     let pins: Vec<PinSetup> = cases.iter().enumerate().map(|(ch, c)| setup(ch as u8, c)).collect();
     let sc = Scenario {
         name: "accuracy".try_into().unwrap_or_default(),
@@ -251,7 +258,7 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case]) -> Result<Vec
         board: profile.clone(),
         pins: heapless::Vec::from_slice(&pins).map_err(|_| anyhow::anyhow!("too many pins for one board"))?,
     };
-    let mut link = InProcessLink::new(&sc);
+    let mut link = InProcessLink::with_realism(&sc, realism);
     let (hold, switch) = link.board().true_hold_and_switch();
     let overhead_s = link.board().true_overhead_s();
     let mut session = Session::new(link);
@@ -502,6 +509,9 @@ fn report(outcomes: &[Outcome], opts: &Options) -> usize {
         BOARD_NAMES.join(" and "),
         opts.seeds
     );
+    if opts.realism != Realism::full() {
+        println!("simulated board's non-idealities: {:?}", opts.realism);
+    }
     let groups = groups(outcomes);
     let driven: Vec<&Outcome> = outcomes.iter().filter(|o| matches!(o.case.truth, Truth::Driven { .. })).collect();
     let ohms_of = |o: &Outcome| match o.case.truth {

@@ -34,7 +34,7 @@ fn main() -> Result<()> {
         _ => {
             eprintln!("usage: cargo xtask test [ARGS] | bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
             eprintln!("       cargo xtask firmware <board> | qemu [--scenario FILE] | size");
-            eprintln!("       cargo xtask accuracy [--quick] [--seeds N] [--jobs N] [--detail]");
+            eprintln!("       cargo xtask accuracy [--quick] [--seeds N] [--jobs N] [--detail] [--ideal | --off a,b]");
             bail!("unknown or missing command")
         }
     }
@@ -83,6 +83,22 @@ fn bench() -> Result<()> {
     Ok(())
 }
 
+/// Switches off the simulated board's non-idealities named in a comma-separated list.
+pub(crate) fn switch_off(realism: &mut Realism, list: &str) -> Result<()> {
+    for k in list.split(',') {
+        match k {
+            "spread" => realism.unit_spread = false,
+            "converter" => realism.converter_errors = false,
+            "ktc" => realism.ktc = false,
+            "charge" => realism.charge_effects = false,
+            "leakage" => realism.leakage = false,
+            "overhead" => realism.overhead = false,
+            other => bail!("unknown effect {other} (spread, converter, ktc, charge, leakage, overhead)"),
+        }
+    }
+    Ok(())
+}
+
 fn study(args: &[String]) -> Result<()> {
     let mut ohms = 100e3;
     let mut farads = 10e-12;
@@ -103,19 +119,7 @@ fn study(args: &[String]) -> Result<()> {
             "--hold-tol" => board.hold_tolerance = val()?.parse()?,
             "--switch-tol" => board.switch_tolerance = val()?.parse()?,
             "--ideal" => realism = Realism::ideal(),
-            "--off" => {
-                for k in val()?.split(',') {
-                    match k {
-                        "spread" => realism.unit_spread = false,
-                        "converter" => realism.converter_errors = false,
-                        "ktc" => realism.ktc = false,
-                        "charge" => realism.charge_effects = false,
-                        "leakage" => realism.leakage = false,
-                        "overhead" => realism.overhead = false,
-                        other => bail!("unknown effect {other}"),
-                    }
-                }
-            }
+            "--off" => switch_off(&mut realism, val()?)?,
             "--board" => {
                 if val()? == "fast" {
                     board.hold_farads = 8e-12;
