@@ -27,6 +27,10 @@ const N_THETA: usize = 6;
 
 /// Prior standard deviation of the firmware overhead per conversion, µs (centred on zero).
 pub const OVERHEAD_PRIOR_US: f64 = 1.0;
+/// χ²/dof above which the fit searches from more starting points (a good fit is near 1).
+const MISFIT_CHI2_PER_DOF: f64 = 3.0;
+/// How many further grid points a misfit tries.
+const EXTRA_STARTS: usize = 12;
 /// Where the fit starts the overhead, µs.
 const OVERHEAD_START_US: f64 = 0.1;
 
@@ -310,6 +314,18 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
     starts.sort_by(|a, b| a.0.total_cmp(&b.0));
     let mut best: Option<(f64, [f64; N_THETA])> = None;
     for (_, t0) in starts.iter().take(3) {
+        p = consider(p, *t0, &mut best);
+    }
+    // A fit that explains the readings this badly stopped in a wrong valley (behind a large
+    // capacitor the best grid points can all lead to Rs → 0): try the next grid points too.
+    let dof = p.obs.len().saturating_sub(3).max(1) as f64;
+    let misfit = |p: &Problem<'_>, best: &Option<(f64, [f64; N_THETA])>| {
+        best.is_none_or(|(_, t)| p.chi2_data(&t) > MISFIT_CHI2_PER_DOF * dof)
+    };
+    for (_, t0) in starts.iter().skip(3).take(EXTRA_STARTS) {
+        if !misfit(&p, &best) {
+            break;
+        }
         p = consider(p, *t0, &mut best);
     }
     // The nuisance parameters can stall against their limits (the overhead at zero): restart
