@@ -488,14 +488,7 @@ pub fn scan_plan(model: &BoardModel, pins: &[PinReport]) -> ScanPlan {
         let params = match (p.verdict, &p.fit) {
             (Verdict::Driven | Verdict::AtRail, Some(f)) => f.params,
             // A rail with nothing to fit reads the rail: modelled as a stiff source (1 Ω, 1 pF).
-            (Verdict::AtRail, None) => PinParams {
-                source_ohms: 1.0,
-                node_farads: 1e-12,
-                source_volts: p.source_volts.unwrap_or(0.0),
-                hold_farads: model.hold_farads,
-                switch_ohms: model.switch_ohms,
-                overhead_s: 0.0,
-            },
+            (Verdict::AtRail, None) => PinParams::nominal(model, 1.0, 1e-12, p.source_volts.unwrap_or(0.0)),
             (v, _) => {
                 let reason = match v {
                     Verdict::Floating => "floating: nothing to read".to_string(),
@@ -703,17 +696,6 @@ mod tests {
         BoardModel::from_front_end(&fe)
     }
 
-    fn params(b: &BoardModel, rs: f64, cn: f64, vs: f64) -> PinParams {
-        PinParams {
-            source_ohms: rs,
-            node_farads: cn,
-            source_volts: vs,
-            hold_farads: b.hold_farads,
-            switch_ohms: b.switch_ohms,
-            overhead_s: 0.0,
-        }
-    }
-
     #[test]
     fn filter_capacitor_rule_by_hand() {
         // 12 bits, Ch = 4 pF: 2^13 · 4 pF = 8192 · 4 pF = 32.768 nF.
@@ -782,7 +764,7 @@ mod tests {
         // a full-scale step of 4096 LSB (source at 0 V, hold at Vref) leaves 616.5 LSB after
         // one and 92.8 LSB after two.
         let b = board(&[500.0]);
-        let p = params(&b, 60e3, 1e-18, 0.0);
+        let p = PinParams::nominal(&b, 60e3, 1e-18, 0.0);
         let got = after_dummy_lsb(&b, &p, 0);
         let want = 4096.0 * (-2.0 * 500e-9 / 264e-9f64).exp();
         assert!((got - want).abs() / want < 1e-3, "{got} vs {want}");
@@ -809,7 +791,7 @@ mod tests {
     }
 
     fn scan_pin(b: &BoardModel, ch: u8, rs: f64, cn: f64, vs: f64, sample: u8) -> ScanPin {
-        ScanPin { channel: ch, params: params(b, rs, cn, vs), sample, dummies: 0 }
+        ScanPin { channel: ch, params: PinParams::nominal(b, rs, cn, vs), sample, dummies: 0 }
     }
 
     #[test]

@@ -132,9 +132,8 @@ impl<'a> Problem<'a> {
             })
             .collect();
         let obs = cells.iter().map(|(c, k)| (c.mean, cell_se(c.variance.max(floor), c.count, *k))).collect();
-        let ln_tol = |t: f64| (1.0 + t).ln();
-        let prior_sigma =
-            [0.0, 0.0, 0.0, ln_tol(b.hold_tolerance) / 2.0, ln_tol(b.switch_tolerance) / 2.0, OVERHEAD_PRIOR_US];
+        let [sd_ch, sd_rm, sd_overhead] = nuisance_prior_sd(b);
+        let prior_sigma = [0.0, 0.0, 0.0, sd_ch, sd_rm, sd_overhead];
         let bounds = [
             (RS_RANGE.0.ln(), RS_RANGE.1.ln()),
             (CN_RANGE.0.ln(), CN_RANGE.1.ln()),
@@ -277,6 +276,13 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
 fn minimize(p: Problem<'_>) -> Problem<'_> {
     let (p, _report) = LevenbergMarquardt::new().with_patience(200).with_tol(1e-12).minimize(p);
     p
+}
+
+/// Standard deviations of the fit's Gaussian priors on its nuisance parameters: `ln Ch` and
+/// `ln Rm` (half the log of the profile's ±2σ tolerance) and the firmware overhead, µs.
+pub fn nuisance_prior_sd(b: &BoardModel) -> [f64; 3] {
+    let ln_tol = |t: f64| (1.0 + t).ln();
+    [ln_tol(b.hold_tolerance) / 2.0, ln_tol(b.switch_tolerance) / 2.0, OVERHEAD_PRIOR_US]
 }
 
 /// Fits one pin. Returns `None` when there is nothing to fit.

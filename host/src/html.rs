@@ -1189,17 +1189,6 @@ mod tests {
         BoardModel::from_front_end(&fe)
     }
 
-    fn params(b: &BoardModel, rs: f64, cn: f64, vs: f64) -> PinParams {
-        PinParams {
-            source_ohms: rs,
-            node_farads: cn,
-            source_volts: vs,
-            hold_farads: b.hold_farads,
-            switch_ohms: b.switch_ohms,
-            overhead_s: 0.0,
-        }
-    }
-
     fn event(exp: Experiment) -> Event {
         Event {
             experiment: exp,
@@ -1224,7 +1213,7 @@ mod tests {
         // capacitor by a third of an LSB).
         let b = board(&[100.0, 400.0, 1600.0]);
         let (rs, vs) = (20e3, 2.0);
-        let p = params(&b, rs, 1e-15, vs);
+        let p = PinParams::nominal(&b, rs, 1e-15, vs);
         let exp = Experiment::PrechargeSweep {
             target: 3,
             precharges: heapless::Vec::from_slice(&[16]).unwrap(),
@@ -1253,7 +1242,7 @@ mod tests {
         // node capacitor the node settles at Vs − (Vs − Vpre)·Rs/(Rs + P/Ch).
         let b = board(&[100.0, 2000.0]);
         let (rs, vs) = (100e3, 1.65);
-        let p = params(&b, rs, 10e-9, vs);
+        let p = PinParams::nominal(&b, rs, 10e-9, vs);
         let exp = Experiment::PeriodSweep {
             target: 3,
             precharge: 16,

@@ -109,6 +109,19 @@ pub struct PinParams {
 }
 
 impl PinParams {
+    /// A pin of `source_volts` behind `source_ohms` with node `node_farads`, on a board whose
+    /// hold capacitor and switch are as its profile states, with no firmware overhead.
+    pub fn nominal(model: &BoardModel, source_ohms: f64, node_farads: f64, source_volts: f64) -> Self {
+        PinParams {
+            source_ohms,
+            node_farads,
+            source_volts,
+            hold_farads: model.hold_farads,
+            switch_ohms: model.switch_ohms,
+            overhead_s: 0.0,
+        }
+    }
+
     /// The network these parameters describe (no leakage: the host does not model it).
     pub fn network(&self) -> Network {
         Network {

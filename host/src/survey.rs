@@ -779,17 +779,6 @@ mod tests {
         BoardModel::from_front_end(&fe)
     }
 
-    fn params(rs: f64, cn: f64, vs: f64, b: &BoardModel) -> PinParams {
-        PinParams {
-            source_ohms: rs,
-            node_farads: cn,
-            source_volts: vs,
-            hold_farads: b.hold_farads,
-            switch_ohms: b.switch_ohms,
-            overhead_s: 0.0,
-        }
-    }
-
     #[test]
     fn min_sample_follows_the_rc_settling_rule() {
         // Textbook: a single-pole RC settles a full-scale step to ½ LSB of an N-bit converter in
@@ -802,7 +791,7 @@ mod tests {
             let need_s = tau * (2f64.powi(13)).ln();
             let want = cycles.iter().position(|c| c / 14e6 >= need_s * 1.0005);
             // Full scale from 0 V to Vref with the source at Vref is the worst case here.
-            let got = min_sample_index(&b, &params(rs, 1e-18, 3.3, &b)).map(usize::from);
+            let got = min_sample_index(&b, &PinParams::nominal(&b, rs, 1e-18, 3.3)).map(usize::from);
             assert_eq!(got, want, "Rs = {rs} Ω needs {:.0} ns", need_s * 1e9);
         }
     }
@@ -813,7 +802,7 @@ mod tests {
         // Vref·Ch/(Ch + Cn) ≈ 0.26 mV < ½ LSB (0.40 mV), so even the shortest sample time settles
         // whatever the source resistance — while 1 nF (26 mV) does not settle at 10 MΩ.
         let b = board(&[1.5, 239.5], 14e6, 8e-12, 1e3, 12);
-        assert_eq!(min_sample_index(&b, &params(10e6, 100e-9, 1.65, &b)), Some(0));
-        assert_eq!(min_sample_index(&b, &params(10e6, 1e-9, 1.65, &b)), None);
+        assert_eq!(min_sample_index(&b, &PinParams::nominal(&b, 10e6, 100e-9, 1.65)), Some(0));
+        assert_eq!(min_sample_index(&b, &PinParams::nominal(&b, 10e6, 1e-9, 1.65)), None);
     }
 }

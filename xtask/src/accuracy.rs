@@ -18,7 +18,7 @@
 use anyhow::{bail, Context, Result};
 use indicatif::{ProgressBar, ProgressStyle};
 use nalgebra::DMatrix;
-use ohmsight::fit::{Interval, OVERHEAD_PRIOR_US};
+use ohmsight::fit::{nuisance_prior_sd, Interval};
 use ohmsight::link::InProcessLink;
 use ohmsight::model::{predict, BoardModel, Event, PinParams};
 use ohmsight::session::Session;
@@ -297,13 +297,12 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
 /// Prior information of θ: the fit's Gaussian priors on the board's hold capacitance, switch
 /// resistance (σ = half the ±2σ tolerance, in the log) and firmware overhead.
 fn prior_information(model: &BoardModel) -> [f64; F_N] {
-    let sd_ch = (1.0 + model.hold_tolerance).ln() / 2.0;
-    let sd_rm = (1.0 + model.switch_tolerance).ln() / 2.0;
+    let [sd_ch, sd_rm, sd_overhead] = nuisance_prior_sd(model);
     let info = |sd: f64| if sd > 0.0 { 1.0 / (sd * sd) } else { 0.0 };
     let mut p = [0.0; F_N];
     p[F_LN_CH] = info(sd_ch);
     p[F_LN_RM] = info(sd_rm);
-    p[F_OVERHEAD_US] = info(OVERHEAD_PRIOR_US);
+    p[F_OVERHEAD_US] = info(sd_overhead);
     p
 }
 

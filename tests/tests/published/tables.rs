@@ -27,14 +27,7 @@ fn board(sample_s: &[f64], hold_farads: f64, switch_ohms: f64, bits: u8, vref_vo
 /// A pin at full scale behind `ohms`, node `farads`: the step from a hold capacitor left at
 /// 0 V is full scale, the worst case the tables are written for.
 fn pin(b: &BoardModel, ohms: f64, farads: f64) -> PinParams {
-    PinParams {
-        source_ohms: ohms,
-        node_farads: farads,
-        source_volts: b.vref_volts,
-        hold_farads: b.hold_farads,
-        switch_ohms: b.switch_ohms,
-        overhead_s: 0.0,
-    }
+    PinParams::nominal(b, ohms, farads, b.vref_volts)
 }
 
 /// Acquisition time vs maximum source resistance of a 12-bit successive-approximation ADC with
