@@ -6,6 +6,7 @@ pub mod link;
 pub mod loading;
 pub mod model;
 pub mod noise;
+pub mod output;
 pub mod ports;
 pub mod report;
 pub mod scenario;
