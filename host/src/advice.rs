@@ -10,8 +10,8 @@
 //! error is computed with the same sampling-network equations the fit uses
 //! ([`ohmsight_protocol::analog`]), applied to the fitted parameters.
 
+use crate::judge::{min_sample_index, Flag, PinReport, SurveyReport, Verdict};
 use crate::model::{BoardModel, PinParams};
-use crate::survey::{min_sample_index, Flag, PinReport, SurveyReport, Verdict};
 use nalgebra::{DMatrix, DVector};
 use ohmsight_protocol::analog::State;
 
@@ -35,7 +35,7 @@ pub struct AdviceOptions {
 }
 
 /// The sample-time setting to use.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct SampleChoice {
     /// Index in the board's sample-time table.
     pub index: u8,
@@ -44,7 +44,7 @@ pub struct SampleChoice {
 }
 
 /// What to do when no selectable sample time settles.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct SettleFix {
     /// Source resistance the numbers are computed for (the upper end of its 95% interval), Ω.
     pub source_ohms: f64,
@@ -66,7 +66,7 @@ pub struct SettleFix {
 }
 
 /// Memory of the previous channel, and what to do about it.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct MemoryFix {
     /// Measured shift of the reading with the previous channel a full scale away, LSB.
     pub worst_shift_lsb: f64,
@@ -78,7 +78,7 @@ pub struct MemoryFix {
 }
 
 /// Averaging for a signal smaller than one LSB.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Averaging {
     /// The signal to resolve, V.
     pub resolve_volts: f64,
@@ -98,7 +98,7 @@ pub struct Averaging {
 }
 
 /// Advice for one pin.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct PinAdvice {
     /// Channel.
     pub channel: u8,

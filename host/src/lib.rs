@@ -1,17 +1,42 @@
 //! The host side of ohmsight (always runs on the host, never on the target).
+//!
+//! The data flow, one module a step:
+//!
+//! | step | module | what it does |
+//! |---|---|---|
+//! | plan | [`plan`] | which experiments each pin gets, from what the earlier ones showed |
+//! | run | [`run`] over [`link`] and [`session`] | executes the plan on a board, emits [`run::RunEvent`]s |
+//! | record | [`record`] | the typed, versioned run record and its JSON documents |
+//! | model and fit | [`model`], [`fit`], [`noise`] | the sampling network's forward model, the fit, noise records |
+//! | analyse | [`analyse`] | a record's pins rebuilt, fitted and judged (live and `refit` alike) |
+//! | judge | [`judge`] | verdicts, flags, settling, memory |
+//! | advise | [`advice`], [`loading`] | sample times, fixes, the scan plan; instrument loading |
+//! | render | [`render`] | text, JSON, HTML |
+//! | store | [`store`] | SQLite or PostgreSQL, committed experiment by experiment |
+//!
+//! Around them: [`scenario`] (simulated boards), [`simulate`] and [`ports`] (serial tools),
+//! [`output`] (writing the files a user names), [`units`].
 pub mod advice;
+pub mod analyse;
 pub mod fit;
-pub mod html;
+pub mod judge;
 pub mod link;
 pub mod loading;
 pub mod model;
 pub mod noise;
 pub mod output;
+pub mod plan;
 pub mod ports;
-pub mod report;
+pub mod record;
+pub mod render;
+pub mod run;
 pub mod scenario;
 pub mod session;
 #[cfg(unix)]
 pub mod simulate;
-pub mod survey;
+pub mod store;
 pub mod units;
+
+pub use judge::{Flag, PinReport, SurveyReport, Verdict};
+pub use record::RunRecord;
+pub use run::{survey, survey_with, RunEvent, SurveyError, SurveyOptions};

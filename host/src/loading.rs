@@ -12,6 +12,7 @@
 //! source: the instrument defines the node.
 
 use crate::fit::Interval;
+use crate::record::Document;
 use serde_json::{json, Value};
 use std::f64::consts::PI;
 
@@ -153,42 +154,26 @@ impl std::fmt::Display for FactsError {
 
 impl std::error::Error for FactsError {}
 
-fn interval_of(v: &Value) -> Interval {
-    Interval { estimate: v["estimate"].as_f64(), low: v["low"].as_f64(), high: v["high"].as_f64() }
-}
-
-/// Reads one pin's facts from a survey document (as `ohmsight survey --json` writes it).
-pub fn facts_from_survey(doc: &Value, pin: u8) -> Result<PinFacts, FactsError> {
-    let schema = doc["schema"].as_str().unwrap_or("none");
-    if schema != crate::report::SURVEY_SCHEMA {
-        return Err(FactsError::NotASurvey(format!(
-            "its schema is \"{schema}\", expected \"{}\" (write one with `ohmsight survey --json > run.json`)",
-            crate::report::SURVEY_SCHEMA
-        )));
-    }
-    let need = |v: &Value, what: &str| -> Result<f64, FactsError> {
-        v.as_f64().ok_or_else(|| FactsError::NotASurvey(format!("{what} is missing or not a number")))
-    };
-    let board = &doc["board"];
-    let bits = need(&board["bits"], "board.bits")?;
-    let vref_volts = need(&board["vref_volts"], "board.vref_volts")?;
-    let pins = doc["pins"].as_array().ok_or_else(|| FactsError::NotASurvey("pins is missing".into()))?;
-    let have: Vec<u8> = pins.iter().filter_map(|p| p["channel"].as_u64()).map(|c| c as u8).collect();
-    let p = pins
+/// Reads one pin's facts from a survey document (`ohmsight.survey.v2`, or v1 of earlier
+/// versions).
+pub fn facts_from_document(doc: &Document, pin: u8) -> Result<PinFacts, FactsError> {
+    let results = doc.results();
+    let p = results
+        .pins
         .iter()
-        .find(|p| p["channel"].as_u64() == Some(u64::from(pin)))
-        .ok_or(FactsError::NoSuchPin { pin, have })?;
+        .find(|p| p.channel == pin)
+        .ok_or_else(|| FactsError::NoSuchPin { pin, have: results.pins.iter().map(|p| p.channel).collect() })?;
     Ok(PinFacts {
         channel: pin,
-        label: p["label"].as_str().unwrap_or("").into(),
-        verdict: p["verdict"].as_str().unwrap_or("unknown").into(),
-        reason: p["reason"].as_str().map(String::from),
-        source_volts: p["source_volts"].as_f64(),
-        source_ohms: interval_of(&p["source_ohms"]),
-        node_farads: interval_of(&p["node_farads"]),
-        bits: bits as u8,
-        vref_volts,
-        board: board["name"].as_str().unwrap_or("").into(),
+        label: p.label.clone(),
+        verdict: p.verdict.clone(),
+        reason: p.reason.clone(),
+        source_volts: p.source_volts,
+        source_ohms: (&p.source_ohms).into(),
+        node_farads: (&p.node_farads).into(),
+        bits: results.board.bits,
+        vref_volts: results.board.vref_volts,
+        board: results.board.name.clone(),
     })
 }
 
@@ -442,8 +427,8 @@ pub fn loading_text(l: &Loading) -> String {
         "pin: {}, source {} behind {}, node {}\n",
         p.verdict,
         p.source_volts.map_or("—".into(), volts),
-        crate::report::interval_text(&p.source_ohms, ohms),
-        crate::report::interval_text(&p.node_farads, farads),
+        crate::render::text::interval_text(&p.source_ohms, ohms),
+        crate::render::text::interval_text(&p.node_farads, farads),
     );
     let i = &l.instrument;
     out += &format!(
@@ -484,7 +469,7 @@ pub fn loading_text(l: &Loading) -> String {
                 ]
             })
             .collect();
-        out += &crate::report::table(&header, &rows);
+        out += &crate::render::text::table(&header, &rows);
     }
     out += &format!("\nverdict: {}", l.outcome.as_str());
     if let Some(t) = l.trust_below_ohms {

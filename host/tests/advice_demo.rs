@@ -5,7 +5,7 @@ use ohmsight::advice::{advise, min_filter_farads, min_period_s, AdviceOptions};
 use ohmsight::link::InProcessLink;
 use ohmsight::scenario;
 use ohmsight::session::Session;
-use ohmsight::survey::{survey, SurveyOptions};
+use ohmsight::{survey, SurveyOptions};
 
 #[test]
 fn bench_board_advice_follows_the_hand_rules() {

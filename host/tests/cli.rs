@@ -3,7 +3,10 @@
 use std::process::Command;
 
 fn ohmsight() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_ohmsight"))
+    let mut c = Command::new(env!("CARGO_BIN_EXE_ohmsight"));
+    // Surveys are kept in a database of this test process, not in the user's.
+    c.env("OHMSIGHT_DB", std::env::temp_dir().join(format!("ohmsight-cli-{}.db", std::process::id())));
+    c
 }
 
 fn temp_file(name: &str, text: &str) -> std::path::PathBuf {
@@ -19,7 +22,7 @@ fn demo_survey_json_is_one_document_with_the_documented_fields() {
     let out = ohmsight().args(["survey", "--json", "--quiet"]).output().unwrap();
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let doc: serde_json::Value = serde_json::from_slice(&out.stdout).expect("stdout is exactly one JSON document");
-    assert_eq!(doc["schema"], "ohmsight.survey.v1");
+    assert_eq!(doc["schema"], "ohmsight.survey.v2");
     assert!(doc["board"].is_object());
     let pins = doc["pins"].as_array().unwrap();
     assert!(pins.len() >= 8);
@@ -104,4 +107,37 @@ fn help_explains_the_survey() {
     for word in ["--scenario", "--port", "--baud", "--json", "demo"] {
         assert!(text.contains(word), "help lacks {word}: {text}");
     }
+}
+
+#[cfg(unix)]
+#[test]
+fn html_output_goes_through_symlinks_keeps_modes_and_leaves_devices_alone() {
+    use std::os::unix::fs::{FileTypeExt, PermissionsExt};
+    let dir = std::env::temp_dir().join(format!("ohmsight-cli-out-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(dir.join("site")).unwrap();
+    let target = dir.join("site/report.html");
+    std::fs::write(&target, "old").unwrap();
+    std::fs::set_permissions(&target, std::fs::Permissions::from_mode(0o640)).unwrap();
+    let link = dir.join("latest.html");
+    std::os::unix::fs::symlink("site/report.html", &link).unwrap();
+    let survey = |html: &std::path::Path| {
+        let out = ohmsight()
+            .args(["survey", "--quiet", "--no-store", "--channel", "3", "--html"])
+            .arg(html)
+            .output()
+            .unwrap();
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    };
+    survey(&link);
+    assert!(std::fs::symlink_metadata(&link).unwrap().file_type().is_symlink(), "the link stays a link");
+    let page = std::fs::read_to_string(&target).unwrap();
+    assert!(page.starts_with("<!DOCTYPE html>") && page.contains("id=\"report-end\""), "a whole page");
+    assert_eq!(std::fs::metadata(&target).unwrap().permissions().mode() & 0o777, 0o640);
+    let names: Vec<_> = std::fs::read_dir(dir.join("site")).unwrap().map(|e| e.unwrap().file_name()).collect();
+    assert_eq!(names.len(), 1, "nothing left beside it: {names:?}");
+    // A device is written into, never replaced by a file.
+    survey(std::path::Path::new("/dev/null"));
+    assert!(std::fs::metadata("/dev/null").unwrap().file_type().is_char_device());
+    let _ = std::fs::remove_dir_all(&dir);
 }

@@ -78,7 +78,7 @@ fn demo_report_loads_in_chromium_with_every_pin_and_a_screenshot() {
     let page = dir.join("report-demo.html");
 
     let out = Command::new(env!("CARGO_BIN_EXE_ohmsight"))
-        .args(["survey", "--json", "--quiet", "--html"])
+        .args(["survey", "--no-store", "--json", "--quiet", "--html"])
         .arg(&page)
         .output()
         .unwrap();
@@ -128,7 +128,7 @@ fn a_page_that_cannot_be_written_is_bad_input_after_the_table() {
     let _ = std::fs::remove_dir_all(&dir);
     let page = dir.join("no-such-folder").join("r.html");
     let out = Command::new(env!("CARGO_BIN_EXE_ohmsight"))
-        .args(["survey", "--quiet", "--channel", "3", "--html"])
+        .args(["survey", "--no-store", "--quiet", "--channel", "3", "--html"])
         .arg(&page)
         .output()
         .unwrap();

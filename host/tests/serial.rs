@@ -6,7 +6,7 @@
 use ohmsight::link::{InProcessLink, SerialLink};
 use ohmsight::session::Session;
 use ohmsight::simulate::serve;
-use ohmsight::survey::{survey, SurveyOptions};
+use ohmsight::{survey, SurveyOptions};
 use serialport::{SerialPort, TTYPort};
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;

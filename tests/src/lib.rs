@@ -4,7 +4,7 @@
 use ohmsight::fit::Interval;
 use ohmsight::link::InProcessLink;
 use ohmsight::session::Session;
-use ohmsight::survey::{survey, SurveyOptions, SurveyReport};
+use ohmsight::{survey, SurveyOptions, SurveyReport};
 use ohmsight_virtual::{BoardProfile, PinSetup, Scenario, Source};
 
 /// A pin driven by `volts` behind `ohms`, with node capacitance `farads`.
@@ -65,7 +65,7 @@ pub fn covers(iv: &Interval, truth: f64) -> bool {
 
 /// The interval as text, for failure messages.
 pub fn show(iv: &Interval) -> String {
-    ohmsight::report::interval_text(iv, ohmsight::units::ohms)
+    ohmsight::render::text::interval_text(iv, ohmsight::units::ohms)
 }
 
 /// How many of the board's sample times leave a step from 0 V on the hold capacitor more than

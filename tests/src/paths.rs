@@ -12,7 +12,7 @@
 use ohmsight::fit::Interval;
 use ohmsight::link::SerialLink;
 use ohmsight::session::Session;
-use ohmsight::survey::{survey, SurveyOptions, SurveyReport};
+use ohmsight::{survey, SurveyOptions, SurveyReport};
 use ohmsight_protocol::{encode_frame, FrameAccumulator, FrameError, Request, Response, MAX_FRAME};
 use serialport::{SerialPort, TTYPort};
 use std::io::{BufRead, BufReader, Read, Write};

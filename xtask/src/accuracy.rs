@@ -22,8 +22,8 @@ use ohmsight::fit::{nuisance_prior_sd, Interval};
 use ohmsight::link::InProcessLink;
 use ohmsight::model::{predict, BoardModel, Event, PinParams};
 use ohmsight::session::Session;
-use ohmsight::survey::{survey, SurveyOptions, Verdict};
 use ohmsight::units;
+use ohmsight::{survey, SurveyOptions, Verdict};
 use ohmsight_tests::{covers, default_board, driven, fast_board, floating};
 use ohmsight_virtual::{BoardProfile, PinSetup, Realism, Scenario, MAX_PINS};
 use std::collections::BTreeMap;
@@ -653,7 +653,7 @@ fn report(outcomes: &[Outcome], opts: &Options) -> usize {
                     BOARD_NAMES[o.case.board],
                     units::farads(o.case.node_farads),
                     o.verdict.as_str(),
-                    ohmsight::report::interval_text(&o.source_ohms, units::ohms)
+                    ohmsight::render::text::interval_text(&o.source_ohms, units::ohms)
                 );
             }
         }

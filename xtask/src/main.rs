@@ -14,8 +14,8 @@ mod accuracy;
 use anyhow::{bail, Context, Result};
 use ohmsight::link::InProcessLink;
 use ohmsight::session::Session;
-use ohmsight::survey::{survey, SurveyOptions};
 use ohmsight::units;
+use ohmsight::{survey, SurveyOptions};
 use ohmsight_virtual::{BoardProfile, PinSetup, Realism, Scenario, Source};
 use std::time::Instant;
 
@@ -176,8 +176,8 @@ fn study(args: &[String]) -> Result<()> {
         println!(
             "seed {seed}: {:8} Rs {:28} Cn {:28} Vs {:?}  chi2/dof {:.2}  σlnRs {:.3}  δ {:.0} ns Ch {:+.1}% Rm {:+.1}% (true {:+.1}% {:+.1}%) {}",
             p.verdict.as_str(),
-            ohmsight::report::interval_text(&rs, units::ohms),
-            ohmsight::report::interval_text(&p.node_farads, units::farads),
+            ohmsight::render::text::interval_text(&rs, units::ohms),
+            ohmsight::render::text::interval_text(&p.node_farads, units::farads),
             p.source_volts.map(|v| (v * 1e4).round() / 1e4),
             fit.map_or(0.0, |f| f.chi2 / f.dof.max(1) as f64),
             fit.map_or(0.0, |f| f.sigma_ln_rs),

@@ -1,7 +1,9 @@
 //! `cargo xtask test`: install what the test suite needs, then run it.
 //!
-//! The Debian packages the tests call (a circuit simulator, and so on) are listed once, in
-//! `.ci/debian-packages`; CI installs the same list. Packages already installed are left alone;
+//! The Debian packages the tests call (a circuit simulator, a PostgreSQL server for the run
+//! store, and so on) are listed once, in `.ci/debian-packages`; CI installs the same list. (The
+//! store tests start a private PostgreSQL server of their own from the installed package, so
+//! nothing here starts one; CI's `.ci/run` starts one and names it in `OHMSIGHT_TEST_POSTGRES`.) Packages already installed are left alone;
 //! the missing ones are installed with apt-get (through sudo when not root), so a fresh Debian or
 //! Ubuntu machine needs this one command. Elsewhere it names what to install and stops.
 
@@ -93,5 +95,11 @@ mod tests {
     fn the_committed_list_names_the_circuit_simulator() {
         let text = std::fs::read_to_string(root().join(".ci/debian-packages")).unwrap();
         assert!(parse_packages(&text).iter().any(|p| p == "ngspice"));
+    }
+
+    #[test]
+    fn the_committed_list_names_the_store_database_server() {
+        let text = std::fs::read_to_string(root().join(".ci/debian-packages")).unwrap();
+        assert!(parse_packages(&text).iter().any(|p| p == "postgresql"));
     }
 }

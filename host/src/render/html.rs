@@ -10,10 +10,10 @@
 //! plot carries physics of its own.
 
 use crate::fit::Interval;
+use crate::judge::{Flag, PinReport, SurveyReport, Verdict};
 use crate::model::{predict, BoardModel, Event, PinParams};
 use crate::noise::{HARMONICS, MAINS_HZ};
-use crate::report::{converter_text, interval_text};
-use crate::survey::{Flag, PinReport, SurveyReport, Verdict};
+use crate::render::text::{converter_text, interval_text};
 use crate::units;
 use ohmsight_protocol::analog::volts_to_lsb;
 use ohmsight_protocol::{Experiment, Steps};
@@ -1017,7 +1017,8 @@ footer { color: var(--muted); font-size: 12px; margin-top: 24px; }
 ";
 
 /// The survey as one self-contained HTML page (no script, no external assets).
-pub fn survey_html(r: &SurveyReport, link_name: &str) -> String {
+pub fn survey_html(r: &SurveyReport) -> String {
+    let link_name = r.record.run.link.describe();
     let b = &r.board;
     let m = &r.model;
     let mut out = String::with_capacity(1 << 20);
@@ -1032,12 +1033,15 @@ pub fn survey_html(r: &SurveyReport, link_name: &str) -> String {
     let _ = writeln!(
         out,
         "<header><h1>{}</h1><p class=\"sub\">board “{}”, unit {:016x}, firmware {}, over the {}</p>\
-         <p class=\"sub\">converter: {}</p></header>",
+         <p class=\"sub\" id=\"run\">run {} started {}{}</p><p class=\"sub\">converter: {}</p></header>",
         escape("ohmsight survey"),
         escape(&b.name),
         b.unit_id,
         escape(&b.firmware),
-        escape(link_name),
+        escape(&link_name),
+        escape(&r.record.run.id),
+        escape(&r.record.run.started),
+        if r.record.run.complete { "" } else { ", incomplete" },
         escape(&converter_text(m)),
     );
     if let Some(f) = &r.fault {
@@ -1161,8 +1165,8 @@ fn pin_section(r: &SurveyReport, p: &PinReport, row: &MemoryRow, cols: &[(u8, Op
 mod tests {
     use super::*;
     use crate::link::InProcessLink;
+    use crate::run::{survey, SurveyOptions};
     use crate::session::Session;
-    use crate::survey::{survey, SurveyOptions};
     use ohmsight_protocol::analog::volts_to_lsb;
     use ohmsight_protocol::{FrontEnd, Precharge};
 
@@ -1294,7 +1298,7 @@ node_farads = 10e-12
         let sc = crate::scenario::parse("html-test.toml", SCENARIO).unwrap();
         let mut session = Session::new(InProcessLink::new(&sc));
         let r = survey(&mut session, &SurveyOptions::default()).unwrap();
-        let html = survey_html(&r, "test link");
+        let html = survey_html(&r);
         (r, html)
     }
 
@@ -1360,7 +1364,7 @@ node_farads = 10e-12
         p0.noise_codes.clear();
         p0.verdict = Verdict::Unknown;
         p0.reason = Some("not surveyed: the link failed before this pin was done".into());
-        let html = survey_html(&cut, "test link");
+        let html = survey_html(&cut);
         assert!(html.contains("class=\"fault\">The survey was cut short: no answer &lt;from&gt; the board"));
         assert!(html.trim_end().ends_with("</html>"));
         for plot in ["precharge", "period", "histogram", "spectrum", "memory"] {

@@ -1,112 +1,10 @@
-//! Survey output: the terminal table and the JSON document.
+//! The survey as text for the terminal: the table, notes, advice and the scan plan.
 
-use crate::advice::{advise, AdviceOptions, BoardAdvice, PinAdvice, ScanPlan};
+use crate::advice::BoardAdvice;
 use crate::fit::Interval;
+use crate::judge::SurveyReport;
 use crate::model::BoardModel;
-use crate::survey::{PinReport, SurveyReport};
 use crate::units;
-use serde_json::{json, Map, Value};
-
-/// JSON schema name of a survey document.
-pub const SURVEY_SCHEMA: &str = "ohmsight.survey.v1";
-
-fn interval_json(iv: &Interval) -> Value {
-    let mut m = Map::new();
-    m.insert("estimate".into(), iv.estimate.map_or(Value::Null, Value::from));
-    if let Some(l) = iv.low {
-        m.insert("low".into(), l.into());
-    }
-    if let Some(h) = iv.high {
-        m.insert("high".into(), h.into());
-    }
-    Value::Object(m)
-}
-
-fn pin_json(p: &PinReport) -> Value {
-    let memory = p.memory.map(|m| {
-        json!({
-            "sample_index": m.sample,
-            "shift_lsb": m.shift_lsb,
-            "shift_se_lsb": m.shift_se_lsb,
-            "coefficient": m.coefficient,
-        })
-    });
-    let hum = p.noise.as_ref().map(|n| json!({"50": n.hum_lsb[0], "60": n.hum_lsb[1]}));
-    json!({
-        "channel": p.channel,
-        "label": p.label,
-        "verdict": p.verdict.as_str(),
-        "reason": p.reason,
-        "source_ohms": interval_json(&p.source_ohms),
-        "node_farads": interval_json(&p.node_farads),
-        "source_volts": p.source_volts,
-        "noise_lsb_rms": p.noise_lsb_rms,
-        "min_sample_ns": p.min_sample_ns,
-        "flags": p.flags.iter().map(|f| f.as_str()).collect::<Vec<_>>(),
-        "hum_lsb": hum,
-        "memory": memory,
-        "fit": p.fit.as_ref().map(|f| json!({"chi2": f.chi2, "dof": f.dof, "evaluations": f.evaluations})),
-        "conversions": p.conversions,
-    })
-}
-
-/// The survey as one JSON document, with advice for a sub-LSB signal of none.
-pub fn survey_json(r: &SurveyReport, link_name: &str) -> Value {
-    survey_json_with(r, link_name, &advise(r, &AdviceOptions::default()), &AdviceOptions::default())
-}
-
-/// The survey as one JSON document, with per-pin advice and the scan plan.
-pub fn survey_json_with(r: &SurveyReport, link_name: &str, advice: &BoardAdvice, opts: &AdviceOptions) -> Value {
-    let b = &r.board;
-    let m = &r.model;
-    let precharges: Vec<Value> = m
-        .precharge_volts
-        .iter()
-        .map(|(ch, v)| {
-            let label = b.channels.iter().find(|c| c.channel == *ch).map(|c| c.label.to_string());
-            json!({"channel": ch, "label": label, "volts": v})
-        })
-        .collect();
-    json!({
-        "schema": SURVEY_SCHEMA,
-        "board": {
-            "name": b.name,
-            "firmware": b.firmware,
-            "protocol": b.protocol,
-            "unit_id": format!("{:016x}", b.unit_id),
-            "link": link_name,
-            "bits": m.bits,
-            "vref_volts": m.vref_volts,
-            "lsb_volts": m.lsb_volts(),
-            "hold_farads": m.hold_farads,
-            "hold_tolerance": m.hold_tolerance,
-            "switch_ohms": m.switch_ohms,
-            "switch_tolerance": m.switch_tolerance,
-            "sample_ns": m.sample_ps.iter().map(|&p| f64::from(p) / 1000.0).collect::<Vec<_>>(),
-            "conversion_ns": f64::from(m.conversion_ps) / 1000.0,
-            "adc_noise_lsb": m.noise_lsb,
-            "precharges": precharges,
-        },
-        "pins": r.pins.iter().map(|p| {
-            let mut v = pin_json(p);
-            let a = advice.pins.iter().find(|a| a.channel == p.channel);
-            v["advice"] = a.map_or(Value::Null, advice_json);
-            v
-        }).collect::<Vec<_>>(),
-        "advice_options": {"resolve_volts": opts.resolve_volts},
-        "scan_plan": plan_json(&advice.plan, r),
-        "fault": r.fault,
-        "totals": {
-            "conversions": r.link.conversions,
-            "link_bytes_sent": r.link.bytes_sent,
-            "link_bytes_received": r.link.bytes_received,
-            "bad_frames": r.link.bad_frames,
-            "reruns": r.link.reruns,
-            "board_seconds": r.board_seconds,
-            "wall_seconds": r.wall_seconds,
-        },
-    })
-}
 
 /// `47.2 kΩ (44.1–50.6 kΩ)`, `< 1.60 kΩ`, `> 2.30 GΩ` or `—`.
 pub fn interval_text(iv: &Interval, fmt: fn(f64) -> String) -> String {
@@ -165,19 +63,27 @@ pub fn converter_text(m: &BoardModel) -> String {
     )
 }
 
-/// The human-readable survey, with advice for a sub-LSB signal of none.
-pub fn survey_text(r: &SurveyReport, link_name: &str) -> String {
-    survey_text_with(r, link_name, &advise(r, &AdviceOptions::default()))
-}
-
 /// The human-readable survey with its advice block and scan plan.
-pub fn survey_text_with(r: &SurveyReport, link_name: &str, advice: &BoardAdvice) -> String {
+pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
     let b = &r.board;
+    let link_name = r.record.run.link.describe();
     let m = &r.model;
     let mut out = String::new();
     out += &format!(
         "ohmsight survey — board \"{}\" unit {:016x}, firmware {}, over the {}\n",
         b.name, b.unit_id, b.firmware, link_name
+    );
+    let run = &r.record.run;
+    out += &format!(
+        "run {} started {}{}{}\n",
+        run.id,
+        run.started,
+        if run.complete { "" } else { ", incomplete" },
+        if r.record.profile.source == "board" {
+            String::new()
+        } else {
+            format!("; analysed with the converter values of {}", r.record.profile.source)
+        }
     );
     out += &format!("converter: {}\n\n", converter_text(m));
     let header =
@@ -228,61 +134,6 @@ pub fn survey_text_with(r: &SurveyReport, link_name: &str, advice: &BoardAdvice)
         r.wall_seconds
     );
     out
-}
-
-fn advice_json(a: &PinAdvice) -> Value {
-    json!({
-        "sample": a.sample.map(|s| json!({"index": s.index, "sample_ns": s.sample_ns})),
-        "settle": a.settle.map(|f| json!({
-            "source_ohms": f.source_ohms,
-            "buffer_max_ohms": f.buffer_max_ohms,
-            "hold_multiple": f.hold_multiple,
-            "min_farads": f.min_farads,
-            "min_farads_max_rate_hz": f.min_farads_max_rate_hz,
-            "suggested_farads": f.suggested_farads,
-            "suggested_max_rate_hz": f.suggested_max_rate_hz,
-            "suggested_sample_ns": f.suggested_sample_ns,
-        })),
-        "memory": a.memory.map(|m| json!({
-            "worst_shift_lsb": m.worst_shift_lsb,
-            "after_dummy_lsb": m.after_dummy_lsb,
-            "similar_within_volts": m.similar_within_volts,
-        })),
-        "averaging": a.averaging.map(|v| json!({
-            "resolve_volts": v.resolve_volts,
-            "noise_lsb_rms": v.noise_lsb_rms,
-            "readings": v.readings,
-            "extra_bits": v.extra_bits,
-            "seconds": v.seconds,
-            "staircase_volts": v.staircase_volts,
-            "needs_dither": v.needs_dither,
-        })),
-        "hum_period_s": a.hum_period_s,
-        "note": a.note,
-    })
-}
-
-fn plan_json(plan: &ScanPlan, r: &SurveyReport) -> Value {
-    let label = |ch: u8| r.pins.iter().find(|p| p.channel == ch).map(|p| p.label.clone());
-    json!({
-        "limit_lsb": 0.5,
-        "entries": plan.entries.iter().enumerate().map(|(i, e)| json!({
-            "position": i + 1,
-            "channel": e.channel,
-            "label": label(e.channel),
-            "sample_index": e.sample_index,
-            "sample_ns": e.sample_ns,
-            "dummies": e.dummies,
-            "worst_error_lsb": e.worst_error_lsb,
-            "error_now_lsb": e.error_now_lsb,
-        })).collect::<Vec<_>>(),
-        "idle_s": plan.idle_s,
-        "idle_for": plan.idle_for,
-        "scan_s": plan.scan_s,
-        "scan_hz": if plan.scan_s > 0.0 { Value::from(1.0 / plan.scan_s) } else { Value::Null },
-        "worst_error_lsb": plan.worst_error_lsb,
-        "left_out": plan.left_out.iter().map(|l| json!({"channel": l.channel, "reason": l.reason})).collect::<Vec<_>>(),
-    })
 }
 
 /// The advice block and the scan plan for the terminal.

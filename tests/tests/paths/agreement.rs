@@ -3,7 +3,7 @@
 use crate::{exe, BENCH_TOML};
 use ohmsight::link::InProcessLink;
 use ohmsight::session::Session;
-use ohmsight::survey::{survey, SurveyOptions};
+use ohmsight::{survey, SurveyOptions};
 use ohmsight_tests::paths::{assert_same_survey, scenario_file, survey_port, Simulator};
 
 #[test]

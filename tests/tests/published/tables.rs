@@ -1,7 +1,7 @@
 //! The survey's minimum-sample-time answer against published tables.
 
+use ohmsight::judge::min_sample_index;
 use ohmsight::model::{BoardModel, PinParams};
-use ohmsight::survey::min_sample_index;
 use ohmsight::units;
 use ohmsight_protocol::{FrontEnd, Precharge};
 

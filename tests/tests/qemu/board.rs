@@ -2,7 +2,7 @@
 
 use ohmsight::link::{InProcessLink, SerialLink};
 use ohmsight::session::Session;
-use ohmsight::survey::{survey, SurveyOptions, SurveyReport};
+use ohmsight::{survey, SurveyOptions, SurveyReport};
 use ohmsight_tests::{covers, default_board, driven, floating, scenario, show};
 use ohmsight_virtual::Scenario;
 use xtask::qemu::Qemu;

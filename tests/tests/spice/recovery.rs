@@ -116,7 +116,7 @@ fn check(board: BoardProfile, cases: &[(f64, f64)]) {
             o.conversions,
             show(&o.source_ohms),
             err(&o.source_ohms, ohms),
-            ohmsight::report::interval_text(&o.node_farads, units::farads),
+            ohmsight::render::text::interval_text(&o.node_farads, units::farads),
             err(&o.node_farads, farads),
         );
         let ctx = format!("{} / {}", units::ohms(ohms), units::farads(farads));

@@ -1,7 +1,7 @@
 //! Source resistance, node capacitance and source voltage against the truth, on two boards and
 //! several seeds.
 
-use ohmsight::survey::Verdict;
+use ohmsight::Verdict;
 use ohmsight_tests::{covers, default_board, driven, fast_board, floating, resolvable, run, scenario, show};
 use ohmsight_virtual::{BoardProfile, PinSetup, Source};
 

@@ -1,7 +1,7 @@
 //! The built-in demo scenario: verdicts and flags for every kind of pin it wires.
 
 use ohmsight::scenario::demo;
-use ohmsight::survey::{Flag, Verdict};
+use ohmsight::{Flag, Verdict};
 use ohmsight_tests::run;
 use ohmsight_virtual::Source;
 

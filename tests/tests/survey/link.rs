@@ -2,7 +2,7 @@
 
 use ohmsight::link::InProcessLink;
 use ohmsight::session::Session;
-use ohmsight::survey::{survey, SurveyOptions};
+use ohmsight::{survey, SurveyOptions};
 use ohmsight_tests::{default_board, driven, floating, run, scenario};
 
 #[test]
@@ -46,6 +46,6 @@ fn a_link_that_dies_mid_survey_keeps_what_was_measured() {
     assert_eq!(r.pins[0].verdict, clean.pins[0].verdict, "the pin finished before the fault keeps its verdict");
     assert!(r.pins[0].source_ohms.estimate.is_some());
     let last = r.pins.last().unwrap();
-    assert_eq!(last.verdict, ohmsight::survey::Verdict::Unknown);
+    assert_eq!(last.verdict, ohmsight::Verdict::Unknown);
     assert!(last.reason.as_deref().unwrap_or("").contains("link failed"));
 }

@@ -1,6 +1,6 @@
 //! Driven, floating and at-rail, at the edges where they are easy to confuse.
 
-use ohmsight::survey::Verdict;
+use ohmsight::Verdict;
 use ohmsight_tests::{default_board, driven, fast_board, floating, run, scenario, show};
 
 #[test]

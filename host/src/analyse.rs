@@ -1,0 +1,257 @@
+//! Analyse a run record: rebuild each pin's history from the evidence, fit the model, judge.
+//!
+//! The live survey and `refit` go through the same functions, so a record analysed again gives
+//! the numbers the survey printed, to the last digit.
+//!
+//! - [`board_model`]: the profile's values with the precharge levels as measured;
+//! - [`pin_evidence`]: per pin, the experiment history the fit simulates (the node's state
+//!   carries from one experiment to the next), the screen, the noise record and the order swap;
+//! - [`fit_pins`]: the fits, in parallel;
+//! - [`report`]: verdicts, flags and memory per pin ([`crate::judge`]).
+
+use crate::fit::{fit_pin, Fit, FitInput};
+use crate::judge::{judge_pin, PinReport, SurveyReport};
+use crate::model::{BoardModel, CellObs, Event};
+use crate::noise::{analyse as analyse_noise, NoiseSummary, MAINS_HZ};
+use crate::plan::{screen_rail, RAW_LEAD_IN};
+use crate::record::{ExperimentRecord, ExperimentSpec, Profile, Purpose, RunRecord};
+use crate::session::LinkStats;
+use ohmsight_protocol::{Experiment, Steps};
+
+/// The order swap of a pin's memory test.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Swap {
+    /// The channel converted before the pin.
+    pub previous: u8,
+    /// Sample index.
+    pub sample: u8,
+    /// Cells: [A in AB, B after A, first B of BB, B after B].
+    pub cells: Vec<CellObs>,
+}
+
+/// One pin's evidence, as the fit and the judge need it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PinEvidence {
+    /// Channel.
+    pub channel: u8,
+    /// Label.
+    pub label: String,
+    /// Every planned experiment before the memory test ran.
+    pub complete: bool,
+    /// The history the fit simulates (the memory test excluded).
+    pub events: Vec<Event>,
+    /// The memory test's events.
+    pub memory_events: Vec<Event>,
+    /// The screen's short precharge sweep.
+    pub screen: Vec<CellObs>,
+    /// The rail the screen found the pin at, V.
+    pub rail: Option<f64>,
+    /// The noise record's codes (lead-in dropped).
+    pub noise_codes: Vec<u16>,
+    /// Their analysis.
+    pub noise: Option<NoiseSummary>,
+    /// The memory test.
+    pub swap: Option<Swap>,
+    /// Conversions spent on the pin (failed attempts included).
+    pub conversions: u64,
+}
+
+/// Mean level of a raw record after its lead-in, LSB.
+fn raw_mean(samples: &[u16]) -> Option<f64> {
+    let codes = &samples[RAW_LEAD_IN.min(samples.len())..];
+    (!codes.is_empty()).then(|| codes.iter().map(|&c| f64::from(c)).sum::<f64>() / codes.len() as f64)
+}
+
+/// The board model of a record's profile, with the precharge levels the run measured.
+pub fn board_model(record: &RunRecord) -> BoardModel {
+    model_with(&record.profile, &record.experiments)
+}
+
+fn model_with(profile: &Profile, experiments: &[ExperimentRecord]) -> BoardModel {
+    let mut model = profile.model();
+    for e in experiments.iter().filter(|e| e.purpose == Purpose::PrechargeLevel) {
+        if let (ExperimentSpec::NoiseRecord { target, .. }, Some(mean)) = (&e.experiment, raw_mean(&e.samples)) {
+            model.precharge_volts.insert(*target, model.code_volts(mean));
+        }
+    }
+    model
+}
+
+/// How long each cell of an experiment takes to collect its readings, s: the whole run for
+/// interleaved patterns, one period block for a period sweep.
+fn cell_spans_s(model: &BoardModel, exp: &Experiment) -> Vec<f64> {
+    let Ok(steps) = Steps::new(exp, model.timing()) else { return Vec::new() };
+    let total = steps.nominal_ps() as f64 * 1e-12;
+    match exp {
+        Experiment::PeriodSweep { periods_ns, repeats, .. } => {
+            // Each block runs `repeats` pairs, one per period (or back to back).
+            let pair_s = |p: u32| f64::from(p).max(1.0) * 1e-9;
+            periods_ns.iter().map(|&p| f64::from(*repeats) * pair_s(p)).collect()
+        }
+        _ => vec![total; usize::from(steps.cells())],
+    }
+}
+
+/// Each pin's evidence, in the record's pin order.
+pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> {
+    record
+        .pins
+        .iter()
+        .map(|pin| {
+            let mut ev = PinEvidence {
+                channel: pin.channel,
+                label: pin.label.clone(),
+                complete: pin.complete,
+                events: Vec::new(),
+                memory_events: Vec::new(),
+                screen: Vec::new(),
+                rail: None,
+                noise_codes: Vec::new(),
+                noise: None,
+                swap: None,
+                conversions: 0,
+            };
+            let mut end_ps: Option<u64> = None;
+            for e in record.experiments.iter().filter(|e| e.pin == Some(pin.channel)) {
+                let Some(exp) = e.experiment.to_experiment() else { continue };
+                let cells: Vec<CellObs> = e.cells.iter().map(|c| CellObs::from_aggregate(&c.aggregate())).collect();
+                let nominal = Steps::new(&exp, model.timing()).map(|s| s.nominal_ps()).unwrap_or(0);
+                let attempts = u64::from(e.attempts.max(1));
+                ev.conversions += u64::from(e.conversions) * attempts;
+                let memory = e.purpose == Purpose::Memory;
+                for attempt in 0..attempts {
+                    let start = e.start_ps + attempt * nominal;
+                    let last = attempt + 1 == attempts;
+                    let event = Event {
+                        experiment: exp.clone(),
+                        target: pin.channel,
+                        gap_before_ps: end_ps.map(|end| start.saturating_sub(end)).unwrap_or(0),
+                        cells: (last && e.fitted()).then(|| cells.clone()),
+                        coherent_var_lsb2: Vec::new(),
+                    };
+                    end_ps = Some(start + nominal);
+                    if memory {
+                        ev.memory_events.push(event);
+                    } else {
+                        ev.events.push(event);
+                    }
+                }
+                match (e.purpose, &e.experiment) {
+                    (Purpose::Screen, ExperimentSpec::PrechargeSweep { .. }) if ev.screen.is_empty() => {
+                        ev.rail = screen_rail(model, &cells);
+                        ev.screen = cells;
+                    }
+                    (Purpose::Noise, ExperimentSpec::NoiseRecord { period_ns, .. }) => {
+                        ev.noise_codes = e.samples[RAW_LEAD_IN.min(e.samples.len())..].to_vec();
+                        ev.noise = analyse_noise(&ev.noise_codes, f64::from(*period_ns) * 1e-9);
+                    }
+                    (Purpose::Memory, ExperimentSpec::OrderSwap { a, sample, .. }) => {
+                        ev.swap = Some(Swap { previous: *a, sample: *sample, cells });
+                    }
+                    _ => {}
+                }
+            }
+            if let Some(n) = &ev.noise {
+                // Hum is nearly constant over a cell that spans a fraction of its period: it adds
+                // to each cell mean as an offset. Averaged down for cells spanning many cycles.
+                let hum_var = |span_s: f64| -> f64 {
+                    MAINS_HZ
+                        .iter()
+                        .zip(n.hum_lsb)
+                        .map(|(f, a)| a * a / 2.0 / (1.0 + (std::f64::consts::PI * f * span_s).powi(2)))
+                        .sum()
+                };
+                for event in &mut ev.events {
+                    event.coherent_var_lsb2 = cell_spans_s(model, &event.experiment).into_iter().map(hum_var).collect();
+                }
+            }
+            ev
+        })
+        .collect()
+}
+
+/// Fits every pin that was fully measured and is not at a rail (in parallel: fits are
+/// independent).
+pub fn fit_pins(model: &BoardModel, pins: &[PinEvidence]) -> Vec<Option<Fit>> {
+    std::thread::scope(|scope| {
+        let handles: Vec<_> = pins
+            .iter()
+            .map(|pin| {
+                scope.spawn(move || {
+                    // Rails have nothing to fit; pins cut short are reported unsurveyed.
+                    if pin.rail.is_some() || !pin.complete {
+                        return None;
+                    }
+                    fit_pin(&FitInput { board: model, events: &pin.events })
+                })
+            })
+            .collect();
+        handles.into_iter().map(|h| h.join().ok().flatten()).collect()
+    })
+}
+
+/// Judges every pin with its fit.
+pub fn judge_pins(model: &BoardModel, pins: &[PinEvidence], fits: &[Option<Fit>]) -> Vec<PinReport> {
+    pins.iter().zip(fits).map(|(pin, fit)| judge_pin(model, pin, fit.clone())).collect()
+}
+
+/// The report of a record whose pins have been fitted.
+pub fn report(record: &RunRecord, model: &BoardModel, pins: &[PinEvidence], fits: &[Option<Fit>]) -> SurveyReport {
+    let stats = &record.run.stats;
+    SurveyReport {
+        record: record.clone(),
+        board: record.board.clone(),
+        model: model.clone(),
+        pins: judge_pins(model, pins, fits),
+        link: LinkStats {
+            bytes_sent: stats.link_bytes_sent,
+            bytes_received: stats.link_bytes_received,
+            bad_frames: stats.bad_frames,
+            reruns: stats.reruns,
+            conversions: stats.conversions,
+        },
+        board_seconds: stats.board_seconds,
+        wall_seconds: stats.wall_seconds,
+        fault: record.run.fault.clone(),
+    }
+}
+
+/// Analyses a whole record: model, evidence, fits, verdicts.
+pub fn analyse(record: &RunRecord) -> SurveyReport {
+    let model = board_model(record);
+    let pins = pin_evidence(record, &model);
+    let fits = fit_pins(&model, &pins);
+    report(record, &model, &pins, &fits)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::advice::{advise, AdviceOptions};
+    use crate::link::InProcessLink;
+    use crate::record::{read_document, Document};
+    use crate::render::{survey_json, text::survey_text};
+    use crate::run::{survey, SurveyOptions};
+    use crate::session::Session;
+
+    #[test]
+    fn a_record_read_back_from_its_document_analyses_to_the_same_digits() {
+        let sc = crate::scenario::demo();
+        let live = survey(&mut Session::new(InProcessLink::new(&sc)), &SurveyOptions::default()).unwrap();
+        let opts = AdviceOptions::default();
+        let advice = advise(&live, &opts);
+        let json = survey_json(&live, &advice, &opts);
+        let Ok(Document::V2(doc)) = read_document(&json) else { panic!("not a v2 document") };
+        let record = doc.record();
+        assert_eq!(record, live.record, "the document carries the record unchanged");
+        let again = analyse(&record);
+        let advice_again = advise(&again, &opts);
+        assert_eq!(survey_text(&again, &advice_again), survey_text(&live, &advice));
+        assert_eq!(survey_json(&again, &advice_again, &opts), json);
+        for (a, b) in again.pins.iter().zip(&live.pins) {
+            assert_eq!(a.source_ohms, b.source_ohms, "ch{}", a.channel);
+            assert_eq!(a.node_farads, b.node_farads, "ch{}", a.channel);
+            assert_eq!(a.memory, b.memory, "ch{}", a.channel);
+        }
+    }
+}

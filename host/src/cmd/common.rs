@@ -1,0 +1,176 @@
+//! Options and helpers several commands share: how the board is reached, which database,
+//! printing, the progress bar, writing the files a user names.
+
+use super::Failure;
+use indicatif::{ProgressBar, ProgressStyle};
+use ohmsight::link::{InProcessLink, Link, SerialLink};
+use ohmsight::record::LinkRecord;
+use ohmsight::run::{RunContext, RunEvent};
+use ohmsight::scenario;
+use ohmsight::session::Session;
+use ohmsight::store::{self, DbUrl, Store};
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+/// How the board is reached: the same options for every command that surveys.
+#[derive(clap::Args)]
+pub struct LinkArgs {
+    /// Simulated board wired as described in this scenario file (TOML).
+    #[arg(long, value_name = "FILE.toml", conflicts_with = "port")]
+    pub scenario: Option<PathBuf>,
+    /// Serial port of a board running the ohmsight firmware (e.g. /dev/ttyACM0).
+    #[arg(long, value_name = "PATH")]
+    pub port: Option<String>,
+    /// Baud rate of the serial port.
+    #[arg(long, value_name = "N", default_value_t = 115_200, requires = "port")]
+    pub baud: u32,
+    /// Seed of the simulated board's noise (overrides the scenario's).
+    #[arg(long, value_name = "N", conflicts_with = "port")]
+    pub seed: Option<u64>,
+    /// Talk to a board of another protocol version anyway.
+    #[arg(long)]
+    pub any_version: bool,
+}
+
+/// Which database runs are kept in.
+#[derive(clap::Args)]
+pub struct DbArgs {
+    /// The run database: a file path or sqlite://PATH (SQLite), or postgres://USER@HOST/DB for a
+    /// PostgreSQL server that several stations share. Default: $OHMSIGHT_DB, else runs.db in
+    /// this user's data folder (e.g. ~/.local/share/ohmsight/runs.db).
+    #[arg(long, value_name = "URL", global = true)]
+    pub db: Option<String>,
+}
+
+impl DbArgs {
+    /// The database named, or the default one.
+    pub fn url(&self) -> Result<DbUrl, Failure> {
+        Ok(match &self.db {
+            Some(text) => DbUrl::parse(text)?,
+            None => store::default_url()?,
+        })
+    }
+
+    /// Opens the database (creating it and its tables when new).
+    pub fn open(&self) -> Result<Box<dyn Store>, Failure> {
+        Ok(store::open(&self.url()?)?)
+    }
+}
+
+/// Writes `text` to stdout; a closed pipe is not an error.
+pub fn print(text: &str) -> Result<(), Failure> {
+    let mut stdout = std::io::stdout().lock();
+    match stdout.write_all(text.as_bytes()).and_then(|_| stdout.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
+            Err(Failure::failed(format!("cannot write to stdout: {e}")))
+        }
+        _ => Ok(()),
+    }
+}
+
+/// Writes a file the user named (following symlinks, never replacing a device, never half a
+/// file); a failure is bad input: another path will do.
+pub fn write_output(path: &Path, bytes: &[u8], what: &str) -> Result<(), Failure> {
+    ohmsight::output::write_file(path, bytes).map_err(|e| Failure::bad_input(format!("cannot write the {what}: {e}")))
+}
+
+/// Loads the scenario of `--scenario` (or the demo) with the `--seed` override.
+pub fn load_scenario(path: Option<&PathBuf>, seed: Option<u64>) -> Result<ohmsight_virtual::Scenario, Failure> {
+    let mut sc = match path {
+        Some(path) => scenario::load(path).map_err(|e| Failure::bad_input(e.to_string()))?,
+        None => scenario::demo(),
+    };
+    if let Some(seed) = seed {
+        sc.seed = seed;
+    }
+    Ok(sc)
+}
+
+/// Any link, boxed, so one code path serves the serial port and the simulated board.
+pub struct AnyLink(Box<dyn Link>);
+
+impl Link for AnyLink {
+    fn send(&mut self, bytes: &[u8]) -> std::io::Result<()> {
+        self.0.send(bytes)
+    }
+    fn recv(&mut self, buf: &mut [u8], timeout: std::time::Duration) -> std::io::Result<usize> {
+        self.0.recv(buf, timeout)
+    }
+    fn name(&self) -> String {
+        self.0.name()
+    }
+}
+
+/// The command line as typed, arguments with spaces or quotes quoted.
+pub fn command_line() -> String {
+    std::env::args()
+        .map(|a| {
+            if !a.is_empty() && a.chars().all(|c| c.is_ascii_alphanumeric() || "-_./=:,@+%".contains(c)) {
+                a
+            } else {
+                format!("'{}'", a.replace('\'', "'\\''"))
+            }
+        })
+        .collect::<Vec<_>>()
+        .join(" ")
+}
+
+/// A session on the board the link options name (its serial port, or the simulated board of
+/// the scenario file or the demo), and how it was reached, for the record.
+pub fn open_session(link: &LinkArgs) -> Result<(Session<AnyLink>, RunContext), Failure> {
+    let command = command_line();
+    if let Some(port) = &link.port {
+        let serial = SerialLink::open(port, link.baud).map_err(|e| Failure::bad_input(e.to_string()))?;
+        let mut session = Session::new(AnyLink(Box::new(serial)));
+        session.link_bytes_per_s = u64::from(link.baud / 10);
+        let ctx = RunContext {
+            link: LinkRecord::Serial { port: port.clone(), baud: link.baud },
+            scenario: None,
+            seed: None,
+            command,
+        };
+        return Ok((session, ctx));
+    }
+    let sc = load_scenario(link.scenario.as_ref(), link.seed)?;
+    let ctx = RunContext {
+        link: LinkRecord::InProcess,
+        scenario: Some(link.scenario.as_ref().map_or(scenario::DEMO_NAME.to_string(), |p| p.display().to_string())),
+        seed: Some(sc.seed),
+        command,
+    };
+    Ok((Session::new(AnyLink(Box::new(InProcessLink::new(&sc)))), ctx))
+}
+
+/// The progress bar on stderr, drawn from a run's events (hidden when stderr is no terminal
+/// or `quiet`).
+pub struct Bar(ProgressBar);
+
+impl Bar {
+    /// A bar, shown when stderr is a terminal and not `quiet`.
+    pub fn new(quiet: bool) -> Self {
+        let shown = !quiet && std::io::IsTerminal::is_terminal(&std::io::stderr());
+        let bar = if shown { ProgressBar::new(0) } else { ProgressBar::hidden() };
+        bar.set_style(
+            ProgressStyle::with_template("{spinner} {bar:30} {pos}/{len} experiments · {msg}")
+                .unwrap_or_else(|_| ProgressStyle::default_bar()),
+        );
+        Bar(bar)
+    }
+
+    /// Follows one event.
+    pub fn on(&self, event: &RunEvent) {
+        match event {
+            RunEvent::Planned { total } => self.0.set_length(*total),
+            RunEvent::Starting { pin: Some(ch), what } => self.0.set_message(format!("ch{ch} {what}")),
+            RunEvent::Starting { pin: None, .. } => self.0.set_message("precharge sources"),
+            RunEvent::Recorded(_) => self.0.inc(1),
+            RunEvent::Fitting => self.0.set_message("fitting"),
+            _ => {}
+        }
+    }
+
+    /// Clears the bar.
+    pub fn finish(&self) {
+        self.0.finish_and_clear();
+    }
+}

@@ -1,0 +1,138 @@
+//! `ohmsight history`: list stored runs; `history show RUN_ID`: one as `survey` printed it.
+
+use super::common::{print, write_output, DbArgs};
+use super::Failure;
+use ohmsight::advice::{advise, AdviceOptions};
+use ohmsight::analyse::analyse;
+use ohmsight::render::{html::survey_html, survey_json, text::survey_text, text::table};
+use ohmsight::store::{RunFilter, RunListing};
+use std::path::PathBuf;
+
+pub const EXAMPLES: &str = "Examples:
+  ohmsight history                                 every run in the default database
+  ohmsight history --unit 00000000c0ffee42 --since 2026-11-01
+  ohmsight history --board bench-f4 --json
+  ohmsight history show 01KBX3Q2                   a run as `survey` printed it
+  ohmsight history show 01KBX3Q2 --html run.html
+  ohmsight history --db postgres://station3@db.example/factory
+
+A run cut short (a crash, kill -9, an unplugged cable) is listed as incomplete with what it
+measured up to then; `history show` prints that part, `refit` analyses it again.
+
+Exit status: 0 listed or shown; 1 the database could not be read; 2 bad input (an unknown or
+ambiguous run id, a date that is not YYYY-MM-DD or RFC 3339, a database URL).";
+
+/// JSON schema name of the run list.
+pub const LIST_SCHEMA: &str = "ohmsight.history.v1";
+
+#[derive(clap::Args)]
+#[command(args_conflicts_with_subcommands = true)]
+pub struct Args {
+    #[command(subcommand)]
+    show: Option<Show>,
+    /// Only runs of this unit (its 16-hex-digit id, as `survey` prints it).
+    #[arg(long, value_name = "ID")]
+    unit: Option<String>,
+    /// Only runs of this board (its name).
+    #[arg(long, value_name = "NAME")]
+    board: Option<String>,
+    /// Only runs started on or after this day (YYYY-MM-DD, UTC) or instant (RFC 3339).
+    #[arg(long, value_name = "DATE", value_parser = parse_since)]
+    since: Option<String>,
+    /// Print one JSON document instead of the table.
+    #[arg(long)]
+    json: bool,
+    #[command(flatten)]
+    db: DbArgs,
+}
+
+#[derive(clap::Subcommand)]
+enum Show {
+    /// Print one stored run as `survey` printed it (analysed again from its evidence).
+    Show {
+        /// The run's id (a unique prefix of at least 6 characters will do).
+        #[arg(value_name = "RUN_ID")]
+        id: String,
+        /// Print its JSON document (schema ohmsight.survey.v2) instead of the table.
+        #[arg(long)]
+        json: bool,
+        /// Also write it as one self-contained HTML page.
+        #[arg(long, value_name = "FILE")]
+        html: Option<PathBuf>,
+    },
+}
+
+/// `2026-11-01` (midnight UTC) or an RFC 3339 instant, as the store's fixed-width UTC text.
+fn parse_since(text: &str) -> Result<String, String> {
+    let t = text.trim();
+    let ts = if let Ok(date) = t.parse::<jiff::civil::Date>() {
+        date.to_zoned(jiff::tz::TimeZone::UTC).map(|z| z.timestamp()).map_err(|e| e.to_string())?
+    } else {
+        t.parse::<jiff::Timestamp>()
+            .map_err(|_| format!("'{text}' is not a date (YYYY-MM-DD) or an RFC 3339 instant (2026-11-01T08:00:00Z)"))?
+    };
+    Ok(ts.strftime("%Y-%m-%dT%H:%M:%S%.3fZ").to_string())
+}
+
+/// `12 driven, 2 floating, 1 at-rail, 1 unknown`, or `—` before any verdict was stored.
+fn verdicts_text(l: &RunListing) -> String {
+    if l.verdicts.is_empty() {
+        return "—".into();
+    }
+    let order = ["driven", "floating", "at-rail", "unknown"];
+    let mut parts: Vec<String> = order.iter().filter_map(|k| l.verdicts.get(*k).map(|n| format!("{n} {k}"))).collect();
+    parts.extend(l.verdicts.iter().filter(|(k, _)| !order.contains(&k.as_str())).map(|(k, n)| format!("{n} {k}")));
+    parts.join(", ")
+}
+
+fn list_text(db: &str, runs: &[RunListing]) -> String {
+    if runs.is_empty() {
+        return format!("no runs in {db} match\n");
+    }
+    let header = ["run", "started (UTC)", "kind", "board", "unit", "complete", "experiments", "verdicts"];
+    let rows: Vec<Vec<String>> = runs
+        .iter()
+        .map(|l| {
+            vec![
+                l.id.clone(),
+                l.started.clone(),
+                l.kind.as_str().into(),
+                l.board.clone(),
+                l.unit_id.clone(),
+                if l.complete { "yes".into() } else { "no".into() },
+                l.experiments.to_string(),
+                verdicts_text(l),
+            ]
+        })
+        .collect();
+    let mut out = format!("{} run{} in {db}\n\n", runs.len(), if runs.len() == 1 { "" } else { "s" });
+    out += &table(&header, &rows);
+    for l in runs.iter().filter(|l| l.fault.is_some()) {
+        out += &format!("  {}: {}\n", l.id, l.fault.as_deref().unwrap_or_default());
+    }
+    out
+}
+
+pub fn run(args: Args) -> Result<(), Failure> {
+    let mut store = args.db.open()?;
+    if let Some(Show::Show { id, json, html }) = args.show {
+        let record = store.load_run(&id)?;
+        let r = analyse(&record);
+        let opts = AdviceOptions::default();
+        let advice = advise(&r, &opts);
+        print(&if json { survey_json(&r, &advice, &opts) } else { survey_text(&r, &advice) })?;
+        if let Some(path) = html {
+            write_output(&path, survey_html(&r).as_bytes(), "HTML report")?;
+        }
+        return Ok(());
+    }
+    let filter = RunFilter { unit: args.unit, board: args.board, since: args.since, kind: None };
+    let runs = store.list_runs(&filter)?;
+    let db = store.describe();
+    if args.json {
+        let doc = serde_json::json!({ "schema": LIST_SCHEMA, "database": db, "runs": runs });
+        print(&(serde_json::to_string_pretty(&doc).unwrap_or_default() + "\n"))
+    } else {
+        print(&list_text(&db, &runs))
+    }
+}

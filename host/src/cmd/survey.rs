@@ -1,0 +1,155 @@
+//! `ohmsight survey`: survey a board, print the result, keep the run in the store.
+
+use super::common::{open_session, print, write_output, Bar, DbArgs, LinkArgs};
+use super::Failure;
+use ohmsight::advice::{advise, AdviceOptions};
+use ohmsight::render::{html::survey_html, survey_json, text::survey_text};
+use ohmsight::run::{survey_with, RunEvent, SurveyOptions};
+use ohmsight::store::{PinSummary, Store, StoreError};
+use std::path::PathBuf;
+
+pub const EXAMPLES: &str = "Examples:
+  ohmsight survey                                  the demo board, simulated
+  ohmsight survey --scenario boards/virtual/scenarios/demo.toml --seed 7
+  ohmsight survey --port /dev/ttyACM0 --json > unit-0042.json
+  ohmsight survey --html demo-report.html          the table, and a page with the plots
+  ohmsight survey --db postgres://station3@db.example/factory
+
+The text and the JSON end with advice per pin (sample time to use, a buffer or filter
+capacitor where none settles, dummy conversions against memory, averaging) and a scan plan
+whose worst error stays under ½ LSB with the other pins at any level.
+
+Every survey is kept in the run database (--db, $OHMSIGHT_DB, or runs.db in this user's data
+folder), each experiment committed as it arrives: a crash or an unplugged cable loses at most
+the experiment in flight, and the run stays marked incomplete. `ohmsight history` lists runs,
+`ohmsight refit RUN_ID` analyses one again. --no-store keeps nothing.
+
+Exit status: 0 every pin fully surveyed (and stored); 1 the survey failed or was cut short
+(what was measured is still printed and stored), or the run could not be stored; 2 bad input
+(scenario file, arguments, a serial port that cannot be opened, a database URL).
+
+A board tied to mains or high voltage must be surveyed through an isolated link and supply;
+follow local codes and licensed practice.";
+
+#[derive(clap::Args)]
+pub struct Args {
+    #[command(flatten)]
+    link: LinkArgs,
+    /// Survey only this channel (repeat for several).
+    #[arg(long = "channel", value_name = "N")]
+    channels: Vec<u8>,
+    /// Print one JSON document (schema ohmsight.survey.v2) on stdout instead of the table.
+    #[arg(long)]
+    json: bool,
+    /// Also write the survey as one self-contained HTML page (plots inline, opens offline).
+    #[arg(long, value_name = "FILE")]
+    html: Option<PathBuf>,
+    /// No progress bar, no note of where the run was stored.
+    #[arg(long, short)]
+    quiet: bool,
+    /// The smallest change you need to see on a pin, volts (e.g. 100e-6): where it is below one
+    /// LSB the advice says how many readings to average and whether dither is needed.
+    #[arg(long, value_name = "VOLTS", value_parser = positive_volts)]
+    resolve: Option<f64>,
+    #[command(flatten)]
+    db: DbArgs,
+    /// Keep nothing: do not write the run to the database.
+    #[arg(long, conflicts_with = "db")]
+    no_store: bool,
+}
+
+fn positive_volts(text: &str) -> Result<f64, String> {
+    match text.trim().parse::<f64>() {
+        Ok(v) if v.is_finite() && v > 0.0 => Ok(v),
+        _ => Err(format!("'{text}' is not a positive voltage in volts (e.g. 100e-6 for 100 µV)")),
+    }
+}
+
+/// Writes a run to the store as it happens; after the first failure it writes nothing more
+/// and keeps the error for the end.
+struct Keeper {
+    store: Box<dyn Store>,
+    run_id: Option<String>,
+    error: Option<StoreError>,
+}
+
+impl Keeper {
+    fn on(&mut self, event: &RunEvent) {
+        if self.error.is_some() {
+            return;
+        }
+        let done = match (event, &self.run_id) {
+            (RunEvent::Began(record), _) => {
+                self.run_id = Some(record.run.id.clone());
+                self.store.begin_run(record)
+            }
+            (RunEvent::Recorded(e), Some(id)) => self.store.add_experiment(id, e),
+            (RunEvent::PinComplete(ch), Some(id)) => self.store.set_pin_complete(id, *ch, true),
+            _ => Ok(()),
+        };
+        if let Err(e) = done {
+            self.error = Some(e);
+        }
+    }
+}
+
+pub fn run(args: Args) -> Result<(), Failure> {
+    let mut keeper = if args.no_store {
+        None
+    } else {
+        let store = args.db.open().map_err(|f| Failure {
+            message: format!("{} (or survey with --no-store to keep nothing)", f.message),
+            ..f
+        })?;
+        Some(Keeper { store, run_id: None, error: None })
+    };
+    let (mut session, context) = open_session(&args.link)?;
+    let opts = SurveyOptions { any_version: args.link.any_version, channels: args.channels.clone(), context };
+    let bar = Bar::new(args.quiet);
+    let surveyed = survey_with(&mut session, &opts, &mut |e| {
+        bar.on(e);
+        if let Some(k) = keeper.as_mut() {
+            k.on(e);
+        }
+    });
+    bar.finish();
+    let r = surveyed?.report;
+    let advice_opts = AdviceOptions { resolve_volts: args.resolve };
+    let advice = advise(&r, &advice_opts);
+    let mut stored = None;
+    if let Some(k) = keeper.as_mut() {
+        if k.error.is_none() {
+            let pins: Vec<PinSummary> = r.pins.iter().map(PinSummary::from_report).collect();
+            if let Err(e) = k.store.finish_run(&r.record.run, &pins) {
+                k.error = Some(e);
+            }
+        }
+        stored = Some(k.store.describe());
+    }
+    let out = if args.json { survey_json(&r, &advice, &advice_opts) } else { survey_text(&r, &advice) };
+    print(&out)?;
+    if let Some(path) = &args.html {
+        write_output(path, survey_html(&r).as_bytes(), "HTML report").map_err(|f| Failure {
+            message: format!(
+                "{} (the survey above is complete{})",
+                f.message,
+                stored.as_ref().map_or("", |_| " and stored")
+            ),
+            ..f
+        })?;
+    }
+    if let Some(Keeper { error: Some(e), .. }) = &keeper {
+        return Err(Failure::failed(format!(
+            "the run could not be kept in {}: {e} (what was printed above is complete; save it with --json)",
+            stored.unwrap_or_default()
+        )));
+    }
+    if let (Some(db), false) = (&stored, args.quiet) {
+        eprintln!("ohmsight: run {} kept in {db}", r.record.run.id);
+    }
+    if let Some(f) = &r.fault {
+        // What was measured is printed above and stored; the exit status still says it is partial.
+        return Err(Failure::failed(format!("the survey was cut short: {f}")));
+    }
+    Ok(())
+}

@@ -1,0 +1,273 @@
+//! The plan: which experiments a survey runs on each pin, decided from what the board is and
+//! what the earlier experiments showed. Pure functions: nothing here talks to a board.
+//!
+//! 1. Measure the precharge sources ([`Plan::precharge_levels`]).
+//! 2. Screen every pin: a short precharge sweep (shortest, middle, longest sample time; low and
+//!    high precharge), then, unless the pin sits at a rail, a run of back-to-back pairs that
+//!    shows droop behind a large node capacitor ([`Plan::screen`], [`Plan::after_screen`]).
+//! 3. Only where the screen shows something to resolve: a full precharge sweep, a repeat
+//!    burst, period sweeps from both precharges (and a droop sweep); otherwise a long droop run
+//!    that bounds a stiff source ([`Plan::detail`]). Every pin not at a rail gets a noise record.
+//! 4. After the fit: an order swap at the recommended sample time measures the memory of the
+//!    previous channel ([`Plan::memory`]).
+
+use crate::model::{BoardModel, CellObs};
+use heapless::Vec as HVec;
+use ohmsight_protocol::{Experiment, FrontEnd};
+
+/// Longest period of a period sweep, ns.
+const LONGEST_PERIOD_NS: u32 = 20_000_000;
+/// Noise-record period, ns (4 kHz: 50/60 Hz and harmonics well inside Nyquist).
+pub const NOISE_PERIOD_NS: u32 = 250_000;
+/// Idle time before a noise record, ns.
+const NOISE_SETTLE_NS: u32 = 100_000_000;
+/// Noise-record length.
+const NOISE_COUNT: u16 = 1024;
+/// Readings at the start of a raw record that are left out of its analysis (the node's
+/// response to the conversion before the record).
+pub const RAW_LEAD_IN: usize = 8;
+
+/// Why a board cannot be surveyed.
+#[derive(Debug, Clone, PartialEq, Eq)]
+#[non_exhaustive]
+pub enum PlanError {
+    /// The board lists no sample times.
+    NoSampleTimes,
+    /// The board has no low and high precharge sources.
+    NoPrecharges,
+}
+
+impl std::fmt::Display for PlanError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            PlanError::NoSampleTimes => f.write_str("the board lists no sample times"),
+            PlanError::NoPrecharges => f.write_str("the board needs a low and a high precharge source to be surveyed"),
+        }
+    }
+}
+
+impl std::error::Error for PlanError {}
+
+/// Channel choices that every pin's experiments share.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Plan {
+    /// The low precharge source.
+    pub lo: u8,
+    /// The high precharge source.
+    pub hi: u8,
+    /// Number of selectable sample times.
+    pub n_samples: u8,
+    /// Index of the longest sample time.
+    pub longest: u8,
+    /// Index of the middle sample time.
+    pub mid: u8,
+}
+
+/// What the screen found on a pin.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Screened {
+    /// Every reading at a rail (its level, V): nothing more to measure.
+    Rail(f64),
+    /// Not at a rail: run `droop` next, with `far` the precharge farther from the pin's level.
+    Droop {
+        /// The precharge farther from the pin's level.
+        far: u8,
+        /// The run of back-to-back pairs.
+        droop: Experiment,
+    },
+}
+
+/// A pin's screen, as the detail step needs it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ScreenResult {
+    /// The short precharge sweep's cells: [s0 lo, s0 hi, mid lo, mid hi, long lo, long hi].
+    pub cells: Vec<CellObs>,
+    /// Drift between the halves of the back-to-back run, LSB.
+    pub burst_droop: f64,
+    /// The precharge farther from the pin's level.
+    pub far: u8,
+}
+
+impl Plan {
+    /// The plan for a described front end.
+    pub fn new(fe: &FrontEnd) -> Result<Plan, PlanError> {
+        if fe.sample_ps.is_empty() {
+            return Err(PlanError::NoSampleTimes);
+        }
+        let (lo, hi) = match (
+            fe.precharges.iter().min_by_key(|p| p.nominal_microvolts),
+            fe.precharges.iter().max_by_key(|p| p.nominal_microvolts),
+        ) {
+            (Some(l), Some(h)) if l.channel != h.channel => (l.channel, h.channel),
+            _ => return Err(PlanError::NoPrecharges),
+        };
+        let n_samples = fe.sample_ps.len() as u8;
+        Ok(Plan { lo, hi, n_samples, longest: n_samples - 1, mid: n_samples / 2 })
+    }
+
+    /// A raw record of each precharge source at the longest sample time.
+    pub fn precharge_levels(&self) -> [Experiment; 2] {
+        [self.lo, self.hi].map(|p| Experiment::NoiseRecord {
+            target: p,
+            sample: self.longest,
+            period_ns: 0,
+            count: 64,
+            settle_ns: 0,
+        })
+    }
+
+    /// `repeats` × [low, pin; high, pin] at each sample index, precharged at the longest.
+    fn precharge_sweep(&self, target: u8, samples: &[u8], repeats: u16) -> Experiment {
+        Experiment::PrechargeSweep {
+            target,
+            precharges: vec_of(&[self.lo, self.hi]),
+            precharge_sample: self.longest,
+            samples: vec_of(samples),
+            repeats,
+            rest_ns: 0,
+            settle_ns: 0,
+        }
+    }
+
+    /// The precharge farther from a pin that reads `level_lsb`.
+    pub fn far_from(&self, model: &BoardModel, level_lsb: f64) -> u8 {
+        if level_lsb > model.full_scale() / 2.0 {
+            self.lo
+        } else {
+            self.hi
+        }
+    }
+
+    /// The screen's first experiment: a short precharge sweep.
+    pub fn screen(&self, pin: u8) -> Experiment {
+        self.precharge_sweep(pin, &[0, self.mid, self.longest], 8)
+    }
+
+    /// What the short sweep's cells say: a rail, or the droop run to do next. A large node
+    /// capacitor hides its source behind a tiny charge-sharing step; a run of back-to-back
+    /// [precharge, pin] pairs accumulates the droop where the source cannot keep up (two
+    /// cells: the first and the second half of the run).
+    pub fn after_screen(&self, model: &BoardModel, pin: u8, cells: &[CellObs]) -> Screened {
+        if let Some(rail) = screen_rail(model, cells) {
+            return Screened::Rail(rail);
+        }
+        let level = if cells.len() >= 6 { (cells[4].mean + cells[5].mean) / 2.0 } else { 0.0 };
+        let far = self.far_from(model, level);
+        Screened::Droop { far, droop: period_sweep(pin, far, self.longest, 0, &[0, 0], 32) }
+    }
+
+    /// The detailed experiments for a pin not at a rail, in the order to run them (the noise
+    /// record comes after them: [`Plan::noise`]).
+    pub fn detail(&self, model: &BoardModel, pin: u8, screen: &ScreenResult) -> Vec<Experiment> {
+        let s = &screen.cells;
+        let longest = self.longest;
+        // cells: [s0 lo, s0 hi, mid lo, mid hi, long lo, long hi]
+        let settled = s.len() >= 6
+            && (s[0].mean - s[4].mean).abs() < 1.0
+            && (s[1].mean - s[5].mean).abs() < 1.0
+            && screen.burst_droop < 1.0;
+        if settled {
+            // Stiff on every timescale so far: hundreds of back-to-back pairs push the node
+            // toward the switched-capacitor equilibrium Rs/(Rs + P/Ch), which bounds Rs even if
+            // a large capacitor hides it from single conversions.
+            return vec![period_sweep(pin, screen.far, longest, 0, &[0, 0, 0], 256)];
+        }
+        let all: Vec<u8> = (0..self.n_samples).collect();
+        let mut out = vec![
+            self.precharge_sweep(pin, &all, 24),
+            Experiment::RepeatBurst {
+                target: pin,
+                precharge: screen.far,
+                precharge_sample: longest,
+                sample: 0,
+                length: 16,
+                repeats: 8,
+                rest_ns: 0,
+                settle_ns: 0,
+            },
+        ];
+        let pair_ns = (2 * model.timing().busy_ps(longest) / 1000) as u32;
+        let mut periods = HVec::<u32, 12>::new();
+        for k in [1u32, 3, 10, 30, 100, 300, 1000, 3000] {
+            let p = pair_ns.saturating_mul(k).min(LONGEST_PERIOD_NS);
+            if periods.last().is_none_or(|&l| p > l) {
+                let _ = periods.push(p);
+            }
+        }
+        if periods.last() != Some(&LONGEST_PERIOD_NS) {
+            let _ = periods.push(LONGEST_PERIOD_NS);
+        }
+        for pre in [self.lo, self.hi] {
+            out.push(period_sweep(pin, pre, longest, longest, &periods, 12));
+        }
+        if screen.burst_droop >= 1.0 {
+            // The source cannot keep up with back-to-back conversions: hundreds of them at the
+            // shortest periods drive the node toward the switched-capacitor equilibrium
+            // Rs/(Rs + P/Ch), which measures Rs even behind a large capacitor.
+            out.push(period_sweep(pin, screen.far, longest, longest, &periods[..3.min(periods.len())], 256));
+        }
+        out
+    }
+
+    /// The noise record, after the node has had time to recover from the experiments before it.
+    pub fn noise(&self, pin: u8) -> Experiment {
+        Experiment::NoiseRecord {
+            target: pin,
+            sample: self.longest,
+            period_ns: NOISE_PERIOD_NS,
+            count: NOISE_COUNT,
+            settle_ns: NOISE_SETTLE_NS,
+        }
+    }
+
+    /// The order swap that measures the memory of the previous channel: at the pin's settling
+    /// sample time (the longest when none settles), after the precharge farther from its level.
+    pub fn memory(&self, model: &BoardModel, pin: u8, sample: Option<u8>, level_lsb: f64) -> Experiment {
+        let sample = sample.unwrap_or(self.longest);
+        let far = self.far_from(model, level_lsb);
+        Experiment::OrderSwap { a: far, b: pin, sample, repeats: 32, rest_ns: 0, settle_ns: 0 }
+    }
+}
+
+/// The rail a pin sits at when every reading of its screen is there, V.
+pub fn screen_rail(model: &BoardModel, cells: &[CellObs]) -> Option<f64> {
+    let max = model.max_code();
+    if cells.is_empty() {
+        None
+    } else if cells.iter().all(|c| c.mean <= 0.5) {
+        Some(0.0)
+    } else if cells.iter().all(|c| c.mean >= max - 0.5) {
+        Some(model.vref_volts)
+    } else {
+        None
+    }
+}
+
+/// Drift between the first and the last cell of a back-to-back run, LSB.
+pub fn burst_droop(cells: &[CellObs]) -> f64 {
+    cells.first().zip(cells.last()).map_or(0.0, |(a, b)| (a.mean - b.mean).abs())
+}
+
+/// `repeats` × [precharge, target] at each period (see [`Experiment::PeriodSweep`]).
+fn period_sweep(
+    target: u8,
+    precharge: u8,
+    precharge_sample: u8,
+    sample: u8,
+    periods: &[u32],
+    repeats: u16,
+) -> Experiment {
+    Experiment::PeriodSweep {
+        target,
+        precharge,
+        precharge_sample,
+        sample,
+        periods_ns: HVec::from_slice(&periods[..periods.len().min(ohmsight_protocol::MAX_PERIODS)]).unwrap_or_default(),
+        repeats,
+        settle_ns: 0,
+    }
+}
+
+fn vec_of<const N: usize>(items: &[u8]) -> HVec<u8, N> {
+    HVec::from_slice(&items[..items.len().min(N)]).unwrap_or_default()
+}
