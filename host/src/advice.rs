@@ -223,6 +223,17 @@ fn plan_sample(model: &BoardModel, p: &PinReport) -> u8 {
 /// Advice for every pin and a scan plan.
 pub fn advise(r: &SurveyReport, opts: &AdviceOptions) -> BoardAdvice {
     let model = &r.model;
+    if r.pins.is_empty() || model.sample_ps.is_empty() {
+        let plan = ScanPlan {
+            entries: Vec::new(),
+            idle_s: 0.0,
+            idle_for: None,
+            scan_s: 0.0,
+            worst_error_lsb: 0.0,
+            left_out: Vec::new(),
+        };
+        return BoardAdvice { lsb_volts: model.lsb_volts(), pins: Vec::new(), plan };
+    }
     let plan = scan_plan(model, &r.pins);
     let mut pins: Vec<PinAdvice> = r.pins.iter().map(|p| pin_advice(model, p, opts)).collect();
     for (a, p) in pins.iter_mut().zip(&r.pins) {

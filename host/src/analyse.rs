@@ -54,6 +54,8 @@ pub struct PinEvidence {
     pub swap: Option<Swap>,
     /// Conversions spent on the pin (failed attempts included).
     pub conversions: u64,
+    /// The survey steps with at least one experiment on the pin.
+    pub purposes: Vec<Purpose>,
 }
 
 /// Mean level of a raw record after its lead-in, LSB.
@@ -110,6 +112,7 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 noise: None,
                 swap: None,
                 conversions: 0,
+                purposes: Vec::new(),
             };
             let mut end_ps: Option<u64> = None;
             for e in record.experiments.iter().filter(|e| e.pin == Some(pin.channel)) {
@@ -119,6 +122,9 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 let attempts = u64::from(e.attempts.max(1));
                 ev.conversions += u64::from(e.conversions) * attempts;
                 let memory = e.purpose == Purpose::Memory;
+                if !ev.purposes.contains(&e.purpose) {
+                    ev.purposes.push(e.purpose);
+                }
                 for attempt in 0..attempts {
                     let start = e.start_ps + attempt * nominal;
                     let last = attempt + 1 == attempts;
@@ -190,9 +196,14 @@ pub fn fit_pins(model: &BoardModel, pins: &[PinEvidence]) -> Vec<Option<Fit>> {
     })
 }
 
-/// Judges every pin with its fit.
-pub fn judge_pins(model: &BoardModel, pins: &[PinEvidence], fits: &[Option<Fit>]) -> Vec<PinReport> {
-    pins.iter().zip(fits).map(|(pin, fit)| judge_pin(model, pin, fit.clone())).collect()
+/// Judges every pin with its fit; `run_complete`: the run did everything it planned.
+pub fn judge_pins(
+    model: &BoardModel,
+    pins: &[PinEvidence],
+    fits: &[Option<Fit>],
+    run_complete: bool,
+) -> Vec<PinReport> {
+    pins.iter().zip(fits).map(|(pin, fit)| judge_pin(model, pin, fit.clone(), run_complete)).collect()
 }
 
 /// The report of a record whose pins have been fitted.
@@ -202,7 +213,7 @@ pub fn report(record: &RunRecord, model: &BoardModel, pins: &[PinEvidence], fits
         record: record.clone(),
         board: record.board.clone(),
         model: model.clone(),
-        pins: judge_pins(model, pins, fits),
+        pins: judge_pins(model, pins, fits, record.run.complete),
         link: LinkStats {
             bytes_sent: stats.link_bytes_sent,
             bytes_received: stats.link_bytes_received,

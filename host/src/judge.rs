@@ -106,6 +106,9 @@ pub struct Memory {
 pub struct PinReport {
     /// Hardware channel.
     pub channel: u8,
+    /// What the survey set out to measure on this pin and did not (a run cut short): `screen`,
+    /// `detail`, `noise`, `memory`. Nothing is claimed about what is listed here.
+    pub not_measured: Vec<&'static str>,
     /// Label from the board.
     pub label: String,
     /// Verdict.
@@ -163,13 +166,31 @@ pub struct SurveyReport {
 
 /// Judges one pin: verdict, intervals, settling, noise flags and memory. A pin whose planned
 /// experiments did not all run is `unknown`, whatever part of it was measured.
-pub fn judge_pin(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
+///
+/// `run_complete` says whether the run did everything it planned: a pin of a run cut short that
+/// would have had a memory test and has none says so (`not_measured`).
+pub fn judge_pin(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>, run_complete: bool) -> PinReport {
     let mut r = judge(model, pin, fit);
     if !pin.complete {
         r.verdict = Verdict::Unknown;
-        r.reason = Some("not surveyed: the link failed before this pin was done".into());
+        r.reason = Some("not surveyed: the survey was cut short before this pin was done".into());
+        // No claim on what was not measured: a settling time found from a partial history
+        // would be a guess.
+        r.min_sample_index = None;
+        r.min_sample_ns = None;
+        r.flags.retain(|f| *f != Flag::UnderSettled);
+        let has = |purpose| pin.purposes.contains(&purpose);
+        use crate::record::Purpose;
+        r.not_measured = [(Purpose::Screen, "screen"), (Purpose::Detail, "detail"), (Purpose::Noise, "noise")]
+            .into_iter()
+            .filter(|(p, _)| !has(*p))
+            .map(|(_, name)| name)
+            .collect();
+        r.not_measured.push("memory");
     } else if let Some(swap) = &pin.swap {
         memory(model, swap.previous, swap.sample, &swap.cells, &mut r);
+    } else if !run_complete && memory_planned(&r) {
+        r.not_measured.push("memory");
     }
     r.conversions = pin.conversions;
     r.events = pin.events.iter().chain(&pin.memory_events).cloned().collect();
@@ -177,6 +198,12 @@ pub fn judge_pin(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> Pin
     r.flags.sort();
     r.flags.dedup();
     r
+}
+
+/// Whether the survey tests this pin's memory: a pin with a verdict to test (not a rail read
+/// without a fit).
+pub fn memory_planned(r: &PinReport) -> bool {
+    r.verdict != Verdict::AtRail || r.fit.is_some()
 }
 
 /// The memory of the previous channel from an order swap's cells
@@ -205,6 +232,7 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
     let none = Interval { estimate: None, low: None, high: None };
     let mut r = PinReport {
         channel: pin.channel,
+        not_measured: Vec::new(),
         label: pin.label.clone(),
         verdict: Verdict::Unknown,
         reason: None,

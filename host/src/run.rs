@@ -6,7 +6,7 @@
 //! crash or an unplugged cable loses at most the experiment in flight.
 
 use crate::analyse::{board_model, fit_pins, judge_pins, pin_evidence, report};
-use crate::judge::{SurveyReport, Verdict};
+use crate::judge::{memory_planned, SurveyReport};
 use crate::link::Link;
 use crate::model::{BoardModel, CellObs};
 use crate::plan::{burst_droop, Plan, PlanError, ScreenResult, Screened};
@@ -14,7 +14,7 @@ use crate::record::{
     new_run_id, now_rfc3339, role_name, BoardRecord, ChannelRecord, ExperimentRecord, ExperimentSpec, FrontEndRecord,
     LinkRecord, PinRecord, Profile, Purpose, RunKind, RunMeta, RunRecord, RunStats,
 };
-use crate::session::{RunRecords, Session, SessionError};
+use crate::session::{BoardInfo, LinkStats, RunRecords, Session, SessionError};
 use ohmsight_protocol::analog::volts_to_lsb;
 use ohmsight_protocol::{ChannelRole, Experiment, Steps};
 use std::time::{Duration, Instant};
@@ -24,6 +24,8 @@ use std::time::{Duration, Instant};
 pub enum RunEvent<'a> {
     /// The board answered the handshake and the run record exists (no experiments yet).
     Began(&'a RunRecord),
+    /// An interrupted run goes on: the board answered and is the run's; new experiments follow.
+    Resumed(&'a RunRecord),
     /// More experiments are planned than announced so far (`total` in all).
     Planned {
         /// Experiments planned in all.
@@ -82,6 +84,20 @@ pub enum SurveyError {
     Session(SessionError),
     /// The board cannot be surveyed as described.
     Board(PlanError),
+    /// The board on the link is not the one the run to resume was made on.
+    OtherBoard {
+        /// The run.
+        run: String,
+        /// The board and unit of the run.
+        was: String,
+        /// The board and unit answering now.
+        now: String,
+    },
+    /// The run to resume measured nothing (its board never answered): survey anew.
+    NothingToResume {
+        /// The run.
+        run: String,
+    },
     /// A channel asked for is not a pin of the board.
     NoSuchPin {
         /// The channel.
@@ -95,7 +111,10 @@ impl SurveyError {
     /// Whether the user asked for something the board does not have (bad input), rather than
     /// the link or board failing.
     pub fn is_bad_input(&self) -> bool {
-        matches!(self, SurveyError::NoSuchPin { .. })
+        matches!(
+            self,
+            SurveyError::NoSuchPin { .. } | SurveyError::OtherBoard { .. } | SurveyError::NothingToResume { .. }
+        )
     }
 }
 
@@ -104,6 +123,14 @@ impl std::fmt::Display for SurveyError {
         match self {
             SurveyError::Session(e) => e.fmt(f),
             SurveyError::Board(e) => e.fmt(f),
+            SurveyError::OtherBoard { run, was, now } => write!(
+                f,
+                "run {run} was made on board {was}, but board {now} answers on this link: connect the board of \
+                 that run, or survey this one anew"
+            ),
+            SurveyError::NothingToResume { run } => {
+                write!(f, "run {run} measured nothing (its board never answered): survey the board anew")
+            }
             SurveyError::NoSuchPin { channel, pins } => {
                 let list: Vec<String> = pins.iter().map(u8::to_string).collect();
                 write!(f, "channel {channel} is not a pin of this board; it has pins {}", list.join(", "))
@@ -144,7 +171,7 @@ impl<L: Link> Runner<'_, '_, L> {
         let rec = self.session.run(&exp, Duration::from_nanos(nominal / 1000))?;
         let attempts = rec.failed_attempts + 1;
         let e = ExperimentRecord {
-            seq: self.record.experiments.len() as u32,
+            seq: self.record.experiments.iter().map(|e| e.seq + 1).max().unwrap_or(0),
             purpose,
             pin,
             experiment: ExperimentSpec::from(&exp),
@@ -163,10 +190,30 @@ impl<L: Link> Runner<'_, '_, L> {
         Ok(rec)
     }
 
-    /// The screen of one pin: what the detail step needs, or `None` for a pin at a rail.
+    /// The experiments of `purpose` the record already holds on `pin`, in order.
+    fn recorded(&self, pin: u8, purpose: Purpose) -> Vec<ExperimentRecord> {
+        self.record.experiments.iter().filter(|e| e.pin == Some(pin) && e.purpose == purpose).cloned().collect()
+    }
+
+    /// The cells of `exp` on `pin`: from the record when it holds them, else measured now.
+    fn cells(
+        &mut self,
+        recorded: Option<&ExperimentRecord>,
+        purpose: Purpose,
+        pin: u8,
+        exp: Experiment,
+    ) -> Result<Vec<CellObs>, SessionError> {
+        Ok(match recorded {
+            Some(e) => e.cells.iter().map(|c| CellObs::from_aggregate(&c.aggregate())).collect(),
+            None => self.run(purpose, Some(pin), exp)?.cells.iter().map(CellObs::from_aggregate).collect(),
+        })
+    }
+
+    /// The screen of one pin (what the record lacks of it is measured): what the detail step
+    /// needs, or `None` for a pin at a rail.
     fn screen(&mut self, plan: &Plan, pin: u8) -> Result<Option<ScreenResult>, SessionError> {
-        let rec = self.run(Purpose::Screen, Some(pin), plan.screen(pin))?;
-        let cells: Vec<CellObs> = rec.cells.iter().map(CellObs::from_aggregate).collect();
+        let recorded = self.recorded(pin, Purpose::Screen);
+        let cells = self.cells(recorded.first(), Purpose::Screen, pin, plan.screen(pin))?;
         match plan.after_screen(&self.model, pin, &cells) {
             Screened::Rail(_) => {
                 // No droop run on a rail.
@@ -174,24 +221,31 @@ impl<L: Link> Runner<'_, '_, L> {
                 Ok(None)
             }
             Screened::Droop { far, droop } => {
-                let rec = self.run(Purpose::Screen, Some(pin), droop)?;
-                let burst: Vec<CellObs> = rec.cells.iter().map(CellObs::from_aggregate).collect();
+                let burst = self.cells(recorded.get(1), Purpose::Screen, pin, droop)?;
                 Ok(Some(ScreenResult { cells, burst_droop: burst_droop(&burst), far }))
             }
         }
     }
 
-    /// The detail experiments and the noise record of one pin not at a rail.
+    /// The detail experiments and the noise record of one pin not at a rail (those the record
+    /// does not hold yet: the plan runs them in order, so the record holds the first ones).
     fn detail(&mut self, plan: &Plan, pin: u8, screen: &ScreenResult) -> Result<(), SessionError> {
-        let exps = plan.detail(&self.model, pin, screen);
-        self.plan_more(exps.len() as i64 + 1);
+        let done = self.recorded(pin, Purpose::Detail).len();
+        let exps: Vec<Experiment> = plan.detail(&self.model, pin, screen).into_iter().skip(done).collect();
+        let noise = self.recorded(pin, Purpose::Noise).is_empty();
+        self.plan_more(exps.len() as i64 + i64::from(noise));
         for exp in exps {
             self.run(Purpose::Detail, Some(pin), exp)?;
         }
-        self.run(Purpose::Noise, Some(pin), plan.noise(pin))?;
+        if noise {
+            self.run(Purpose::Noise, Some(pin), plan.noise(pin))?;
+        }
         Ok(())
     }
 }
+
+/// The board name and unit id of a run whose board never identified itself.
+pub const UNIDENTIFIED: &str = "unidentified";
 
 /// A finished (or cut short) survey: its record and the analysis of it.
 #[derive(Debug, Clone)]
@@ -227,8 +281,15 @@ pub fn survey_with<L: Link>(
 ) -> Result<Surveyed, SurveyError> {
     let wall = Instant::now();
     let started = now_rfc3339();
-    let info = session.handshake(opts.any_version)?;
-    let plan = Plan::new(&info.front_end).map_err(SurveyError::Board)?;
+    // A board that does not answer or cannot be surveyed still gets a record: the run, its
+    // fault, and nothing measured.
+    let (info, plan) = match session.handshake(opts.any_version) {
+        Ok(info) => match Plan::new(&info.front_end) {
+            Ok(plan) => (info, plan),
+            Err(e) => return Ok(unsurveyed(opts, started, wall, Some(&info), e.to_string(), session, on_event)),
+        },
+        Err(e) => return Ok(unsurveyed(opts, started, wall, None, e.to_string(), session, on_event)),
+    };
     let all_pins: Vec<u8> = info.channels.iter().filter(|c| c.role == ChannelRole::Pin).map(|c| c.channel).collect();
     for &c in &opts.channels {
         if !all_pins.contains(&c) {
@@ -245,54 +306,94 @@ pub fn survey_with<L: Link>(
         return Err(SurveyError::NoSuchPin { channel: opts.channels.first().copied().unwrap_or(0), pins: all_pins });
     }
     let nominal_model = BoardModel::from_front_end(&info.front_end);
-    let ctx = &opts.context;
     let record = RunRecord {
-        run: RunMeta {
-            id: new_run_id(),
-            kind: RunKind::Survey,
-            started,
-            finished: None,
-            tool_version: env!("CARGO_PKG_VERSION").into(),
-            firmware_version: info.firmware.clone(),
-            protocol_version: info.protocol,
-            board: info.name.clone(),
-            unit_id: format!("{:016x}", info.unit_id),
-            link: ctx.link.clone(),
-            scenario: ctx.scenario.clone(),
-            seed: ctx.seed,
-            command: ctx.command.clone(),
-            channels: opts.channels.clone(),
-            complete: false,
-            fault: None,
-            stats: RunStats::default(),
-        },
+        run: run_meta(opts, started, Some(&info)),
         board: board_record(&info),
         profile: Profile::from_model(&nominal_model, &info.front_end),
         pins,
         experiments: Vec::new(),
     };
-    // The analysis builds its model from the record; so does the plan, so both agree.
-    let model = record.profile.model();
     on_event(&RunEvent::Began(&record));
-    let n_pins = record.pins.len() as u64;
-    let mut runner = Runner { session, model, now_ps: 0, record, on_event, planned: 0 };
-    runner.plan_more(2 + 2 * n_pins as i64);
+    Ok(measure(session, &plan, record, 0, RunStats::default(), wall, on_event))
+}
 
-    // 1. Precharge levels, measured. 2. Screen, 3. detail where needed. A link fault stops the
-    //    experiments; what was measured up to it is still fitted and reported.
+/// Idle time assumed before the first experiment of a resumed run, ps: the board was
+/// unplugged or restarted for an unknown while, so the model lets every node come to rest.
+pub const RESUME_GAP_PS: u64 = 1_000_000_000_000_000;
+
+/// Finishes an interrupted run on the same board: re-does only what the record lacks (the
+/// experiments after the fault, and the tests that depended on them), adds them to the same
+/// run, and analyses the whole.
+pub fn resume_with<L: Link>(
+    session: &mut Session<L>,
+    record: RunRecord,
+    opts: &SurveyOptions,
+    on_event: &mut dyn FnMut(&RunEvent),
+) -> Result<Surveyed, SurveyError> {
+    let wall = Instant::now();
+    if record.pins.is_empty() {
+        return Err(SurveyError::NothingToResume { run: record.run.id });
+    }
+    let info = session.handshake(opts.any_version)?;
+    // The same board, unit and description, or the evidence would mix two boards.
+    if info.name != record.board.name
+        || info.unit_id != record.board.unit_id
+        || FrontEndRecord::from(&info.front_end) != record.board.front_end
+    {
+        return Err(SurveyError::OtherBoard {
+            run: record.run.id,
+            was: format!("\"{}\" unit {:016x}", record.board.name, record.board.unit_id),
+            now: format!("\"{}\" unit {:016x}", info.name, info.unit_id),
+        });
+    }
+    let plan = Plan::new(&info.front_end).map_err(SurveyError::Board)?;
+    let last_end = record.experiments.iter().map(|e| e.end_ps).max().unwrap_or(0);
+    let base = record.run.stats;
+    let mut record = record;
+    record.run.fault = None;
+    record.run.finished = None;
+    on_event(&RunEvent::Resumed(&record));
+    Ok(measure(session, &plan, record, last_end + RESUME_GAP_PS, base, wall, on_event))
+}
+
+/// Measures whatever of the plan the record does not hold yet (everything, for a new run),
+/// then fits every pin, runs the memory tests the verdicts call for, and analyses the whole.
+/// A link fault stops the experiments; what was measured up to it is still fitted and reported.
+fn measure<L: Link>(
+    session: &mut Session<L>,
+    plan: &Plan,
+    record: RunRecord,
+    now_ps: u64,
+    base: RunStats,
+    wall: Instant,
+    on_event: &mut dyn FnMut(&RunEvent),
+) -> Surveyed {
+    let model = board_model(&record);
+    let mut runner = Runner { session, model, now_ps, record, on_event, planned: 0 };
+    let todo: Vec<(usize, u8)> =
+        runner.record.pins.iter().enumerate().filter(|(_, p)| !p.complete).map(|(i, p)| (i, p.channel)).collect();
+    let levels: Vec<Experiment> = plan
+        .precharge_levels()
+        .into_iter()
+        .filter(|e| {
+            !runner.record.experiments.iter().any(|r| r.purpose == Purpose::PrechargeLevel && r.experiment == e.into())
+        })
+        .collect();
+    runner.plan_more(levels.len() as i64 + 2 * todo.len() as i64);
+
+    // 1. Precharge levels, measured. 2. Screen, 3. detail where needed.
     let mut fault: Option<String> = None;
-    for exp in plan.precharge_levels() {
+    for exp in levels {
         if let Err(e) = runner.run(Purpose::PrechargeLevel, None, exp) {
             fault = Some(e.to_string());
             break;
         }
     }
     runner.model = board_model(&runner.record);
-    let channels: Vec<u8> = runner.record.pins.iter().map(|p| p.channel).collect();
     let mut screens: Vec<Option<ScreenResult>> = Vec::new();
     if fault.is_none() {
-        for &ch in &channels {
-            match runner.screen(&plan, ch) {
+        for &(_, ch) in &todo {
+            match runner.screen(plan, ch) {
                 Ok(s) => screens.push(s),
                 Err(e) => {
                     fault = Some(e.to_string());
@@ -302,8 +403,8 @@ pub fn survey_with<L: Link>(
         }
     }
     if fault.is_none() {
-        for (i, (&ch, screen)) in channels.iter().zip(&screens).enumerate() {
-            let done = screen.as_ref().map_or(Ok(()), |s| runner.detail(&plan, ch, s));
+        for (&(i, ch), screen) in todo.iter().zip(&screens) {
+            let done = screen.as_ref().map_or(Ok(()), |s| runner.detail(plan, ch, s));
             if let Err(e) = done {
                 fault = Some(e.to_string());
                 break;
@@ -318,12 +419,12 @@ pub fn survey_with<L: Link>(
     let model = runner.model.clone();
     let evidence = pin_evidence(&runner.record, &model);
     let fits = fit_pins(&model, &evidence);
-    let judged = judge_pins(&model, &evidence, &fits);
+    let judged = judge_pins(&model, &evidence, &fits, true);
     if fault.is_none() {
         let wanted: Vec<_> = judged
             .iter()
-            .zip(&runner.record.pins)
-            .filter(|(r, p)| p.complete && (r.verdict != Verdict::AtRail || r.fit.is_some()))
+            .zip(&evidence)
+            .filter(|(r, ev)| ev.complete && memory_planned(r) && ev.swap.is_none())
             .map(|(r, _)| r)
             .collect();
         runner.plan_more(wanted.len() as i64);
@@ -337,23 +438,97 @@ pub fn survey_with<L: Link>(
         }
     }
 
-    let stats = runner.session.stats;
+    let link = runner.session.stats;
     let mut record = runner.record;
     record.run.finished = Some(now_rfc3339());
     record.run.complete = fault.is_none() && record.pins.iter().all(|p| p.complete);
     record.run.fault = fault;
+    let board_ps: u64 = record.experiments.iter().map(|e| e.end_ps - e.start_ps).sum();
+    let this = run_stats(&link, board_ps, wall);
     record.run.stats = RunStats {
+        conversions: base.conversions + this.conversions,
+        link_bytes_sent: base.link_bytes_sent + this.link_bytes_sent,
+        link_bytes_received: base.link_bytes_received + this.link_bytes_received,
+        bad_frames: base.bad_frames + this.bad_frames,
+        reruns: base.reruns + this.reruns,
+        board_seconds: this.board_seconds,
+        wall_seconds: base.wall_seconds + this.wall_seconds,
+    };
+    // The memory tests only add to the evidence: the fits stand, the verdicts take them in.
+    let evidence = pin_evidence(&record, &model);
+    Surveyed { report: report(&record, &model, &evidence, &fits) }
+}
+
+/// The run's metadata at its start (`info`: the board, when it answered).
+fn run_meta(opts: &SurveyOptions, started: String, info: Option<&BoardInfo>) -> RunMeta {
+    let ctx = &opts.context;
+    RunMeta {
+        id: new_run_id(),
+        kind: RunKind::Survey,
+        started,
+        finished: None,
+        tool_version: env!("CARGO_PKG_VERSION").into(),
+        firmware_version: info.map_or(String::new(), |i| i.firmware.clone()),
+        protocol_version: info.map_or(0, |i| i.protocol),
+        board: info.map_or(UNIDENTIFIED.into(), |i| i.name.clone()),
+        unit_id: info.map_or(UNIDENTIFIED.into(), |i| format!("{:016x}", i.unit_id)),
+        link: ctx.link.clone(),
+        scenario: ctx.scenario.clone(),
+        seed: ctx.seed,
+        command: ctx.command.clone(),
+        channels: opts.channels.clone(),
+        complete: false,
+        fault: None,
+        stats: RunStats::default(),
+    }
+}
+
+fn run_stats(stats: &LinkStats, board_ps: u64, wall: Instant) -> RunStats {
+    RunStats {
         conversions: stats.conversions,
         link_bytes_sent: stats.bytes_sent,
         link_bytes_received: stats.bytes_received,
         bad_frames: stats.bad_frames,
         reruns: stats.reruns,
-        board_seconds: runner.now_ps as f64 * 1e-12,
+        board_seconds: board_ps as f64 * 1e-12,
         wall_seconds: wall.elapsed().as_secs_f64(),
+    }
+}
+
+/// The record of a survey that measured nothing: the board did not answer, or described itself
+/// in a way that cannot be surveyed. Emitted as begun, so the store keeps it.
+fn unsurveyed<L: Link>(
+    opts: &SurveyOptions,
+    started: String,
+    wall: Instant,
+    info: Option<&BoardInfo>,
+    fault: String,
+    session: &Session<L>,
+    on_event: &mut dyn FnMut(&RunEvent),
+) -> Surveyed {
+    let mut run = run_meta(opts, started, info);
+    let board = info.map(board_record).unwrap_or_else(|| BoardRecord {
+        name: UNIDENTIFIED.into(),
+        firmware: String::new(),
+        protocol: 0,
+        unit_id: 0,
+        front_end: FrontEndRecord::default(),
+        channels: Vec::new(),
+    });
+    let fe = board.front_end.to_front_end();
+    let record = RunRecord {
+        profile: Profile::from_model(&BoardModel::from_front_end(&fe), &fe),
+        board,
+        pins: Vec::new(),
+        experiments: Vec::new(),
+        run: run.clone(),
     };
-    // The memory tests only add to the evidence: the fits stand, the verdicts take them in.
-    let evidence = pin_evidence(&record, &model);
-    Ok(Surveyed { report: report(&record, &model, &evidence, &fits) })
+    on_event(&RunEvent::Began(&record));
+    run.finished = Some(now_rfc3339());
+    run.fault = Some(fault);
+    run.stats = run_stats(&session.stats, 0, wall);
+    let record = RunRecord { run, ..record };
+    Surveyed { report: report(&record, &record.profile.model(), &[], &[]) }
 }
 
 /// Runs a survey with no one listening to its progress.

@@ -33,7 +33,12 @@ fn bench() -> PathBuf {
 }
 
 fn survey_json(db: &str, extra: &[&str]) -> String {
-    ok(&ohmsight().args(["survey", "--quiet", "--json", "--db", db]).args(extra).output().unwrap())
+    let mut c = ohmsight();
+    c.args(["survey", "--quiet", "--json"]);
+    if !extra.contains(&"--no-store") {
+        c.args(["--db", db]);
+    }
+    ok(&c.args(extra).output().unwrap())
 }
 
 fn history_json(db: &str) -> Value {
@@ -172,11 +177,11 @@ fn history_lists_runs_with_their_verdicts_and_filters_them() {
 }
 
 #[test]
-fn a_survey_killed_mid_run_is_kept_incomplete_with_every_finished_experiment() {
+fn a_survey_killed_mid_run_is_kept_incomplete_and_resumed_to_the_clean_verdicts() {
     let dir = temp_dir("kill");
     let db = dir.join("runs.db").display().to_string();
     let mut child = ohmsight()
-        .args(["survey", "--quiet", "--db", &db])
+        .args(["survey", "--quiet", "--db", &db, "--scenario", bench().to_str().unwrap()])
         .stdout(Stdio::null())
         .stderr(Stdio::null())
         .spawn()
@@ -229,6 +234,27 @@ fn a_survey_killed_mid_run_is_kept_incomplete_with_every_finished_experiment() {
         }
     }
     ok(&ohmsight().args(["refit", id, "--db", &db]).output().unwrap());
+
+    // Plugged back in: --resume (the run's own link: the same scenario and seed) measures what
+    // the run lacks, into the same run, and gives the clean run's verdicts.
+    let resumed: Value = serde_json::from_str(&ok(&ohmsight()
+        .args(["survey", "--quiet", "--json", "--db", &db, "--resume", id])
+        .output()
+        .unwrap()))
+    .unwrap();
+    assert_eq!(resumed["run"]["id"], id);
+    assert_eq!(resumed["run"]["complete"], true);
+    let list = history_json(&db);
+    assert_eq!(list["runs"].as_array().unwrap().len(), 1, "the same run, not a new one");
+    assert_eq!(list["runs"][0]["complete"], true);
+    let clean: Value =
+        serde_json::from_str(&survey_json(&db, &["--no-store", "--scenario", bench().to_str().unwrap()])).unwrap();
+    let verdicts = |d: &Value| d["pins"].as_array().unwrap().iter().map(|p| p["verdict"].clone()).collect::<Vec<_>>();
+    assert_eq!(verdicts(&resumed), verdicts(&clean));
+    // A complete run has nothing to resume.
+    let out = ohmsight().args(["survey", "--quiet", "--db", &db, "--resume", id]).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("nothing to resume"));
 }
 
 /// Eight surveys at once into one database: every run complete, and each stored run equal to

@@ -32,6 +32,35 @@ pub struct LinkArgs {
     pub any_version: bool,
 }
 
+impl LinkArgs {
+    /// Whether any option names a link (a port or a simulated board).
+    pub fn given(&self) -> bool {
+        self.port.is_some() || self.scenario.is_some() || self.seed.is_some()
+    }
+}
+
+/// A session over the link a stored run was made on: its serial port, or its simulated board
+/// (scenario file and seed).
+pub fn open_run_link(
+    record: &ohmsight::RunRecord,
+    any_version: bool,
+) -> Result<(Session<AnyLink>, RunContext), Failure> {
+    let run = &record.run;
+    let args = match &run.link {
+        LinkRecord::Serial { port, baud } => {
+            LinkArgs { scenario: None, port: Some(port.clone()), baud: *baud, seed: None, any_version }
+        }
+        LinkRecord::InProcess => LinkArgs {
+            scenario: run.scenario.as_deref().filter(|s| *s != scenario::DEMO_NAME).map(PathBuf::from),
+            port: None,
+            baud: 115_200,
+            seed: run.seed,
+            any_version,
+        },
+    };
+    open_session(&args)
+}
+
 /// Which database runs are kept in.
 #[derive(clap::Args)]
 pub struct DbArgs {

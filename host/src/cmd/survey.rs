@@ -1,10 +1,10 @@
 //! `ohmsight survey`: survey a board, print the result, keep the run in the store.
 
-use super::common::{open_session, print, write_output, Bar, DbArgs, LinkArgs};
+use super::common::{open_run_link, open_session, print, write_output, Bar, DbArgs, LinkArgs};
 use super::Failure;
 use ohmsight::advice::{advise, AdviceOptions};
 use ohmsight::render::{html::survey_html, survey_json, text::survey_text};
-use ohmsight::run::{survey_with, RunEvent, SurveyOptions};
+use ohmsight::run::{resume_with, survey_with, RunEvent, SurveyOptions};
 use ohmsight::store::{PinSummary, Store, StoreError};
 use std::path::PathBuf;
 
@@ -14,6 +14,7 @@ pub const EXAMPLES: &str = "Examples:
   ohmsight survey --port /dev/ttyACM0 --json > unit-0042.json
   ohmsight survey --html demo-report.html          the table, and a page with the plots
   ohmsight survey --db postgres://station3@db.example/factory
+  ohmsight survey --resume 01KBX3Q2                finish a run a fault cut short
 
 The text and the JSON end with advice per pin (sample time to use, a buffer or filter
 capacitor where none settles, dummy conversions against memory, averaging) and a scan plan
@@ -22,7 +23,9 @@ whose worst error stays under ½ LSB with the other pins at any level.
 Every survey is kept in the run database (--db, $OHMSIGHT_DB, or runs.db in this user's data
 folder), each experiment committed as it arrives: a crash or an unplugged cable loses at most
 the experiment in flight, and the run stays marked incomplete. `ohmsight history` lists runs,
-`ohmsight refit RUN_ID` analyses one again. --no-store keeps nothing.
+`ohmsight refit RUN_ID` analyses one again. --no-store keeps nothing. `--resume RUN_ID`
+finishes an interrupted run on the same board: only what it lacks is measured, into the same
+run (with no link option, the run's own: its serial port, or its scenario and seed).
 
 Exit status: 0 every pin fully surveyed (and stored); 1 the survey failed or was cut short
 (what was measured is still printed and stored), or the run could not be stored; 2 bad input
@@ -56,6 +59,10 @@ pub struct Args {
     /// Keep nothing: do not write the run to the database.
     #[arg(long, conflicts_with = "db")]
     no_store: bool,
+    /// Finish an interrupted run from the database: re-do only what it lacks, on the same
+    /// board (the run's own link when no link option is given), and mark it complete.
+    #[arg(long, value_name = "RUN_ID", conflicts_with_all = ["no_store", "channels"])]
+    resume: Option<String>,
 }
 
 fn positive_volts(text: &str) -> Result<f64, String> {
@@ -83,6 +90,10 @@ impl Keeper {
                 self.run_id = Some(record.run.id.clone());
                 self.store.begin_run(record)
             }
+            (RunEvent::Resumed(record), _) => {
+                self.run_id = Some(record.run.id.clone());
+                Ok(())
+            }
             (RunEvent::Recorded(e), Some(id)) => self.store.add_experiment(id, e),
             (RunEvent::PinComplete(ch), Some(id)) => self.store.set_pin_complete(id, *ch, true),
             _ => Ok(()),
@@ -103,15 +114,32 @@ pub fn run(args: Args) -> Result<(), Failure> {
         })?;
         Some(Keeper { store, run_id: None, error: None })
     };
-    let (mut session, context) = open_session(&args.link)?;
+    let resume = match (&args.resume, keeper.as_mut()) {
+        (Some(id), Some(k)) => {
+            let record = k.store.load_run(id)?;
+            if record.run.complete {
+                return Err(Failure::bad_input(format!("run {} is complete: nothing to resume", record.run.id)));
+            }
+            Some(record)
+        }
+        _ => None,
+    };
+    let (mut session, context) = match &resume {
+        Some(record) if !args.link.given() => open_run_link(record, args.link.any_version)?,
+        _ => open_session(&args.link)?,
+    };
     let opts = SurveyOptions { any_version: args.link.any_version, channels: args.channels.clone(), context };
     let bar = Bar::new(args.quiet);
-    let surveyed = survey_with(&mut session, &opts, &mut |e| {
+    let mut on_event = |e: &RunEvent| {
         bar.on(e);
         if let Some(k) = keeper.as_mut() {
             k.on(e);
         }
-    });
+    };
+    let surveyed = match resume {
+        Some(record) => resume_with(&mut session, record, &opts, &mut on_event),
+        None => survey_with(&mut session, &opts, &mut on_event),
+    };
     bar.finish();
     let r = surveyed?.report;
     let advice_opts = AdviceOptions { resolve_volts: args.resolve };
@@ -126,9 +154,15 @@ pub fn run(args: Args) -> Result<(), Failure> {
         }
         stored = Some(k.store.describe());
     }
-    let out = if args.json { survey_json(&r, &advice, &advice_opts) } else { survey_text(&r, &advice) };
-    print(&out)?;
-    if let Some(path) = &args.html {
+    // A board that never answered has no table: the one sentence below says it all; the JSON
+    // document still records the attempt.
+    let measured = !r.record.pins.is_empty();
+    if args.json {
+        print(&survey_json(&r, &advice, &advice_opts))?;
+    } else if measured {
+        print(&survey_text(&r, &advice))?;
+    }
+    if let Some(path) = args.html.as_ref().filter(|_| measured) {
         write_output(path, survey_html(&r).as_bytes(), "HTML report").map_err(|f| Failure {
             message: format!(
                 "{} (the survey above is complete{})",
@@ -147,9 +181,11 @@ pub fn run(args: Args) -> Result<(), Failure> {
     if let (Some(db), false) = (&stored, args.quiet) {
         eprintln!("ohmsight: run {} kept in {db}", r.record.run.id);
     }
-    if let Some(f) = &r.fault {
+    match (&r.fault, measured) {
+        (Some(f), false) => Err(Failure::failed(f.clone())),
         // What was measured is printed above and stored; the exit status still says it is partial.
-        return Err(Failure::failed(format!("the survey was cut short: {f}")));
+        (Some(f), true) => Err(Failure::failed(format!("the survey was cut short: {f}"))),
+        (None, _) if !r.record.run.complete => Err(Failure::failed("the survey did not measure every pin")),
+        (None, _) => Ok(()),
     }
-    Ok(())
 }

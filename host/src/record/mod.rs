@@ -162,7 +162,7 @@ pub struct ChannelRecord {
 }
 
 /// The board's front-end description, integers exactly as on the wire.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
 pub struct FrontEndRecord {
     /// Resolution, bits.
     pub bits: u8,

@@ -195,6 +195,10 @@ pub struct Pin {
     pub advice: Option<PinAdvice>,
     /// Every planned experiment before the memory test was measured.
     pub complete: bool,
+    /// What the survey set out to measure on this pin and did not (`screen`, `detail`,
+    /// `noise`, `memory`): nothing is claimed about these.
+    #[serde(default)]
+    pub not_measured: Vec<String>,
     /// Every experiment run on this pin, in order.
     pub evidence: Vec<ExperimentRecord>,
 }
@@ -280,6 +284,7 @@ fn pin_doc(p: &PinReport, advice: &BoardAdvice, record: &RunRecord) -> Pin {
         conversions: p.conversions,
         advice: advice.pins.iter().find(|a| a.channel == p.channel).cloned(),
         complete: record.pins.iter().any(|q| q.channel == p.channel && q.complete),
+        not_measured: p.not_measured.iter().map(|w| w.to_string()).collect(),
         evidence: record.experiments.iter().filter(|e| e.pin == Some(p.channel)).cloned().collect(),
     }
 }

@@ -1068,7 +1068,7 @@ pub fn survey_html(r: &SurveyReport) -> String {
             iv(&p.node_farads, units::farads),
             p.source_volts.map_or("—".into(), |v| format!("{v:.4} V")),
             p.noise_lsb_rms.map_or("—".into(), |n| format!("{n:.2} LSB")),
-            p.min_sample_ns.map_or("none settles".into(), units::ns),
+            crate::render::text::min_sample_cell(p),
             flags_html(p),
         );
     }
@@ -1129,7 +1129,7 @@ fn pin_section(r: &SurveyReport, p: &PinReport, row: &MemoryRow, cols: &[(u8, Op
         iv(&p.node_farads, units::farads),
         p.source_volts.map_or("—".into(), |v| format!("{v:.4} V")),
         p.noise_lsb_rms.map_or("—".into(), |n| format!("{n:.2} LSB rms")),
-        p.min_sample_ns.map_or("none settles".into(), units::ns),
+        crate::render::text::min_sample_cell(p),
         escape(&memory),
         if p.flags.is_empty() { "none".into() } else { flags_html(p) },
         escape(&fit),

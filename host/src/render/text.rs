@@ -2,7 +2,7 @@
 
 use crate::advice::BoardAdvice;
 use crate::fit::Interval;
-use crate::judge::SurveyReport;
+use crate::judge::{PinReport, SurveyReport, Verdict};
 use crate::model::BoardModel;
 use crate::units;
 
@@ -16,6 +16,18 @@ pub fn interval_text(iv: &Interval, fmt: fn(f64) -> String) -> String {
         (_, Some(l), None) => format!("> {}", fmt(l)),
         (Some(e), None, None) => fmt(e),
         _ => "—".into(),
+    }
+}
+
+/// The min-sample cell of a pin: the time, `none settles` (measured: no setting is long
+/// enough), `not measured` (the survey was cut short before it), or `—` (no claim: the verdict
+/// is unknown).
+pub fn min_sample_cell(p: &PinReport) -> String {
+    match p.min_sample_ns {
+        Some(ns) => units::ns(ns),
+        None if p.not_measured.iter().any(|w| *w != "memory") => "not measured".into(),
+        None if p.verdict == Verdict::Unknown => "—".into(),
+        None => "none settles".into(),
     }
 }
 
@@ -49,6 +61,9 @@ pub fn table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
 /// `12 bits, Vref 3.30 V, hold 4.00 pF ±5%, …, 1 LSB = 806 µV`: the converter as the board
 /// described it.
 pub fn converter_text(m: &BoardModel) -> String {
+    let (Some(first), Some(last)) = (m.sample_ps.first(), m.sample_ps.last()) else {
+        return "not described (the board did not answer)".into();
+    };
     format!(
         "{} bits, Vref {}, hold {} ±{:.0}%, switch {} ±{:.0}%, sample times {}…{}, 1 LSB = {}",
         m.bits,
@@ -57,8 +72,8 @@ pub fn converter_text(m: &BoardModel) -> String {
         m.hold_tolerance * 100.0,
         units::ohms(m.switch_ohms),
         m.switch_tolerance * 100.0,
-        units::ns(f64::from(m.sample_ps[0]) / 1000.0),
-        units::ns(f64::from(*m.sample_ps.last().unwrap_or(&0)) / 1000.0),
+        units::ns(f64::from(*first) / 1000.0),
+        units::ns(f64::from(*last) / 1000.0),
         units::volts(m.lsb_volts()),
     )
 }
@@ -100,7 +115,7 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
                 interval_text(&p.node_farads, units::farads),
                 p.source_volts.map_or("—".into(), |v| format!("{v:.4} V")),
                 p.noise_lsb_rms.map_or("—".into(), |n| format!("{n:.2} LSB")),
-                p.min_sample_ns.map_or("none settles".into(), units::ns),
+                min_sample_cell(p),
                 p.flags.iter().map(|f| f.as_str()).collect::<Vec<_>>().join(" "),
             ]
         })
@@ -110,7 +125,12 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
     let notes: Vec<String> = r
         .pins
         .iter()
-        .filter_map(|p| p.reason.as_ref().map(|why| format!("  ch{} {}: {why}", p.channel, p.verdict.as_str())))
+        .flat_map(|p| {
+            let reason = p.reason.as_ref().map(|why| format!("  ch{} {}: {why}", p.channel, p.verdict.as_str()));
+            let missing = (!p.not_measured.is_empty())
+                .then(|| format!("  ch{}: not measured: {}", p.channel, p.not_measured.join(", ")));
+            reason.into_iter().chain(missing)
+        })
         .collect();
     if !notes.is_empty() {
         out += "\nnotes:\n";
