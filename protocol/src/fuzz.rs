@@ -79,7 +79,7 @@ impl Gen {
     }
 
     /// A length for a string or sequence: mostly short, sometimes past any capacity.
-    pub fn len(&mut self) -> usize {
+    pub fn length(&mut self) -> usize {
         let top = match self.below(16) {
             0..=7 => 4,
             8..=11 => 32,
@@ -257,7 +257,7 @@ impl<'de> de::Deserializer<'de> for &mut Gen {
     }
 
     fn deserialize_str<V: Visitor<'de>>(self, v: V) -> Result<V::Value, GenError> {
-        let n = self.len();
+        let n = self.length();
         let s: String = (0..n).map(|_| self.char()).collect();
         v.visit_str(&s)
     }
@@ -267,7 +267,7 @@ impl<'de> de::Deserializer<'de> for &mut Gen {
     }
 
     fn deserialize_bytes<V: Visitor<'de>>(self, v: V) -> Result<V::Value, GenError> {
-        let n = self.len();
+        let n = self.length();
         v.visit_bytes(&self.bytes(n, 16))
     }
 
@@ -296,7 +296,7 @@ impl<'de> de::Deserializer<'de> for &mut Gen {
     }
 
     fn deserialize_seq<V: Visitor<'de>>(self, v: V) -> Result<V::Value, GenError> {
-        let left = self.len();
+        let left = self.length();
         v.visit_seq(Elements { gen: self, left })
     }
 
@@ -314,7 +314,7 @@ impl<'de> de::Deserializer<'de> for &mut Gen {
     }
 
     fn deserialize_map<V: Visitor<'de>>(self, v: V) -> Result<V::Value, GenError> {
-        let left = self.len();
+        let left = self.length();
         v.visit_map(Elements { gen: self, left })
     }
 
@@ -448,7 +448,7 @@ pub fn frame_body_of_payload(payload: &[u8]) -> Vec<u8> {
 /// than [`MAX_FRAME`], else [`decode_frame`] of the run. Bytes after the last delimiter are an
 /// incomplete frame and give nothing. This is the accumulator's contract, written as plainly as
 /// possible to check the accumulator against.
-pub fn reference_frames<T: DeserializeOwned>(stream: &[u8]) -> Vec<(usize, Result<T, FrameError>)> {
+pub fn reference_frames<T: DeserializeOwned>(stream: &[u8]) -> Received<T> {
     let mut out = Vec::new();
     let mut start = 0;
     for (i, &b) in stream.iter().enumerate() {
@@ -546,7 +546,7 @@ pub fn run<T: Target>(
         if let Some(what) = what {
             return Err(Box::new(Failure { target: target.name(), seed, case, what, input: target.bytes(&input) }));
         }
-        if (case - start + 1) % 4096 == 0 {
+        if (case - start + 1).is_multiple_of(4096) {
             progress(case - start + 1);
         }
     }
@@ -681,10 +681,11 @@ impl Target for Frames {
     }
 }
 
+/// Each delimiter that ends a frame, by position, and what the receiver made of the frame.
+pub type Received<T> = Vec<(usize, Result<T, FrameError>)>;
+
 /// Feeds `stream` to a fresh accumulator byte by byte and checks it against [`reference_frames`].
-fn accumulate<T: DeserializeOwned + PartialEq + Debug>(
-    stream: &[u8],
-) -> Result<Vec<(usize, Result<T, FrameError>)>, String> {
+fn accumulate<T: DeserializeOwned + PartialEq + Debug>(stream: &[u8]) -> Result<Received<T>, String> {
     let mut acc = FrameAccumulator::new();
     let mut got = Vec::new();
     for (i, &b) in stream.iter().enumerate() {
@@ -752,7 +753,7 @@ impl Target for Messages {
                 PayloadInput { payload, encodes: None }
             }
             _ => {
-                let len = if gen.ratio(1, 8) { gen.below(MAX_PAYLOAD as u64 + 64) as usize } else { gen.len() };
+                let len = if gen.ratio(1, 8) { gen.below(MAX_PAYLOAD as u64 + 64) as usize } else { gen.length() };
                 let zeros = gen.below(256);
                 PayloadInput { payload: gen.bytes(len, zeros), encodes: None }
             }
