@@ -9,6 +9,12 @@ use ohmsight_protocol::{
     Timing, MAX_CELLS, MAX_CHANNELS, MAX_FRAME, MAX_RAW_SAMPLES, PROTOCOL_VERSION, SAMPLES_PER_MESSAGE,
 };
 
+/// Most frames the engine sends for one received frame: a run's cells, its raw codes in
+/// [`SAMPLES_PER_MESSAGE`] pieces and its end record (any other request gets two at most). So the
+/// engine's output is bounded by `MAX_REPLY_FRAMES × MAX_FRAME` bytes per delimiter received, and
+/// is nothing for any other byte.
+pub const MAX_REPLY_FRAMES: usize = MAX_CELLS + (MAX_RAW_SAMPLES as usize).div_ceil(SAMPLES_PER_MESSAGE) + 1;
+
 /// Version string the firmware reports in its hello.
 pub const FIRMWARE_VERSION: &str = env!("CARGO_PKG_VERSION");
 
@@ -225,14 +231,14 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use ohmsight_protocol::{ChannelRole, Experiment, Precharge, SimPart};
     use std::vec::Vec as StdVec;
 
     /// A front end whose code is `100·channel + sample`, logging every conversion.
-    struct Fake {
-        log: StdVec<(u8, u8)>,
+    pub(crate) struct Fake {
+        pub(crate) log: StdVec<(u8, u8)>,
     }
     impl AnalogFrontEnd for Fake {
         type Error = core::convert::Infallible;
@@ -241,14 +247,14 @@ mod tests {
             Ok(100 * u16::from(channel) + u16::from(sample))
         }
     }
-    struct NoDelay(u64);
+    pub(crate) struct NoDelay(pub(crate) u64);
     impl DelayNs for NoDelay {
         fn delay_ns(&mut self, ns: u32) {
             self.0 += u64::from(ns);
         }
     }
 
-    fn board() -> BoardDescription {
+    pub(crate) fn board() -> BoardDescription {
         let mut channels = Vec::new();
         for (ch, role) in [(0, ChannelRole::Pin), (1, ChannelRole::Pin), (9, ChannelRole::Precharge)] {
             channels.push(ChannelInfo { channel: ch, label: String::try_from("x").unwrap(), role }).unwrap();
@@ -353,7 +359,7 @@ mod tests {
     }
 
     /// A front end that takes a set-up of one pin and then calls itself "rewired".
-    struct Rewirable;
+    pub(crate) struct Rewirable;
     impl AnalogFrontEnd for Rewirable {
         type Error = core::convert::Infallible;
         fn convert(&mut self, _: u8, _: u8) -> Result<u16, Self::Error> {

@@ -11,6 +11,8 @@
 
 mod engine;
 mod frontend;
+#[cfg(any(test, feature = "fuzz"))]
+pub mod fuzz;
 
-pub use engine::{BoardDescription, Engine, FIRMWARE_VERSION};
+pub use engine::{BoardDescription, Engine, FIRMWARE_VERSION, MAX_REPLY_FRAMES};
 pub use frontend::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind, SetupProgress};

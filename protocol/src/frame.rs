@@ -124,6 +124,12 @@ impl FrameAccumulator {
         Some(decode_frame(&mut self.buf[..len]))
     }
 
+    /// Bytes of the current frame held so far: never more than [`MAX_FRAME`], however long the
+    /// run without a delimiter (the excess is dropped and reported at the delimiter).
+    pub fn buffered(&self) -> usize {
+        self.len
+    }
+
     /// True when part of a frame has been received.
     pub fn is_mid_frame(&self) -> bool {
         self.len > 0 || self.overflowed

@@ -9,12 +9,17 @@
 //! - [`analog`]: the sampling network of one ADC channel solved exactly per phase (closed-form
 //!   2×2 matrix exponential, no ODE stepping).
 //!
+//! - [`fuzz`] (feature `fuzz`, host-side): random-input generators and the frame and message
+//!   fuzz targets, shared by the unit tests and `cargo xtask fuzz`.
+//!
 //! `no_std`; the `std` feature adds `std::error::Error` impls.
 #![cfg_attr(not(any(test, feature = "std")), no_std)]
 #![deny(missing_docs)]
 
 pub mod analog;
 pub mod frame;
+#[cfg(any(test, feature = "fuzz"))]
+pub mod fuzz;
 pub mod messages;
 pub mod sequence;
 

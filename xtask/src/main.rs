@@ -6,10 +6,14 @@
 //! - `study`: one pin surveyed over several seeds, optionally with some of the simulated board's
 //!   non-idealities switched off; prints the estimates against the truth.
 //! - `firmware <board>`, `qemu [--scenario F]`, `size`: board images (see the library).
+//! - `fuzz [--cases N] [--seed S] [--start I] [--target frames|messages|engine|all]`: the decoders'
+//!   fuzz targets (see [`fuzz`]), 10^7 cases each by default; prints cases/s, exits non-zero with
+//!   the seed and the input on a failure.
 //! - `accuracy`: a grid of simulated set-ups; errors, interval coverage, verdicts, cost and the
 //!   Cramér–Rao bound (see [`accuracy`]).
 
 mod accuracy;
+mod fuzz;
 
 use anyhow::{bail, Context, Result};
 use ohmsight::link::InProcessLink;
@@ -28,6 +32,7 @@ fn main() -> Result<()> {
         Some("bench") => bench(),
         Some("study") => study(&args[1..]),
         Some("accuracy") => accuracy::accuracy(&args[1..]),
+        Some("fuzz") => fuzz::command(&args[1..]),
         Some("firmware") => xtask::firmware::command(&args[1..]),
         Some("qemu") => xtask::qemu::command(&args[1..]),
         Some("size") => xtask::firmware::size_command(),
@@ -35,6 +40,9 @@ fn main() -> Result<()> {
             eprintln!("usage: cargo xtask test [ARGS] | bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
             eprintln!("       cargo xtask firmware <board> | qemu [--scenario FILE] | size");
             eprintln!("       cargo xtask accuracy [--quick] [--seeds N] [--jobs N] [--detail] [--ideal | --off a,b]");
+            eprintln!(
+                "       cargo xtask fuzz [--cases N] [--seed S] [--start I] [--target frames|messages|engine|all]"
+            );
             bail!("unknown or missing command")
         }
     }
