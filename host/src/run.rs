@@ -14,9 +14,10 @@ use crate::record::{
     new_run_id, now_rfc3339, role_name, BoardRecord, ChannelRecord, ExperimentRecord, ExperimentSpec, FrontEndRecord,
     LinkRecord, PinRecord, Profile, Purpose, RunKind, RunMeta, RunRecord, RunStats,
 };
-use crate::session::{RunRecords, Session, SessionError};
+use crate::session::{RunRecords, Session, SessionError, UnansweredRun};
 use ohmsight_protocol::analog::volts_to_lsb;
 use ohmsight_protocol::{ChannelRole, Experiment, Steps};
+use std::collections::HashMap;
 use std::time::{Duration, Instant};
 
 /// Something that happened during a run.
@@ -120,14 +121,15 @@ impl From<SessionError> for SurveyError {
     }
 }
 
-/// Runs experiments, keeps the board's nominal timeline and the record.
+/// Runs experiments and keeps the record, each run placed where the board says it ran.
 struct Runner<'s, 'e, L> {
     session: &'s mut Session<L>,
     model: BoardModel,
-    now_ps: u64,
     record: RunRecord,
     on_event: &'e mut dyn FnMut(&RunEvent),
     planned: u64,
+    /// What each [`Session::run`] call asked for, by call index.
+    calls: HashMap<usize, (Purpose, Option<u8>, ExperimentSpec)>,
 }
 
 impl<L: Link> Runner<'_, '_, L> {
@@ -136,30 +138,58 @@ impl<L: Link> Runner<'_, '_, L> {
         (self.on_event)(&RunEvent::Planned { total: self.planned });
     }
 
-    /// Runs `exp` and adds it to the record.
+    fn push(&mut self, e: ExperimentRecord) {
+        self.record.experiments.push(e);
+        if let Some(e) = self.record.experiments.last() {
+            (self.on_event)(&RunEvent::Recorded(e));
+        }
+    }
+
+    /// Adds runs the board made that the host took no records of, where the board ran them.
+    fn push_unanswered(&mut self, runs: &[UnansweredRun]) {
+        for u in runs {
+            let Some((purpose, pin, spec)) = self.calls.get(&u.call).cloned() else { continue };
+            let e = ExperimentRecord {
+                seq: self.record.experiments.len() as u32,
+                purpose,
+                pin,
+                experiment: spec,
+                board_run: u.report.run,
+                start_ps: u.report.start_ps,
+                end_ps: u.report.end_ps,
+                received: false,
+                conversions: u.report.conversions,
+                cells: Vec::new(),
+                samples: Vec::new(),
+            };
+            self.push(e);
+        }
+    }
+
+    /// Runs `exp` and adds it to the record (with any run the board made that the host has no
+    /// records of before it).
     fn run(&mut self, purpose: Purpose, pin: Option<u8>, exp: Experiment) -> Result<RunRecords, SessionError> {
         let what = if purpose == Purpose::Screen { "screen" } else { exp.name() };
         (self.on_event)(&RunEvent::Starting { pin, what });
         let nominal = Steps::new(&exp, self.model.timing()).map(|s| s.nominal_ps()).unwrap_or(0);
         let rec = self.session.run(&exp, Duration::from_nanos(nominal / 1000))?;
-        let attempts = rec.failed_attempts + 1;
+        let spec = ExperimentSpec::from(&exp);
+        self.calls.insert(rec.call, (purpose, pin, spec.clone()));
+        self.push_unanswered(&rec.unanswered);
         let e = ExperimentRecord {
             seq: self.record.experiments.len() as u32,
             purpose,
             pin,
-            experiment: ExperimentSpec::from(&exp),
-            start_ps: self.now_ps,
-            end_ps: self.now_ps + u64::from(attempts) * nominal,
-            attempts,
-            conversions: rec.conversions,
+            experiment: spec,
+            board_run: rec.report.run,
+            start_ps: rec.report.start_ps,
+            end_ps: rec.report.end_ps,
+            received: true,
+            conversions: rec.report.conversions,
             cells: rec.cells.iter().map(Into::into).collect(),
             samples: rec.samples.clone(),
         };
-        self.now_ps = e.end_ps;
-        self.record.experiments.push(e);
-        if let Some(e) = self.record.experiments.last() {
-            (self.on_event)(&RunEvent::Recorded(e));
-        }
+        self.push(e);
         Ok(rec)
     }
 
@@ -275,7 +305,7 @@ pub fn survey_with<L: Link>(
     let model = record.profile.model();
     on_event(&RunEvent::Began(&record));
     let n_pins = record.pins.len() as u64;
-    let mut runner = Runner { session, model, now_ps: 0, record, on_event, planned: 0 };
+    let mut runner = Runner { session, model, record, on_event, planned: 0, calls: HashMap::new() };
     runner.plan_more(2 + 2 * n_pins as i64);
 
     // 1. Precharge levels, measured. 2. Screen, 3. detail where needed. A link fault stops the
@@ -337,6 +367,13 @@ pub fn survey_with<L: Link>(
         }
     }
 
+    // A request that reached the board twice after its last answer: the board's run log says.
+    if fault.is_none() {
+        match runner.session.unanswered_runs() {
+            Ok(runs) => runner.push_unanswered(&runs),
+            Err(e) => fault = Some(e.to_string()),
+        }
+    }
     let stats = runner.session.stats;
     let mut record = runner.record;
     record.run.finished = Some(now_rfc3339());
@@ -348,7 +385,8 @@ pub fn survey_with<L: Link>(
         link_bytes_received: stats.bytes_received,
         bad_frames: stats.bad_frames,
         reruns: stats.reruns,
-        board_seconds: runner.now_ps as f64 * 1e-12,
+        board_seconds: record.experiments.iter().map(|e| e.end_ps.saturating_sub(e.start_ps)).sum::<u64>() as f64
+            * 1e-12,
         wall_seconds: wall.elapsed().as_secs_f64(),
     };
     // The memory tests only add to the evidence: the fits stand, the verdicts take them in.

@@ -213,10 +213,7 @@ mod tests {
             chunks: 4,
         });
         // 05 = Done, 02 = seq, 03 = run, 1000 = E8 07, 1 000 000 = C0 84 3D, 200 = C8 01, 04.
-        assert_eq!(
-            encoded(&done),
-            by_hand(&[0x05, 0x02, 0x03, 0xE8, 0x07, 0xC0, 0x84, 0x3D, 0xC8, 0x01, 0x04])
-        );
+        assert_eq!(encoded(&done), by_hand(&[0x05, 0x02, 0x03, 0xE8, 0x07, 0xC0, 0x84, 0x3D, 0xC8, 0x01, 0x04]));
         // 03 = Cell, run 3, index 1, then the aggregate: count 2, sum 9, sum_sq 41, min 4, max 5.
         let cell = Response::Cell { run: 3, index: 1, agg: Aggregate { count: 2, sum: 9, sum_sq: 41, min: 4, max: 5 } };
         assert_eq!(encoded(&cell), by_hand(&[0x03, 0x03, 0x01, 0x02, 0x09, 0x29, 0x04, 0x05]));

@@ -603,6 +603,25 @@ impl Experiment {
         }
     }
 
+    /// Number of aggregate cells its answer holds (0 for a noise record).
+    pub fn cells(&self) -> u16 {
+        match self {
+            Experiment::PrechargeSweep { precharges, samples, .. } => (precharges.len() * samples.len()) as u16,
+            Experiment::OrderSwap { .. } => 4,
+            Experiment::RepeatBurst { length, .. } => u16::from(*length),
+            Experiment::PeriodSweep { periods_ns, .. } => periods_ns.len() as u16,
+            Experiment::NoiseRecord { .. } => 0,
+        }
+    }
+
+    /// Number of raw codes its answer holds (0 unless a noise record).
+    pub fn raw_samples(&self) -> u16 {
+        match self {
+            Experiment::NoiseRecord { count, .. } => *count,
+            _ => 0,
+        }
+    }
+
     /// The largest experiment message, for frame-size tests.
     #[doc(hidden)]
     pub fn largest_for_tests() -> Self {
