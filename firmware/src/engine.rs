@@ -3,10 +3,11 @@
 use crate::frontend::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind, SetupProgress};
 use embedded_hal::delay::DelayNs;
 use embedded_io::{Read, Write};
-use heapless::{String, Vec};
+use heapless::{Deque, String, Vec};
 use ohmsight_protocol::{
-    encode_frame, Aggregate, ChannelInfo, ErrorKind, FrameAccumulator, FrontEnd, Request, Response, StepRecord, Steps,
-    Timing, MAX_CELLS, MAX_CHANNELS, MAX_FRAME, MAX_RAW_SAMPLES, PROTOCOL_VERSION, SAMPLES_PER_MESSAGE,
+    decode_message, encode_frame, Aggregate, ChannelInfo, ChannelRole, ErrorKind, Experiment, FrameAccumulator,
+    FrontEnd, HelloHead, Request, Response, RunReport, StepRecord, Steps, Timing, MAX_CELLS, MAX_CHANNELS, MAX_FRAME,
+    MAX_RAW_SAMPLES, PROTOCOL_VERSION, RUN_LOG, SAMPLES_PER_MESSAGE, SUMMARY_CHUNK,
 };
 
 /// Most frames the engine sends for one received frame: a run's cells, its raw codes in
@@ -31,6 +32,11 @@ pub struct BoardDescription {
     pub channels: Vec<ChannelInfo, MAX_CHANNELS>,
 }
 
+/// Sampling plus conversion time of one conversion at sample index `sample`, ps.
+fn timing_busy_ps(fe: &FrontEnd, sample: u8) -> u64 {
+    u64::from(fe.sample_ps.get(usize::from(sample)).copied().unwrap_or(0)) + u64::from(fe.conversion_ps)
+}
+
 /// The experiment engine.
 pub struct Engine<F, D> {
     fe: F,
@@ -41,6 +47,16 @@ pub struct Engine<F, D> {
     raw: [u16; MAX_RAW_SAMPLES as usize],
     tx: [u8; MAX_FRAME],
     conversions: u32,
+    /// Runs started (the last run number).
+    runs: u32,
+    /// The last run, whose answer `cells` and `raw` still hold (for resends).
+    last: Option<RunReport>,
+    /// Cells and raw codes of the last run.
+    last_shape: (u16, u16),
+    /// The last runs, oldest first.
+    log: Deque<RunReport, RUN_LOG>,
+    /// Nominal duration of everything run so far, ps: the clock of a board without one.
+    nominal_ps: u64,
 }
 
 impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
@@ -55,6 +71,11 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
             raw: [0; MAX_RAW_SAMPLES as usize],
             tx: [0; MAX_FRAME],
             conversions: 0,
+            runs: 0,
+            last: None,
+            last_shape: (0, 0),
+            log: Deque::new(),
+            nominal_ps: 0,
         }
     }
 
@@ -96,10 +117,23 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
     /// Processes received bytes; every complete request is answered on `out`.
     pub fn feed<W: Write>(&mut self, bytes: &[u8], out: &mut W) -> Result<(), W::Error> {
         for &b in bytes {
-            match self.rx.push::<Request>(b) {
-                None => {}
-                Some(Ok(req)) => self.handle(&req, out)?,
-                Some(Err(_)) => self.send(out, &Response::Error { seq: 0, kind: ErrorKind::BadFrame })?,
+            let decoded = match self.rx.push_payload(b) {
+                None => continue,
+                Some(Ok(payload)) => match decode_message::<Request>(payload) {
+                    Ok(req) => Ok(req),
+                    // A host of another version: its hello still says which version it speaks.
+                    Err(e) => match decode_message::<HelloHead>(payload) {
+                        Ok(HelloHead::Hello { protocol }) if protocol != PROTOCOL_VERSION => {
+                            Ok(Request::Hello { protocol, seq: 0 })
+                        }
+                        _ => Err(e),
+                    },
+                },
+                Some(Err(e)) => Err(e),
+            };
+            match decoded {
+                Ok(req) => self.handle(&req, out)?,
+                Err(_) => self.send(out, &Response::Error { seq: 0, kind: ErrorKind::BadFrame })?,
             }
         }
         out.flush()
@@ -108,53 +142,115 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
     /// Answers one request.
     pub fn handle<W: Write>(&mut self, req: &Request, out: &mut W) -> Result<(), W::Error> {
         match req {
-            Request::Hello { protocol } => {
+            Request::Hello { protocol, seq } => {
+                let seq = *seq;
                 if *protocol != PROTOCOL_VERSION {
                     // Answer with our version anyway so the host can say what it met.
-                    self.send(out, &Response::Error { seq: 0, kind: ErrorKind::Version })?;
+                    self.send(out, &Response::Error { seq, kind: ErrorKind::Version })?;
                 }
                 let mut firmware = String::new();
                 let _ = firmware.push_str(&FIRMWARE_VERSION[..FIRMWARE_VERSION.len().min(16)]);
                 let hello = Response::Hello {
                     protocol: PROTOCOL_VERSION,
+                    seq,
                     firmware,
                     board: self.board.name.clone(),
                     unit_id: self.board.unit_id,
                     channels: self.board.channels.len() as u8,
+                    runs: self.runs,
                 };
                 self.send(out, &hello)
             }
-            Request::Describe => {
-                let fe = Response::FrontEnd(self.board.front_end.clone());
+            Request::Describe { seq } => {
+                let fe = Response::FrontEnd { seq: *seq, front_end: self.board.front_end.clone() };
                 self.send(out, &fe)
             }
-            Request::Channel { position } => match self.board.channels.get(usize::from(*position)) {
+            Request::Channel { seq, position } => match self.board.channels.get(usize::from(*position)) {
                 Some(c) => {
-                    let c = Response::Channel(c.clone());
+                    let c = Response::Channel { seq: *seq, info: c.clone() };
                     self.send(out, &c)
                 }
-                None => self.send(out, &Response::Error { seq: 0, kind: ErrorKind::BadPosition }),
+                None => self.send(out, &Response::Error { seq: *seq, kind: ErrorKind::BadPosition }),
             },
             Request::Run { seq, experiment } => {
                 let seq = *seq;
                 match self.run_experiment(seq, experiment, out) {
-                    Ok(Ok(conversions)) => self.send(out, &Response::Done { seq, conversions }),
+                    Ok(Ok(report)) => self.send(out, &Response::Done(report)),
                     Ok(Err(kind)) => self.send(out, &Response::Error { seq, kind }),
                     Err(e) => Err(e),
                 }
             }
-            Request::Simulate(part) => {
+            Request::Resend { seq, run, chunk } => {
+                let seq = *seq;
+                match self.last {
+                    Some(last) if last.seq == seq && (*run == 0 || *run == last.run) => {
+                        if *chunk == SUMMARY_CHUNK {
+                            self.send(out, &Response::Done(last))
+                        } else if *chunk < last.chunks {
+                            self.send_chunk(out, last.run, *chunk)
+                        } else {
+                            self.send(out, &Response::Error { seq, kind: ErrorKind::BadPosition })
+                        }
+                    }
+                    _ => self.send(out, &Response::Error { seq, kind: ErrorKind::Gone }),
+                }
+            }
+            Request::Runs { seq, since } => {
+                let mut runs = Vec::new();
+                for r in self.log.iter().filter(|r| r.run >= *since) {
+                    let _ = runs.push(*r);
+                }
+                self.send(out, &Response::Runs { seq: *seq, runs })
+            }
+            Request::Simulate { seq, part } => {
+                let seq = *seq;
                 let answer = match self.fe.simulate(part) {
-                    Ok(SetupProgress::Pending(pending)) => Response::SimLoaded { pending },
+                    Ok(SetupProgress::Pending(pending)) => Response::SimLoaded { seq, pending },
                     Ok(SetupProgress::Ready(board)) => {
                         self.board = board;
-                        Response::SimLoaded { pending: 0 }
+                        Response::SimLoaded { seq, pending: 0 }
                     }
-                    Err(kind) => Response::Error { seq: 0, kind },
+                    Err(kind) => Response::Error { seq, kind },
                 };
                 self.send(out, &answer)
             }
         }
+    }
+
+    /// Sends data chunk `chunk` of the buffered run `run`: a cell, or a message of raw codes.
+    fn send_chunk<W: Write>(&mut self, out: &mut W, run: u32, chunk: u16) -> Result<(), W::Error> {
+        let (n_cells, n_raw) = self.last_shape;
+        if chunk < n_cells {
+            let agg = self.cells[usize::from(chunk)];
+            return self.send(out, &Response::Cell { run, index: chunk, agg });
+        }
+        let offset = usize::from(chunk - n_cells) * SAMPLES_PER_MESSAGE;
+        if offset >= usize::from(n_raw) {
+            return Ok(());
+        }
+        let end = (offset + SAMPLES_PER_MESSAGE).min(usize::from(n_raw));
+        let codes = Vec::from_slice(&self.raw[offset..end]).unwrap_or_default();
+        self.send(out, &Response::Samples { run, offset: offset as u16, codes })
+    }
+
+    /// Whether `ch` may be converted to set the hold capacitor before another channel: only the
+    /// precharge sources the board declares.
+    fn is_declared_precharge(&self, ch: u8) -> bool {
+        self.board.front_end.precharges.iter().any(|p| p.channel == ch)
+    }
+
+    /// Whether the experiment converts only declared precharge sources as precharges. The first
+    /// channel of an order swap precharges the second: it must be a declared source, or a pin
+    /// whose memory effect on the other is what is being compared.
+    fn precharges_declared(&self, exp: &Experiment, precharges: &[u8]) -> bool {
+        let a_ok = match exp {
+            Experiment::OrderSwap { a, .. } => {
+                self.is_declared_precharge(*a)
+                    || self.board.channels.iter().any(|c| c.channel == *a && c.role == ChannelRole::Pin)
+            }
+            _ => true,
+        };
+        a_ok && precharges.iter().all(|&c| self.is_declared_precharge(c))
     }
 
     fn has_channel(&self, ch: u8) -> bool {
@@ -165,9 +261,9 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
     fn run_experiment<W: Write>(
         &mut self,
         seq: u16,
-        exp: &ohmsight_protocol::Experiment,
+        exp: &Experiment,
         out: &mut W,
-    ) -> Result<Result<u32, ErrorKind>, W::Error> {
+    ) -> Result<Result<RunReport, ErrorKind>, W::Error> {
         let fe_desc = &self.board.front_end;
         let timing = Timing { sample_ps: &fe_desc.sample_ps, conversion_ps: fe_desc.conversion_ps };
         let steps = match Steps::new(exp, timing) {
@@ -178,25 +274,39 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
         if !tested.iter().flatten().all(|&c| self.has_channel(c)) || !precharges.iter().all(|&c| self.has_channel(c)) {
             return Ok(Err(ErrorKind::BadChannel));
         }
-        let n_cells = usize::from(steps.cells());
+        if !self.precharges_declared(exp, precharges) {
+            return Ok(Err(ErrorKind::NotAllowed));
+        }
+        let n_cells = steps.cells();
         let n_raw = steps.raw_samples();
-        self.cells[..n_cells].fill(Aggregate::default());
+        let chunks = n_cells + n_raw.div_ceil(SAMPLES_PER_MESSAGE as u16);
+        // From here on the run counts: the buffers belong to it.
+        self.runs = self.runs.wrapping_add(1);
+        let run = self.runs;
+        let start_ps = self.fe.clock_ps().unwrap_or(self.nominal_ps);
+        let mut report = RunReport { seq, run, start_ps, end_ps: start_ps, conversions: 0, chunks: 0 };
+        self.last = None;
+        self.last_shape = (n_cells, n_raw);
+        self.cells[..usize::from(n_cells)].fill(Aggregate::default());
         self.delay.delay_ns(steps.settle_ns());
-        let mut done = 0u32;
+        self.nominal_ps += u64::from(steps.settle_ns()) * 1000;
+        let mut failed = None;
         for i in 0..steps.len() {
             let step = steps.step(i);
             let code = match self.fe.convert(step.channel, step.sample) {
                 Ok(c) => c,
                 Err(e) => {
-                    self.conversions = self.conversions.wrapping_add(done);
-                    return Ok(Err(match e.kind() {
+                    failed = Some(match e.kind() {
                         FrontEndErrorKind::BadChannel => ErrorKind::BadChannel,
                         FrontEndErrorKind::BadSampleTime => ErrorKind::BadSampleIndex,
                         _ => ErrorKind::Converter,
-                    }));
+                    });
+                    break;
                 }
             };
-            done += 1;
+            report.conversions += 1;
+            self.nominal_ps +=
+                timing_busy_ps(&self.board.front_end, step.sample) + u64::from(step.wait_after_ns) * 1000;
             match step.record {
                 StepRecord::None => {}
                 StepRecord::Cell(c) => self.cells[usize::from(c)].add(code),
@@ -206,19 +316,23 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
                 self.delay.delay_ns(step.wait_after_ns);
             }
         }
-        self.conversions = self.conversions.wrapping_add(done);
-        for index in 0..n_cells {
-            let agg = self.cells[index];
-            self.send(out, &Response::Cell { seq, index: index as u16, agg })?;
+        self.conversions = self.conversions.wrapping_add(report.conversions);
+        report.end_ps = self.fe.clock_ps().unwrap_or(self.nominal_ps);
+        if failed.is_none() {
+            report.chunks = chunks;
         }
-        let mut offset = 0u16;
-        while offset < n_raw {
-            let end = (offset as usize + SAMPLES_PER_MESSAGE).min(usize::from(n_raw));
-            let codes = Vec::from_slice(&self.raw[usize::from(offset)..end]).unwrap_or_default();
-            self.send(out, &Response::Samples { seq, offset, codes })?;
-            offset = end as u16;
+        if self.log.is_full() {
+            self.log.pop_front();
         }
-        Ok(Ok(done))
+        let _ = self.log.push_back(report);
+        if let Some(kind) = failed {
+            return Ok(Err(kind));
+        }
+        self.last = Some(report);
+        for chunk in 0..chunks {
+            self.send_chunk(out, run, chunk)?;
+        }
+        Ok(Ok(report))
     }
 
     fn send<W: Write>(&mut self, out: &mut W, msg: &Response) -> Result<(), W::Error> {
@@ -256,7 +370,9 @@ pub(crate) mod tests {
 
     pub(crate) fn board() -> BoardDescription {
         let mut channels = Vec::new();
-        for (ch, role) in [(0, ChannelRole::Pin), (1, ChannelRole::Pin), (9, ChannelRole::Precharge)] {
+        for (ch, role) in
+            [(0, ChannelRole::Pin), (1, ChannelRole::Pin), (9, ChannelRole::Precharge), (12, ChannelRole::Internal)]
+        {
             channels.push(ChannelInfo { channel: ch, label: String::try_from("x").unwrap(), role }).unwrap();
         }
         BoardDescription {
@@ -295,8 +411,8 @@ pub(crate) mod tests {
     fn hello_describe_and_a_burst() {
         let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
         let mut out = StdVec::new();
-        let mut bytes = frame(&Request::Hello { protocol: PROTOCOL_VERSION });
-        bytes.extend(frame(&Request::Describe));
+        let mut bytes = frame(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 });
+        bytes.extend(frame(&Request::Describe { seq: 2 }));
         let exp = Experiment::RepeatBurst {
             target: 1,
             precharge: 9,
@@ -310,15 +426,21 @@ pub(crate) mod tests {
         bytes.extend(frame(&Request::Run { seq: 5, experiment: exp }));
         e.feed(&bytes, &mut out).unwrap();
         let r = responses(&out);
-        assert!(matches!(r[0], Response::Hello { protocol: PROTOCOL_VERSION, channels: 3, unit_id: 7, .. }));
-        assert!(matches!(r[1], Response::FrontEnd(_)));
+        assert!(matches!(
+            r[0],
+            Response::Hello { protocol: PROTOCOL_VERSION, seq: 1, channels: 4, unit_id: 7, runs: 0, .. }
+        ));
+        assert!(matches!(r[1], Response::FrontEnd { seq: 2, .. }));
         assert_eq!(r.len(), 2 + 3 + 1);
         for (j, resp) in r[2..5].iter().enumerate() {
-            let Response::Cell { seq: 5, index, agg } = resp else { panic!("{resp:?}") };
+            let Response::Cell { run: 1, index, agg } = resp else { panic!("{resp:?}") };
             assert_eq!(usize::from(*index), j);
             assert_eq!((agg.count, agg.sum, agg.min, agg.max), (2, 200, 100, 100));
         }
-        assert_eq!(r[5], Response::Done { seq: 5, conversions: 8 });
+        // No clock on this front end: the nominal one: 1 µs settle, 2 precharges of 1 + 0.5 µs,
+        // 6 targets of 0.1 + 0.5 µs, 2 rests of 50 ns.
+        let end_ps = 1_000_000 + 2 * 1_500_000 + 6 * 600_000 + 2 * 50_000;
+        assert_eq!(r[5], Response::Done(RunReport { seq: 5, run: 1, start_ps: 0, end_ps, conversions: 8, chunks: 3 }));
         assert_eq!(e.fe.log, [(9, 1), (1, 0), (1, 0), (1, 0), (9, 1), (1, 0), (1, 0), (1, 0)]);
         assert_eq!(e.delay.0, 1000 + 2 * 50);
     }
@@ -330,18 +452,18 @@ pub(crate) mod tests {
         let unknown = Experiment::NoiseRecord { target: 4, sample: 0, period_ns: 10, count: 8, settle_ns: 0 };
         let mut bytes = frame(&Request::Run { seq: 1, experiment: unknown });
         bytes.extend_from_slice(&[0x13, 0x37, 0x00]); // garbage frame
-        bytes.extend_from_slice(&frame(&Request::Hello { protocol: 1 })[..3]); // truncated …
+        bytes.extend_from_slice(&frame(&Request::Hello { protocol: 1, seq: 2 })[..3]); // truncated …
         bytes.push(0); // … then cut off by a delimiter
-        bytes.extend(frame(&Request::Channel { position: 40 }));
-        bytes.extend(frame(&Request::Hello { protocol: 99 }));
+        bytes.extend(frame(&Request::Channel { seq: 3, position: 40 }));
+        bytes.extend(frame(&Request::Hello { protocol: 99, seq: 4 }));
         e.feed(&bytes, &mut out).unwrap();
         let r = responses(&out);
         assert_eq!(r[0], Response::Error { seq: 1, kind: ErrorKind::BadChannel });
         assert_eq!(r[1], Response::Error { seq: 0, kind: ErrorKind::BadFrame });
         assert_eq!(r[2], Response::Error { seq: 0, kind: ErrorKind::BadFrame });
-        assert_eq!(r[3], Response::Error { seq: 0, kind: ErrorKind::BadPosition });
-        assert_eq!(r[4], Response::Error { seq: 0, kind: ErrorKind::Version });
-        assert!(matches!(r[5], Response::Hello { .. }));
+        assert_eq!(r[3], Response::Error { seq: 3, kind: ErrorKind::BadPosition });
+        assert_eq!(r[4], Response::Error { seq: 4, kind: ErrorKind::Version });
+        assert!(matches!(r[5], Response::Hello { seq: 4, .. }));
         assert!(e.fe.log.is_empty(), "nothing was converted for refused requests");
     }
 
@@ -350,11 +472,11 @@ pub(crate) mod tests {
         let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
         let mut out = StdVec::new();
         let [part, _] = SimPart::largest_for_tests();
-        let mut bytes = frame(&Request::Simulate(part));
-        bytes.extend(frame(&Request::Hello { protocol: PROTOCOL_VERSION }));
+        let mut bytes = frame(&Request::Simulate { seq: 1, part });
+        bytes.extend(frame(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 2 }));
         e.feed(&bytes, &mut out).unwrap();
         let r = responses(&out);
-        assert_eq!(r[0], Response::Error { seq: 0, kind: ErrorKind::Unsupported });
+        assert_eq!(r[0], Response::Error { seq: 1, kind: ErrorKind::Unsupported });
         assert!(matches!(&r[1], Response::Hello { board, .. } if board == "test"));
     }
 
@@ -384,13 +506,13 @@ pub(crate) mod tests {
         let mut out = StdVec::new();
         let [SimPart::Board(mut head), pin] = SimPart::largest_for_tests() else { panic!() };
         head.pins = 1;
-        let mut bytes = frame(&Request::Simulate(SimPart::Board(head)));
-        bytes.extend(frame(&Request::Simulate(pin)));
-        bytes.extend(frame(&Request::Hello { protocol: PROTOCOL_VERSION }));
+        let mut bytes = frame(&Request::Simulate { seq: 1, part: SimPart::Board(head) });
+        bytes.extend(frame(&Request::Simulate { seq: 2, part: pin }));
+        bytes.extend(frame(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 3 }));
         e.feed(&bytes, &mut out).unwrap();
         let r = responses(&out);
-        assert_eq!(r[0], Response::SimLoaded { pending: 1 });
-        assert_eq!(r[1], Response::SimLoaded { pending: 0 });
+        assert_eq!(r[0], Response::SimLoaded { seq: 1, pending: 1 });
+        assert_eq!(r[1], Response::SimLoaded { seq: 2, pending: 0 });
         assert!(matches!(&r[2], Response::Hello { board, channels: 1, .. } if board == "rewired"));
     }
 
@@ -403,13 +525,148 @@ pub(crate) mod tests {
         let r = responses(&out);
         let mut codes = StdVec::new();
         for resp in &r[..r.len() - 1] {
-            let Response::Samples { seq: 2, offset, codes: c } = resp else { panic!() };
+            let Response::Samples { run: 1, offset, codes: c } = resp else { panic!() };
             assert_eq!(usize::from(*offset), codes.len());
             codes.extend_from_slice(c);
         }
         assert_eq!(codes, [1u16; 100]);
-        assert_eq!(r.last(), Some(&Response::Done { seq: 2, conversions: 100 }));
+        assert!(matches!(
+            r.last(),
+            Some(Response::Done(RunReport { seq: 2, run: 1, conversions: 100, chunks: 3, .. }))
+        ));
         // 100 gaps of 10 µs − (1 µs + 0.5 µs) busy.
         assert_eq!(e.delay.0, 100 * 8_500);
+    }
+
+    fn burst(precharge: u8) -> Experiment {
+        Experiment::RepeatBurst {
+            target: 1,
+            precharge,
+            precharge_sample: 0,
+            sample: 0,
+            length: 2,
+            repeats: 1,
+            rest_ns: 0,
+            settle_ns: 0,
+        }
+    }
+
+    #[test]
+    fn no_experiment_converts_an_undeclared_channel_as_a_precharge() {
+        // Channel 0 is a pin and 12 an internal channel: neither is declared a precharge source.
+        let mut sweep_precharges = Vec::new();
+        sweep_precharges.push(9).unwrap();
+        sweep_precharges.push(12).unwrap();
+        let samples = Vec::from_slice(&[0]).unwrap();
+        let mut periods_ns = Vec::new();
+        periods_ns.push(10_000).unwrap();
+        let exps = [
+            Experiment::PrechargeSweep {
+                target: 1,
+                precharges: sweep_precharges,
+                precharge_sample: 0,
+                samples,
+                repeats: 1,
+                rest_ns: 0,
+                settle_ns: 0,
+            },
+            burst(0),
+            burst(12),
+            Experiment::PeriodSweep {
+                target: 1,
+                precharge: 0,
+                precharge_sample: 0,
+                sample: 0,
+                periods_ns,
+                repeats: 1,
+                settle_ns: 0,
+            },
+            Experiment::OrderSwap { a: 12, b: 1, sample: 0, repeats: 1, rest_ns: 0, settle_ns: 0 },
+        ];
+        for (i, exp) in exps.into_iter().enumerate() {
+            let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
+            let mut out = StdVec::new();
+            let name = exp.name();
+            e.feed(&frame(&Request::Run { seq: i as u16, experiment: exp }), &mut out).unwrap();
+            assert_eq!(responses(&out), [Response::Error { seq: i as u16, kind: ErrorKind::NotAllowed }], "{name}");
+            assert!(e.fe.log.is_empty(), "{name}: nothing converted");
+        }
+        // The declared source and a pin compared with a pin are allowed.
+        let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
+        let mut out = StdVec::new();
+        let swap = Experiment::OrderSwap { a: 0, b: 1, sample: 0, repeats: 1, rest_ns: 0, settle_ns: 0 };
+        e.feed(&frame(&Request::Run { seq: 1, experiment: swap }), &mut out).unwrap();
+        e.feed(&frame(&Request::Run { seq: 2, experiment: burst(9) }), &mut out).unwrap();
+        let r = responses(&out);
+        assert!(matches!(r[4], Response::Done(RunReport { run: 1, conversions: 4, .. })), "{r:?}");
+        assert!(matches!(r[7], Response::Done(RunReport { run: 2, conversions: 3, .. })), "{r:?}");
+    }
+
+    #[test]
+    fn a_duplicated_run_is_counted_twice_and_chunks_are_resent_from_the_buffer() {
+        let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
+        let mut out = StdVec::new();
+        let run = frame(&Request::Run { seq: 7, experiment: burst(9) });
+        let mut bytes = run.clone();
+        bytes.extend(&run); // the same frame twice, as a faulty link may deliver it
+        e.feed(&bytes, &mut out).unwrap();
+        let r = responses(&out);
+        let Response::Done(first) = r[2] else { panic!("{r:?}") };
+        let Response::Done(second) = r[5] else { panic!("{r:?}") };
+        assert_eq!((first.run, second.run), (1, 2));
+        assert_eq!(second.start_ps, first.end_ps, "the second run starts where the first ended");
+        assert_eq!(e.fe.log.len(), 6, "both ran");
+        // Chunk 1 of the last run of seq 7 again, its summary, then the run log.
+        let mut out = StdVec::new();
+        let mut bytes = frame(&Request::Resend { seq: 7, run: 2, chunk: 1 });
+        bytes.extend(frame(&Request::Resend { seq: 7, run: 0, chunk: SUMMARY_CHUNK }));
+        bytes.extend(frame(&Request::Resend { seq: 7, run: 1, chunk: 0 }));
+        bytes.extend(frame(&Request::Resend { seq: 6, run: 0, chunk: 0 }));
+        bytes.extend(frame(&Request::Runs { seq: 8, since: 1 }));
+        e.feed(&bytes, &mut out).unwrap();
+        let r = responses(&out);
+        assert_eq!(
+            r[0],
+            Response::Cell {
+                run: 2,
+                index: 1,
+                agg: Aggregate { count: 1, sum: 100, sum_sq: 10_000, min: 100, max: 100 }
+            }
+        );
+        assert_eq!(r[1], Response::Done(second));
+        assert_eq!(r[2], Response::Error { seq: 7, kind: ErrorKind::Gone }, "run 1 is no longer buffered");
+        assert_eq!(r[3], Response::Error { seq: 6, kind: ErrorKind::Gone });
+        assert_eq!(r[4], Response::Runs { seq: 8, runs: Vec::from_slice(&[first, second]).unwrap() });
+        assert_eq!(e.fe.log.len(), 6, "resends convert nothing");
+        let mut out = StdVec::new();
+        e.feed(&frame(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 9 }), &mut out).unwrap();
+        assert!(matches!(responses(&out)[0], Response::Hello { runs: 2, .. }));
+    }
+
+    #[test]
+    fn the_run_log_keeps_the_last_runs() {
+        let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
+        let mut out = StdVec::new();
+        for seq in 0..(RUN_LOG as u16 + 3) {
+            e.feed(&frame(&Request::Run { seq, experiment: burst(9) }), &mut out).unwrap();
+        }
+        let mut out = StdVec::new();
+        e.feed(&frame(&Request::Runs { seq: 99, since: 0 }), &mut out).unwrap();
+        let [Response::Runs { seq: 99, runs }] = &responses(&out)[..] else { panic!() };
+        let numbers: StdVec<u32> = runs.iter().map(|r| r.run).collect();
+        assert_eq!(numbers, (4..=RUN_LOG as u32 + 3).collect::<StdVec<_>>());
+    }
+
+    #[test]
+    fn a_hello_of_a_protocol_2_host_is_answered_in_words() {
+        // Protocol 2's hello: variant 0, protocol 2, and nothing else.
+        let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
+        let mut out = StdVec::new();
+        let mut buf = [0u8; MAX_FRAME];
+        let n = encode_frame(&(0u8, 2u8), &mut buf).unwrap();
+        e.feed(&buf[..n], &mut out).unwrap();
+        let r = responses(&out);
+        assert_eq!(r[0], Response::Error { seq: 0, kind: ErrorKind::Version });
+        assert!(matches!(r[1], Response::Hello { protocol: PROTOCOL_VERSION, .. }));
     }
 }

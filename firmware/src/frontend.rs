@@ -53,6 +53,13 @@ pub trait AnalogFrontEnd {
     /// One conversion.
     fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, Self::Error>;
 
+    /// The board's own clock, ps, if it has one (a monotonic timer; the virtual clock of a
+    /// simulated board). Without one (the default) the engine counts the nominal duration of
+    /// everything it has run, which is what it reports as its clock.
+    fn clock_ps(&mut self) -> Option<u64> {
+        None
+    }
+
     /// Takes one part of a simulated set-up. Only a simulated board can be rewired over the
     /// link; a real converter keeps this default, which refuses.
     fn simulate(&mut self, part: &SimPart) -> Result<SetupProgress, ErrorKind> {
@@ -65,6 +72,9 @@ impl<T: AnalogFrontEnd + ?Sized> AnalogFrontEnd for &mut T {
     type Error = T::Error;
     fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, Self::Error> {
         T::convert(self, channel, sample)
+    }
+    fn clock_ps(&mut self) -> Option<u64> {
+        T::clock_ps(self)
     }
     fn simulate(&mut self, part: &SimPart) -> Result<SetupProgress, ErrorKind> {
         T::simulate(self, part)

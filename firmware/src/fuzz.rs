@@ -192,10 +192,10 @@ mod tests {
         let [SimPart::Board(mut head), pin] = SimPart::largest_for_tests() else { unreachable!() };
         head.pins = 1;
         vec![
-            vec![Request::Hello { protocol: PROTOCOL_VERSION }],
+            vec![Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 }],
             vec![Request::Run { seq: 3, experiment: burst }],
             vec![Request::Run { seq: 4, experiment: noise }],
-            vec![Request::Simulate(SimPart::Board(head)), Request::Simulate(pin)],
+            vec![Request::Simulate { seq: 5, part: SimPart::Board(head) }, Request::Simulate { seq: 6, part: pin }],
         ]
     }
 
@@ -226,7 +226,7 @@ mod tests {
             },
             vec![],
         );
-        let mut stream = frame(&Request::Hello { protocol: PROTOCOL_VERSION });
+        let mut stream = frame(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 });
         stream.extend([0x12, 0x34, 0]);
         let input = EngineInput { chunks: vec![stream.len()], intact: vec![], stream };
         let why = t.check(&input).unwrap_err();

@@ -52,7 +52,7 @@ pub struct PinEvidence {
     pub noise: Option<NoiseSummary>,
     /// The memory test.
     pub swap: Option<Swap>,
-    /// Conversions spent on the pin (failed attempts included).
+    /// Conversions spent on the pin (runs without records included).
     pub conversions: u64,
     /// The survey steps with at least one experiment on the pin.
     pub purposes: Vec<Purpose>,
@@ -71,7 +71,7 @@ pub fn board_model(record: &RunRecord) -> BoardModel {
 
 fn model_with(profile: &Profile, experiments: &[ExperimentRecord]) -> BoardModel {
     let mut model = profile.model();
-    for e in experiments.iter().filter(|e| e.purpose == Purpose::PrechargeLevel) {
+    for e in experiments.iter().filter(|e| e.purpose == Purpose::PrechargeLevel && e.received) {
         if let (ExperimentSpec::NoiseRecord { target, .. }, Some(mean)) = (&e.experiment, raw_mean(&e.samples)) {
             model.precharge_volts.insert(*target, model.code_volts(mean));
         }
@@ -114,33 +114,31 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 conversions: 0,
                 purposes: Vec::new(),
             };
+            // The pin's timeline is the board's own report of each run, runs the host took no
+            // records of included: their conversions acted on the node too.
             let mut end_ps: Option<u64> = None;
             for e in record.experiments.iter().filter(|e| e.pin == Some(pin.channel)) {
                 let Some(exp) = e.experiment.to_experiment() else { continue };
                 let cells: Vec<CellObs> = e.cells.iter().map(|c| CellObs::from_aggregate(&c.aggregate())).collect();
-                let nominal = Steps::new(&exp, model.timing()).map(|s| s.nominal_ps()).unwrap_or(0);
-                let attempts = u64::from(e.attempts.max(1));
-                ev.conversions += u64::from(e.conversions) * attempts;
-                let memory = e.purpose == Purpose::Memory;
+                ev.conversions += u64::from(e.conversions);
                 if !ev.purposes.contains(&e.purpose) {
                     ev.purposes.push(e.purpose);
                 }
-                for attempt in 0..attempts {
-                    let start = e.start_ps + attempt * nominal;
-                    let last = attempt + 1 == attempts;
-                    let event = Event {
-                        experiment: exp.clone(),
-                        target: pin.channel,
-                        gap_before_ps: end_ps.map(|end| start.saturating_sub(end)).unwrap_or(0),
-                        cells: (last && e.fitted()).then(|| cells.clone()),
-                        coherent_var_lsb2: Vec::new(),
-                    };
-                    end_ps = Some(start + nominal);
-                    if memory {
-                        ev.memory_events.push(event);
-                    } else {
-                        ev.events.push(event);
-                    }
+                let event = Event {
+                    experiment: exp,
+                    target: pin.channel,
+                    gap_before_ps: end_ps.map(|end| e.start_ps.saturating_sub(end)).unwrap_or(0),
+                    cells: e.fitted().then(|| cells.clone()),
+                    coherent_var_lsb2: Vec::new(),
+                };
+                end_ps = Some(e.end_ps.max(e.start_ps));
+                if e.purpose == Purpose::Memory {
+                    ev.memory_events.push(event);
+                } else {
+                    ev.events.push(event);
+                }
+                if !e.received {
+                    continue;
                 }
                 match (e.purpose, &e.experiment) {
                     (Purpose::Screen, ExperimentSpec::PrechargeSweep { .. }) if ev.screen.is_empty() => {

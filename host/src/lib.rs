@@ -18,6 +18,7 @@
 //! [`output`] (writing the files a user names), [`units`].
 pub mod advice;
 pub mod analyse;
+pub mod faulty;
 pub mod fit;
 pub mod judge;
 pub mod link;

@@ -14,9 +14,10 @@ use crate::record::{
     new_run_id, now_rfc3339, role_name, BoardRecord, ChannelRecord, ExperimentRecord, ExperimentSpec, FrontEndRecord,
     LinkRecord, PinRecord, Profile, Purpose, RunKind, RunMeta, RunRecord, RunStats,
 };
-use crate::session::{BoardInfo, LinkStats, RunRecords, Session, SessionError};
+use crate::session::{BoardInfo, LinkStats, RunRecords, Session, SessionError, UnansweredRun};
 use ohmsight_protocol::analog::volts_to_lsb;
 use ohmsight_protocol::{ChannelRole, Experiment, Steps};
+use std::collections::HashMap;
 use std::time::{Duration, Instant};
 
 /// Something that happened during a run.
@@ -147,14 +148,18 @@ impl From<SessionError> for SurveyError {
     }
 }
 
-/// Runs experiments, keeps the board's nominal timeline and the record.
+/// Runs experiments and keeps the record, each run placed where the board says it ran.
 struct Runner<'s, 'e, L> {
     session: &'s mut Session<L>,
     model: BoardModel,
-    now_ps: u64,
     record: RunRecord,
     on_event: &'e mut dyn FnMut(&RunEvent),
     planned: u64,
+    /// What each [`Session::run`] call asked for, by call index.
+    calls: HashMap<usize, (Purpose, Option<u8>, ExperimentSpec)>,
+    /// Added to the board's clock in the record: 0 for a new run; for a resumed one, past the
+    /// earlier part's end and a rest gap (the board's clock may have started again at zero).
+    clock_offset_ps: u64,
 }
 
 impl<L: Link> Runner<'_, '_, L> {
@@ -163,30 +168,62 @@ impl<L: Link> Runner<'_, '_, L> {
         (self.on_event)(&RunEvent::Planned { total: self.planned });
     }
 
-    /// Runs `exp` and adds it to the record.
+    fn next_seq(&self) -> u32 {
+        self.record.experiments.iter().map(|e| e.seq + 1).max().unwrap_or(0)
+    }
+
+    fn push(&mut self, e: ExperimentRecord) {
+        self.record.experiments.push(e);
+        if let Some(e) = self.record.experiments.last() {
+            (self.on_event)(&RunEvent::Recorded(e));
+        }
+    }
+
+    /// Adds runs the board made that the host took no records of, where the board ran them.
+    fn push_unanswered(&mut self, runs: &[UnansweredRun]) {
+        for u in runs {
+            let Some((purpose, pin, spec)) = self.calls.get(&u.call).cloned() else { continue };
+            let e = ExperimentRecord {
+                seq: self.next_seq(),
+                purpose,
+                pin,
+                experiment: spec,
+                board_run: u.report.run,
+                start_ps: u.report.start_ps + self.clock_offset_ps,
+                end_ps: u.report.end_ps + self.clock_offset_ps,
+                received: false,
+                conversions: u.report.conversions,
+                cells: Vec::new(),
+                samples: Vec::new(),
+            };
+            self.push(e);
+        }
+    }
+
+    /// Runs `exp` and adds it to the record (with any run the board made that the host has no
+    /// records of before it).
     fn run(&mut self, purpose: Purpose, pin: Option<u8>, exp: Experiment) -> Result<RunRecords, SessionError> {
         let what = if purpose == Purpose::Screen { "screen" } else { exp.name() };
         (self.on_event)(&RunEvent::Starting { pin, what });
         let nominal = Steps::new(&exp, self.model.timing()).map(|s| s.nominal_ps()).unwrap_or(0);
         let rec = self.session.run(&exp, Duration::from_nanos(nominal / 1000))?;
-        let attempts = rec.failed_attempts + 1;
+        let spec = ExperimentSpec::from(&exp);
+        self.calls.insert(rec.call, (purpose, pin, spec.clone()));
+        self.push_unanswered(&rec.unanswered);
         let e = ExperimentRecord {
-            seq: self.record.experiments.iter().map(|e| e.seq + 1).max().unwrap_or(0),
+            seq: self.next_seq(),
             purpose,
             pin,
-            experiment: ExperimentSpec::from(&exp),
-            start_ps: self.now_ps,
-            end_ps: self.now_ps + u64::from(attempts) * nominal,
-            attempts,
-            conversions: rec.conversions,
+            experiment: spec,
+            board_run: rec.report.run,
+            start_ps: rec.report.start_ps + self.clock_offset_ps,
+            end_ps: rec.report.end_ps + self.clock_offset_ps,
+            received: true,
+            conversions: rec.report.conversions,
             cells: rec.cells.iter().map(Into::into).collect(),
             samples: rec.samples.clone(),
         };
-        self.now_ps = e.end_ps;
-        self.record.experiments.push(e);
-        if let Some(e) = self.record.experiments.last() {
-            (self.on_event)(&RunEvent::Recorded(e));
-        }
+        self.push(e);
         Ok(rec)
     }
 
@@ -363,13 +400,13 @@ fn measure<L: Link>(
     session: &mut Session<L>,
     plan: &Plan,
     record: RunRecord,
-    now_ps: u64,
+    clock_offset_ps: u64,
     base: RunStats,
     wall: Instant,
     on_event: &mut dyn FnMut(&RunEvent),
 ) -> Surveyed {
     let model = board_model(&record);
-    let mut runner = Runner { session, model, now_ps, record, on_event, planned: 0 };
+    let mut runner = Runner { session, model, record, on_event, planned: 0, calls: HashMap::new(), clock_offset_ps };
     let todo: Vec<(usize, u8)> =
         runner.record.pins.iter().enumerate().filter(|(_, p)| !p.complete).map(|(i, p)| (i, p.channel)).collect();
     let levels: Vec<Experiment> = plan
@@ -438,12 +475,19 @@ fn measure<L: Link>(
         }
     }
 
+    // A request that reached the board twice after its last answer: the board's run log says.
+    if fault.is_none() {
+        match runner.session.unanswered_runs() {
+            Ok(runs) => runner.push_unanswered(&runs),
+            Err(e) => fault = Some(e.to_string()),
+        }
+    }
     let link = runner.session.stats;
     let mut record = runner.record;
     record.run.finished = Some(now_rfc3339());
     record.run.complete = fault.is_none() && record.pins.iter().all(|p| p.complete);
     record.run.fault = fault;
-    let board_ps: u64 = record.experiments.iter().map(|e| e.end_ps - e.start_ps).sum();
+    let board_ps: u64 = record.experiments.iter().map(|e| e.end_ps.saturating_sub(e.start_ps)).sum();
     let this = run_stats(&link, board_ps, wall);
     record.run.stats = RunStats {
         conversions: base.conversions + this.conversions,

@@ -233,7 +233,8 @@ mod tests {
         // The next client's first frame must not be joined to that half.
         let mut link = SerialLink::open(&path, 115_200).unwrap();
         let mut frame = [0u8; ohmsight_protocol::MAX_FRAME];
-        let n = ohmsight_protocol::encode_frame(&Request::Hello { protocol: PROTOCOL_VERSION }, &mut frame).unwrap();
+        let n = ohmsight_protocol::encode_frame(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 }, &mut frame)
+            .unwrap();
         link.send(&frame[..n]).unwrap();
         let mut acc = ohmsight_protocol::FrameAccumulator::new();
         let mut first = None;

@@ -218,9 +218,10 @@ fn experiment(seq: u32) -> ExperimentRecord {
         experiment,
         start_ps: (1 << 62) + u64::from(seq) * 1_000_003,
         end_ps: if seq == 4 { u64::MAX } else { (1 << 62) + u64::from(seq) * 1_000_003 + 999 },
-        attempts: 1 + seq % 3,
+        board_run: if seq == 3 { u32::MAX } else { seq * 2 + 1 },
+        received: seq != 2,
         conversions: u32::MAX - seq,
-        cells,
+        cells: if seq == 2 { Vec::new() } else { cells },
         samples,
     }
 }
@@ -505,7 +506,8 @@ fn readding_an_experiment_replaces_it(db: &TestDb) {
     }
     // The run again of experiment 1 after a link problem: fewer cells, other numbers.
     let mut again = experiment(1);
-    again.attempts = 2;
+    again.board_run = 77;
+    again.received = false;
     again.cells = cells(3, 99);
     store.add_experiment(&record.run.id, &again).unwrap();
     // A noise record replaced by a shorter one.

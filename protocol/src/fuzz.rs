@@ -842,28 +842,29 @@ mod tests {
             requests.insert(format!("{r:?}").split([' ', '(', '{']).next().unwrap().to_string());
             let s: Response = gen.value();
             responses.insert(format!("{s:?}").split([' ', '(', '{']).next().unwrap().to_string());
-            if let Response::Samples { seq, codes, .. } = &s {
-                max_seq |= *seq == u16::MAX;
+            if let Response::Samples { run, codes, .. } = &s {
+                max_seq |= *run == u32::MAX;
                 longest = longest.max(codes.len());
             }
         }
-        assert_eq!(requests.len(), 5, "{requests:?}");
-        assert_eq!(responses.len(), 8, "{responses:?}");
-        assert!(max_seq && longest > 32, "edges reached: seq MAX {max_seq}, longest samples {longest}");
+        assert_eq!(requests.len(), 7, "{requests:?}");
+        assert_eq!(responses.len(), 9, "{responses:?}");
+        assert!(max_seq && longest > 32, "edges reached: run MAX {max_seq}, longest samples {longest}");
+    }
+
+    fn done(seq: u16, conversions: u32) -> crate::RunReport {
+        crate::RunReport { seq, conversions, ..Default::default() }
     }
 
     #[test]
     fn the_targets_catch_what_they_claim_to() {
         // A target that cannot fail proves nothing: each check refuses a broken input.
         let mut gen = Gen::new(2);
-        let m = Message::Response(Response::Done { seq: 1, conversions: 2 });
+        let m = Message::Response(Response::Done(done(1, 2)));
         let mut bad = StreamInput { stream: m.frame(), intact: vec![] };
-        bad.intact.push((bad.stream.len() - 1, Message::Response(Response::Done { seq: 1, conversions: 3 })));
+        bad.intact.push((bad.stream.len() - 1, Message::Response(Response::Done(done(1, 3)))));
         assert!(Frames.check(&bad).is_err(), "a frame that decodes to another message");
-        let wrong = PayloadInput {
-            payload: m.payload(),
-            encodes: Some(Message::Response(Response::Done { seq: 9, conversions: 2 })),
-        };
+        let wrong = PayloadInput { payload: m.payload(), encodes: Some(Message::Response(Response::Done(done(9, 2)))) };
         assert!(Messages.check(&wrong).is_err(), "a payload that encodes another message");
         let ok = Frames.generate(&mut gen);
         assert!(Frames.check(&ok).is_ok());
@@ -900,7 +901,7 @@ mod tests {
             assert!(acc.buffered() <= MAX_FRAME);
         }
         assert_eq!(acc.push::<Request>(0), Some(Err(FrameError::DecodeOverflow)));
-        let got: Vec<_> = frame(&Request::Describe).iter().filter_map(|&b| acc.push::<Request>(b)).collect();
-        assert_eq!(got, [Ok(Request::Describe)]);
+        let got: Vec<_> = frame(&Request::Describe { seq: 0 }).iter().filter_map(|&b| acc.push::<Request>(b)).collect();
+        assert_eq!(got, [Ok(Request::Describe { seq: 0 })]);
     }
 }

@@ -23,7 +23,9 @@ pub mod fuzz;
 pub mod messages;
 pub mod sequence;
 
-pub use frame::{decode_frame, encode_frame, FrameAccumulator, FrameError, MAX_FRAME, MAX_PAYLOAD};
+pub use frame::{
+    decode_frame, decode_message, decode_payload, encode_frame, FrameAccumulator, FrameError, MAX_FRAME, MAX_PAYLOAD,
+};
 pub use messages::*;
 pub use sequence::{Step, StepRecord, Steps, Timing};
 
@@ -31,5 +33,8 @@ pub use sequence::{Step, StepRecord, Steps, Timing};
 /// unless told to try anyway.
 ///
 /// History: 1 the first release; 2 added [`Request::Simulate`] (loading a set-up into a
-/// simulated board), [`Response::SimLoaded`] and [`ErrorKind::BadSetup`].
-pub const PROTOCOL_VERSION: u16 = 2;
+/// simulated board), [`Response::SimLoaded`] and [`ErrorKind::BadSetup`]; 3 gave every
+/// request a `seq` its answer echoes, made [`Response::Done`] a [`RunReport`] (the board's run
+/// number, clock and conversions), tagged data chunks with the run number, and added
+/// [`Request::Resend`], [`Request::Runs`], [`Response::Runs`] and [`ErrorKind::Gone`].
+pub const PROTOCOL_VERSION: u16 = 3;

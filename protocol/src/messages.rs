@@ -31,23 +31,39 @@ pub const MAX_WAIT_NS: u32 = 4_000_000_000;
 pub const MAX_RUN_PS: u64 = 120_000_000_000_000;
 
 /// Host → board.
+///
+/// Every request carries a sequence number `seq` that its answer echoes (protocol 3), so the
+/// host can drop an answer that arrives late for an earlier request, or twice. The host
+/// numbers each try of a request anew.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub enum Request {
     /// First exchange: the host's protocol version. Answered by [`Response::Hello`].
+    ///
+    /// `protocol` stays the first field of variant 0 in every version, so a board of any
+    /// version can read which version the host speaks and answer in words.
     Hello {
         /// [`crate::PROTOCOL_VERSION`] of the host.
         protocol: u16,
+        /// Echoed in the answer.
+        seq: u16,
     },
     /// Asks for the electrical description. Answered by [`Response::FrontEnd`].
-    Describe,
+    Describe {
+        /// Echoed in the answer.
+        seq: u16,
+    },
     /// Asks for one channel's description. Answered by [`Response::Channel`].
     Channel {
+        /// Echoed in the answer.
+        seq: u16,
         /// Position in the board's channel list (not the hardware channel number).
         position: u8,
     },
-    /// Runs one experiment. Answered by its records, then [`Response::Done`] or [`Response::Error`].
+    /// Runs one experiment. Answered by its data chunks ([`Response::Cell`],
+    /// [`Response::Samples`], tagged with the board's run number), then [`Response::Done`]
+    /// (which pairs `seq` with that run number) or [`Response::Error`].
     Run {
-        /// Echoed in every record of this run.
+        /// Echoed in the run's [`RunReport`].
         seq: u16,
         /// What to run.
         experiment: Experiment,
@@ -56,16 +72,73 @@ pub enum Request {
     /// [`ErrorKind::Unsupported`]). Answered by [`Response::SimLoaded`]. A [`SimPart::Board`]
     /// starts a new set-up; once all its pins have arrived the board is rebuilt and describes
     /// the new set-up from then on (its virtual clock starts again at zero).
-    Simulate(SimPart),
+    Simulate {
+        /// Echoed in the answer.
+        seq: u16,
+        /// The part.
+        part: SimPart,
+    },
+    /// Asks again for one chunk of the last run's answer, from the board's buffer: nothing is
+    /// converted. `chunk` below [`RunReport::chunks`] is a data chunk (cells first, then the
+    /// raw-sample messages), [`SUMMARY_CHUNK`] the run's [`Response::Done`]. Answered by that
+    /// message, or by [`ErrorKind::Gone`] when the buffer holds another run.
+    Resend {
+        /// The `seq` of the [`Request::Run`] whose answer is wanted.
+        seq: u16,
+        /// The board's run number from its [`RunReport`]; 0: the last run of request `seq`.
+        run: u32,
+        /// Which chunk.
+        chunk: u16,
+    },
+    /// Asks for the board's log of the runs it started from run number `since` on (the last
+    /// [`RUN_LOG`] at most). Answered by [`Response::Runs`].
+    Runs {
+        /// Echoed in the answer.
+        seq: u16,
+        /// First run number wanted.
+        since: u32,
+    },
+}
+
+/// The [`Request::Resend`] chunk that stands for the run's [`Response::Done`].
+pub const SUMMARY_CHUNK: u16 = u16::MAX;
+/// Runs the board remembers for [`Request::Runs`].
+pub const RUN_LOG: usize = 8;
+
+/// What the board actually ran for one experiment, by its own count and clock.
+///
+/// The run number counts every experiment the board started (from 1); the clock is the
+/// board's own: virtual picoseconds on a simulated board, a monotonic timer on a real one, or
+/// (on a board without one) the nominal duration of everything it has run. The host builds
+/// each pin's timeline from these reports alone.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+pub struct RunReport {
+    /// The `seq` of the [`Request::Run`] that started it.
+    pub seq: u16,
+    /// The board's run number.
+    pub run: u32,
+    /// Board clock at the start of the run (before its settle time), ps.
+    pub start_ps: u64,
+    /// Board clock at its end, ps.
+    pub end_ps: u64,
+    /// Conversions performed, precharge conversions included.
+    pub conversions: u32,
+    /// Data chunks of its answer (cells, then raw-sample messages).
+    pub chunks: u16,
 }
 
 /// Board → host.
+///
+/// Variant order and the first field of [`Response::Hello`] and [`Response::Error`] are kept
+/// across versions, so a host can tell a board of another version in words.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub enum Response {
     /// Answer to [`Request::Hello`].
     Hello {
-        /// The board's [`crate::PROTOCOL_VERSION`].
+        /// The board's [`crate::PROTOCOL_VERSION`] (first field in every version).
         protocol: u16,
+        /// The request's `seq`.
+        seq: u16,
         /// Firmware version string.
         firmware: String<16>,
         /// Board name (profile name).
@@ -74,47 +147,90 @@ pub enum Response {
         unit_id: u64,
         /// How many channels [`Request::Channel`] can describe.
         channels: u8,
+        /// Runs started since the board booted (the last run number).
+        runs: u32,
     },
     /// Answer to [`Request::Describe`].
-    FrontEnd(FrontEnd),
-    /// Answer to [`Request::Channel`].
-    Channel(ChannelInfo),
-    /// One aggregate cell of a run.
-    Cell {
-        /// The run's sequence number.
+    FrontEnd {
+        /// The request's `seq`.
         seq: u16,
+        /// The description.
+        front_end: FrontEnd,
+    },
+    /// Answer to [`Request::Channel`].
+    Channel {
+        /// The request's `seq`.
+        seq: u16,
+        /// The channel.
+        info: ChannelInfo,
+    },
+    /// One aggregate cell of a run: data chunk `index`.
+    Cell {
+        /// The board's run number (see [`RunReport`]).
+        run: u32,
         /// Cell index (meaning per experiment, see [`crate::sequence`]).
         index: u16,
         /// The aggregate.
         agg: Aggregate,
     },
-    /// Raw codes of a noise record, in order.
+    /// Raw codes of a noise record, in order: data chunk `cells + offset / SAMPLES_PER_MESSAGE`.
     Samples {
-        /// The run's sequence number.
-        seq: u16,
+        /// The board's run number.
+        run: u32,
         /// Index of the first code in this message.
         offset: u16,
         /// The codes.
         codes: Vec<u16, SAMPLES_PER_MESSAGE>,
     },
-    /// The run finished; every record has been sent.
-    Done {
-        /// The run's sequence number.
-        seq: u16,
-        /// Conversions performed, precharge conversions included.
-        conversions: u32,
-    },
+    /// The run finished and every chunk has been sent: what the board ran.
+    Done(RunReport),
     /// Answer to [`Request::Simulate`].
     SimLoaded {
+        /// The request's `seq`.
+        seq: u16,
         /// Pins of the set-up still to come; 0 means the new set-up is live.
         pending: u8,
     },
     /// The request was refused or failed; nothing more follows for it.
     Error {
-        /// The run's sequence number (0 for requests without one).
+        /// The request's `seq` (0 for a frame that could not be decoded).
         seq: u16,
         /// What went wrong.
         kind: ErrorKind,
+    },
+    /// Answer to [`Request::Runs`]: the runs logged from `since` on, oldest first.
+    Runs {
+        /// The request's `seq`.
+        seq: u16,
+        /// The runs.
+        runs: Vec<RunReport, RUN_LOG>,
+    },
+}
+
+impl Response {
+    /// The request `seq` this answer echoes; `None` for data chunks (tagged by run number).
+    pub fn seq(&self) -> Option<u16> {
+        match self {
+            Response::Hello { seq, .. }
+            | Response::FrontEnd { seq, .. }
+            | Response::Channel { seq, .. }
+            | Response::SimLoaded { seq, .. }
+            | Response::Error { seq, .. }
+            | Response::Runs { seq, .. } => Some(*seq),
+            Response::Done(r) => Some(r.seq),
+            Response::Cell { .. } | Response::Samples { .. } => None,
+        }
+    }
+}
+
+/// The start of a [`Response::Hello`] of any protocol version: enough to say which version a
+/// board speaks when the rest of its hello is not of this version.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum HelloHead {
+    /// Variant 0, first field.
+    Hello {
+        /// The board's protocol version.
+        protocol: u16,
     },
 }
 
@@ -144,6 +260,8 @@ pub enum ErrorKind {
     Version,
     /// A simulated set-up with values the simulator cannot use, or a pin without its board part.
     BadSetup,
+    /// [`Request::Resend`] for a run the board no longer buffers (or never ran).
+    Gone,
 }
 
 impl core::fmt::Display for ErrorKind {
@@ -160,6 +278,7 @@ impl core::fmt::Display for ErrorKind {
             ErrorKind::BadPosition => "no channel at that position",
             ErrorKind::Version => "protocol version not supported by the board",
             ErrorKind::BadSetup => "simulated set-up out of range or out of order (send the board part first)",
+            ErrorKind::Gone => "the board no longer holds that run's answer",
         })
     }
 }
@@ -481,6 +600,25 @@ impl Experiment {
             Experiment::RepeatBurst { .. } => "repeat burst",
             Experiment::PeriodSweep { .. } => "period sweep",
             Experiment::NoiseRecord { .. } => "noise record",
+        }
+    }
+
+    /// Number of aggregate cells its answer holds (0 for a noise record).
+    pub fn cells(&self) -> u16 {
+        match self {
+            Experiment::PrechargeSweep { precharges, samples, .. } => (precharges.len() * samples.len()) as u16,
+            Experiment::OrderSwap { .. } => 4,
+            Experiment::RepeatBurst { length, .. } => u16::from(*length),
+            Experiment::PeriodSweep { periods_ns, .. } => periods_ns.len() as u16,
+            Experiment::NoiseRecord { .. } => 0,
+        }
+    }
+
+    /// Number of raw codes its answer holds (0 unless a noise record).
+    pub fn raw_samples(&self) -> u16 {
+        match self {
+            Experiment::NoiseRecord { count, .. } => *count,
+            _ => 0,
         }
     }
 

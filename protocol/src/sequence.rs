@@ -184,21 +184,12 @@ impl<'a> Steps<'a> {
 
     /// Number of aggregate cells (0 for a noise record).
     pub fn cells(&self) -> u16 {
-        match self.exp {
-            Experiment::PrechargeSweep { precharges, samples, .. } => (precharges.len() * samples.len()) as u16,
-            Experiment::OrderSwap { .. } => 4,
-            Experiment::RepeatBurst { length, .. } => u16::from(*length),
-            Experiment::PeriodSweep { periods_ns, .. } => periods_ns.len() as u16,
-            Experiment::NoiseRecord { .. } => 0,
-        }
+        self.exp.cells()
     }
 
     /// Number of raw samples (0 unless a noise record).
     pub fn raw_samples(&self) -> u16 {
-        match self.exp {
-            Experiment::NoiseRecord { count, .. } => *count,
-            _ => 0,
-        }
+        self.exp.raw_samples()
     }
 
     /// Channels the experiment converts: (channels under test, channels used as precharge).

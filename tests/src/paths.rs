@@ -236,6 +236,8 @@ fn answer_as(mut port: TTYPort, kind: PeerKind, stop: &AtomicBool, received: &Mu
         PeerKind::Garbage => b"\x13\x37 not a frame \xfe\x00\x41\x54\x0d\x00".to_vec(),
         PeerKind::Version(protocol) => frame(&Response::Hello {
             protocol,
+            seq: 1,
+            runs: 0,
             firmware: heapless::String::try_from("7.0.0").unwrap(),
             board: heapless::String::try_from("future board").unwrap(),
             unit_id: 9,

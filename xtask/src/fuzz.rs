@@ -160,10 +160,16 @@ fn seeds(scenario: &Scenario) -> Vec<Vec<Request>> {
         },
         Experiment::NoiseRecord { target, sample: 0, period_ns: 10_000, count: 60, settle_ns: 0 },
     ];
-    let mut seeds = vec![vec![Request::Hello { protocol: PROTOCOL_VERSION }], vec![Request::Describe]];
+    let mut seeds = vec![
+        vec![Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 }],
+        vec![Request::Describe { seq: 2 }],
+        vec![Request::Channel { seq: 3, position: 0 }],
+    ];
     seeds.extend(
         experiments.into_iter().enumerate().map(|(i, experiment)| vec![Request::Run { seq: i as u16, experiment }]),
     );
-    seeds.push(scenario.to_parts().map(Request::Simulate).collect());
+    seeds.push(
+        scenario.to_parts().enumerate().map(|(i, part)| Request::Simulate { seq: 100 + i as u16, part }).collect(),
+    );
     seeds
 }

@@ -399,6 +399,10 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
 impl<C: Deref<Target = VirtualClock>> AnalogFrontEnd for VirtualBoard<C> {
     type Error = VirtualError;
 
+    fn clock_ps(&mut self) -> Option<u64> {
+        Some(self.clock.now_ps())
+    }
+
     fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, VirtualError> {
         let idx = self.channels.iter().position(|c| c.channel == channel).ok_or(VirtualError::BadChannel)?;
         let ts = *self.sample_s.get(usize::from(sample)).ok_or(VirtualError::BadSampleTime)?;

@@ -679,14 +679,21 @@ pub struct ExperimentRecord {
     pub pin: Option<u8>,
     /// What ran.
     pub experiment: ExperimentSpec,
-    /// Board time at the start of its first attempt, ps (the host's timeline of nominal
-    /// durations from the start of the run).
+    /// The board's run number (it counts every experiment it starts; 0 in records written
+    /// before protocol 3).
+    #[serde(default)]
+    pub board_run: u32,
+    /// The board's clock at the start of the run, ps, as the board reported it.
     pub start_ps: u64,
-    /// Board time at the end of its last attempt, ps.
+    /// The board's clock at the end of the run, ps.
     pub end_ps: u64,
-    /// Attempts it took; the failed ones ran on the board too, as far as the host knows.
-    pub attempts: u32,
-    /// Conversions the board reported for the attempt whose records these are.
+    /// Whether the host took this run's records. `false` for a run the board reports in its
+    /// run log but whose answer the host did not take (the request reached the board twice,
+    /// or the answer was lost and the experiment run again): it has no cells, but its
+    /// conversions acted on the node, so the pin's history includes it.
+    #[serde(default = "received_by_default")]
+    pub received: bool,
+    /// Conversions the board reported for this run.
     pub conversions: u32,
     /// Aggregate cells, by cell index.
     pub cells: Vec<CellRecord>,
@@ -694,11 +701,16 @@ pub struct ExperimentRecord {
     pub samples: Vec<u16>,
 }
 
+fn received_by_default() -> bool {
+    true
+}
+
 impl ExperimentRecord {
     /// Whether the fit uses this experiment's cells (the order swap and noise records are
     /// analysed on their own).
     pub fn fitted(&self) -> bool {
-        !matches!(self.experiment, ExperimentSpec::OrderSwap { .. } | ExperimentSpec::NoiseRecord { .. })
+        self.received
+            && !matches!(self.experiment, ExperimentSpec::OrderSwap { .. } | ExperimentSpec::NoiseRecord { .. })
             && self.purpose != Purpose::Memory
     }
 }

@@ -400,8 +400,19 @@ fn resolve<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<String, StoreError> {
     }
 }
 
-const EXPERIMENT_COLUMNS: &[&str] =
-    &["run_id", "seq", "purpose", "pin", "kind", "parameters", "start_ps", "end_ps", "attempts", "conversions"];
+const EXPERIMENT_COLUMNS: &[&str] = &[
+    "run_id",
+    "seq",
+    "purpose",
+    "pin",
+    "kind",
+    "parameters",
+    "board_run",
+    "start_ps",
+    "end_ps",
+    "received",
+    "conversions",
+];
 
 /// Writes one experiment with its cells and samples, replacing any stored at the same seq.
 fn put_experiment<D: Db + ?Sized>(db: &mut D, run_id: &str, exp: &ExperimentRecord) -> Result<(), StoreError> {
@@ -420,9 +431,10 @@ fn put_experiment<D: Db + ?Sized>(db: &mut D, run_id: &str, exp: &ExperimentReco
             Arg::Int(exp.pin.map(i64::from)),
             Arg::text(exp.experiment.kind()),
             json(&exp.experiment),
+            Arg::int(exp.board_run),
             Arg::u64(exp.start_ps),
             Arg::u64(exp.end_ps),
-            Arg::int(exp.attempts),
+            Arg::Bool(exp.received),
             Arg::int(exp.conversions),
         ]],
     )?;
@@ -453,7 +465,7 @@ fn load_experiments<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<Vec<Experime
     let mut experiments = Vec::new();
     let mut by_seq = BTreeMap::new();
     for row in db.query(
-        "SELECT seq, purpose, pin, parameters, start_ps, end_ps, attempts, conversions \
+        "SELECT seq, purpose, pin, parameters, board_run, start_ps, end_ps, received, conversions \
          FROM experiments WHERE run_id = $1 ORDER BY seq",
         &key,
     )? {
@@ -470,9 +482,10 @@ fn load_experiments<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<Vec<Experime
             purpose,
             pin,
             experiment,
+            board_run: c.int()?,
             start_ps: c.u64()?,
             end_ps: c.u64()?,
-            attempts: c.int()?,
+            received: c.bool()?,
             conversions: c.int()?,
             cells: Vec::new(),
             samples: Vec::new(),

@@ -18,11 +18,13 @@ struct Migration {
 
 /// Every migration this tool knows, oldest first. Append only: a released migration never
 /// changes, since databases in the field have run it.
-const MIGRATIONS: &[Migration] =
-    &[Migration { version: 1, name: "run records", sql: include_str!("migrations/0001_runs.sql") }];
+const MIGRATIONS: &[Migration] = &[
+    Migration { version: 1, name: "run records", sql: include_str!("migrations/0001_runs.sql") },
+    Migration { version: 2, name: "board run reports", sql: include_str!("migrations/0002_board_report.sql") },
+];
 
 /// The newest schema version this tool reads and writes.
-pub const SCHEMA_VERSION: i64 = 1;
+pub const SCHEMA_VERSION: i64 = 2;
 
 /// The per-dialect markers and what they stand for.
 fn markers(dialect: Dialect) -> &'static [(&'static str, &'static str)] {

@@ -8,7 +8,7 @@ use std::time::{Duration, Instant};
 
 fn hello_answered(path: &str) -> bool {
     let mut port = RawPort::open(path);
-    matches!(port.ask(&Request::Hello { protocol: PROTOCOL_VERSION }, 1)[0], Response::Hello { .. })
+    matches!(port.ask(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 }, 1)[0], Response::Hello { seq: 1, .. })
 }
 
 #[test]
@@ -24,7 +24,7 @@ fn simulate_prints_the_path_alone_serves_clients_in_turn_and_stops_on_sigterm() 
     std::thread::sleep(Duration::from_millis(200));
     // SIGTERM while a third client holds the port open (the server then waits on the port).
     let mut third = RawPort::open(&sim.path);
-    assert!(matches!(third.ask(&Request::Describe, 1)[0], Response::FrontEnd(_)));
+    assert!(matches!(third.ask(&Request::Describe { seq: 2 }, 1)[0], Response::FrontEnd { seq: 2, .. }));
     let status = sim.terminate(Duration::from_secs(3)).expect("SIGTERM stops it within 3 s");
     assert!(status.success(), "{status:?}: {}", sim.stderr());
     assert_eq!(sim.stdout(), format!("{}\n", sim.path), "stdout holds the path and nothing else");

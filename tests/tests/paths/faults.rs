@@ -2,7 +2,7 @@
 //! wrong in words and exits non-zero.
 
 use crate::{exe, BENCH_TOML};
-use ohmsight_protocol::{ErrorKind, Experiment, Request, Response, MAX_FRAME, PROTOCOL_VERSION};
+use ohmsight_protocol::{ErrorKind, Experiment, Request, Response, RunReport, MAX_FRAME, PROTOCOL_VERSION};
 use ohmsight_tests::paths::{frame, scenario_file, Peer, PeerKind, RawPort, Simulator};
 use std::process::Command;
 use std::time::{Duration, Instant};
@@ -37,17 +37,17 @@ fn garbage_truncated_frames_and_a_wrong_version_leave_the_board_answering() {
     port.send_bytes(&flipped);
     assert_eq!(port.answers(1), [BAD_FRAME], "corrupted frame");
     // A host of another protocol version: told so, and told the board's version.
-    let r = port.ask(&Request::Hello { protocol: PROTOCOL_VERSION + 1 }, 2);
-    assert_eq!(r[0], Response::Error { seq: 0, kind: ErrorKind::Version });
+    let r = port.ask(&Request::Hello { protocol: PROTOCOL_VERSION + 1, seq: 4 }, 2);
+    assert_eq!(r[0], Response::Error { seq: 4, kind: ErrorKind::Version });
     assert!(matches!(r[1], Response::Hello { protocol: PROTOCOL_VERSION, .. }), "{r:?}");
 
     // Good requests after all that are answered as usual.
-    let r = port.ask(&Request::Hello { protocol: PROTOCOL_VERSION }, 1);
+    let r = port.ask(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 5 }, 1);
     assert!(matches!(r[0], Response::Hello { protocol: PROTOCOL_VERSION, .. }), "{r:?}");
-    assert!(matches!(port.ask(&Request::Describe, 1)[0], Response::FrontEnd(_)));
+    assert!(matches!(port.ask(&Request::Describe { seq: 6 }, 1)[0], Response::FrontEnd { seq: 6, .. }));
     let r = port.ask(&run, 2);
-    assert!(matches!(&r[0], Response::Samples { seq: 3, offset: 0, codes } if codes.len() == 8), "{r:?}");
-    assert_eq!(r[1], Response::Done { seq: 3, conversions: 8 });
+    assert!(matches!(&r[0], Response::Samples { offset: 0, codes, .. } if codes.len() == 8), "{r:?}");
+    assert!(matches!(r[1], Response::Done(RunReport { seq: 3, conversions: 8, chunks: 1, .. })), "{r:?}");
     // Nothing else was sent: one answer per request, no stray frames.
     assert!(port.responses(1, Duration::from_millis(300)).is_empty());
 }

@@ -63,7 +63,7 @@ fn exercise(device: &str) {
     ];
     for e in &runs {
         let r = s.run(e, Duration::from_millis(200)).unwrap_or_else(|err| panic!("{}: {err}", e.name()));
-        assert!(r.conversions > 0);
+        assert!(r.report.conversions > 0);
     }
     let mut bad =
         ohmsight_tests::scenario("x", 1, ohmsight_tests::default_board(), vec![ohmsight_tests::floating(0, 5e-12)]);

@@ -41,22 +41,22 @@ fn garbage_truncated_frames_and_a_wrong_version_leave_the_firmware_answering() {
     let mut port = serialport::new(&qemu.device, 115_200).timeout(Duration::from_millis(100)).open().unwrap();
     // QEMU notices the terminal was opened within about a second; until then the first bytes
     // wait in the terminal, so ask until the board answers.
-    let hello = frame(&Request::Hello { protocol: PROTOCOL_VERSION });
+    let hello = frame(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 });
     let first = (0..10).map(|_| exchange(&mut port, &hello, 1)).find(|r| !r.is_empty()).expect("the board answers");
     assert!(matches!(first[0], Response::Hello { protocol: PROTOCOL_VERSION, .. }), "{first:?}");
 
     let mut bad = vec![0x13, 0x37, 0xff, 0x00]; // garbage, then a delimiter
     bad.extend_from_slice(&hello[..hello.len() / 2]); // a truncated frame …
     bad.push(0x00); // … cut short by a delimiter
-    bad.extend(frame(&Request::Hello { protocol: PROTOCOL_VERSION + 40 })); // a host from the future
-    bad.extend(frame(&Request::Describe));
+    bad.extend(frame(&Request::Hello { protocol: PROTOCOL_VERSION + 40, seq: 2 })); // a host from the future
+    bad.extend(frame(&Request::Describe { seq: 3 }));
     let r = exchange(&mut port, &bad, 5);
     assert_eq!(r.len(), 5, "{r:?}");
     assert_eq!(r[0], Response::Error { seq: 0, kind: ErrorKind::BadFrame });
     assert_eq!(r[1], Response::Error { seq: 0, kind: ErrorKind::BadFrame });
-    assert_eq!(r[2], Response::Error { seq: 0, kind: ErrorKind::Version });
+    assert_eq!(r[2], Response::Error { seq: 2, kind: ErrorKind::Version });
     assert!(matches!(r[3], Response::Hello { protocol: PROTOCOL_VERSION, .. }), "it says which version it speaks");
-    assert!(matches!(r[4], Response::FrontEnd(_)), "and keeps answering");
+    assert!(matches!(r[4], Response::FrontEnd { seq: 3, .. }), "and keeps answering");
     drop(port);
 
     // A set-up the simulator cannot run: refused in words, and the board keeps its old one.

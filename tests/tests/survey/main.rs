@@ -6,5 +6,6 @@
 
 mod accuracy;
 mod demo;
+mod faults;
 mod link;
 mod verdicts;
