@@ -150,7 +150,7 @@ impl Mangler {
             let len = 1 + self.rng.next() % 16;
             for _ in 0..len {
                 let r = self.rng.next();
-                out.push(if r % 8 == 0 { 0 } else { (r >> 8) as u8 });
+                out.push(if r.is_multiple_of(8) { 0 } else { (r >> 8) as u8 });
             }
             changed = true;
         }
