@@ -150,7 +150,7 @@ impl Mangler {
             let len = 1 + self.rng.next() % 16;
             for _ in 0..len {
                 let r = self.rng.next();
-                out.push(if r % 8 == 0 { 0 } else { (r >> 8) as u8 });
+                out.push(if r.is_multiple_of(8) { 0 } else { (r >> 8) as u8 });
             }
             changed = true;
         }
@@ -449,5 +449,47 @@ mod tests {
         assert!(t.elapsed() >= Duration::from_millis(100), "the time-out was waited out");
         assert_eq!(link.recv(&mut buf, Duration::from_secs(2)).unwrap(), 42, "frames 1 and 2 after the stall");
         assert!(t.elapsed() >= Duration::from_millis(300));
+    }
+
+    #[test]
+    fn the_proxy_puts_faults_between_a_served_board_and_a_client() {
+        use crate::session::Session;
+        use ohmsight_protocol::Experiment;
+        let scenario = crate::scenario::parse(
+            "t.toml",
+            "name = \"t\"\n[[pin]]\nchannel = 0\nvolts = 1.0\nohms = 1e3\nnode_farads = 5e-12\n",
+        )
+        .unwrap();
+        let (mut master, board_path) = open_pty().unwrap();
+        let stop = Arc::new(AtomicBool::new(false));
+        let flag = stop.clone();
+        let server = std::thread::spawn(move || crate::simulate::serve(&mut master, &scenario, &flag, &mut |_| {}));
+        let plan = FaultPlan {
+            seed: 5,
+            from_board: Faults { flip_bit: 0.01, ..Faults::default() },
+            // The description comes 1.5 s late: after the client's 1 s time-out and its retry.
+            stalls: vec![(1, Duration::from_millis(1500))],
+            ..FaultPlan::default()
+        };
+        let proxy = FaultyProxy::start(&board_path, 115_200, plan).unwrap();
+        let mut session = Session::new(SerialLink::open(&proxy.path, 115_200).unwrap());
+        session.timeout = Duration::from_secs(1);
+        session.link_bytes_per_s = 11_520;
+        let info = session.handshake(false).expect("handshake through the proxy");
+        assert_eq!(
+            info.channels.len(),
+            info.channels.iter().map(|c| c.channel).collect::<std::collections::BTreeSet<_>>().len()
+        );
+        let noise = Experiment::NoiseRecord { target: 0, sample: 0, period_ns: 10_000, count: 1024, settle_ns: 0 };
+        let rec = session.run(&noise, Duration::from_millis(20)).expect("a noise record through the proxy");
+        assert_eq!(rec.samples.len(), 1024);
+        assert_eq!(rec.report.conversions, 1024);
+        let counts = proxy.counts();
+        assert_eq!(counts.stalls, 1, "{counts:?}");
+        assert!(counts.damaged[1] > 0, "1% of 2 kB of replies corrupted nothing: {counts:?}");
+        drop(session);
+        drop(proxy);
+        stop.store(true, Ordering::Relaxed);
+        server.join().unwrap().unwrap();
     }
 }

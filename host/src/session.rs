@@ -185,7 +185,8 @@ pub fn backoff(k: u32) -> Duration {
     }
 }
 
-/// One decoded frame.
+/// One decoded frame (short-lived, one at a time: not worth boxing).
+#[allow(clippy::large_enum_variant)]
 enum Incoming {
     Msg(Response),
     /// A hello of another protocol version (the rest of it not readable here).

@@ -103,7 +103,7 @@ pub enum Request {
 /// The [`Request::Resend`] chunk that stands for the run's [`Response::Done`].
 pub const SUMMARY_CHUNK: u16 = u16::MAX;
 /// Runs the board remembers for [`Request::Runs`].
-pub const RUN_LOG: usize = 8;
+pub const RUN_LOG: usize = 4;
 
 /// What the board actually ran for one experiment, by its own count and clock.
 ///
