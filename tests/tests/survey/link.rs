@@ -84,8 +84,10 @@ fn a_board_that_never_answers_still_gets_a_document() {
 }
 
 /// Cut points for the resume test: `OHMSIGHT_RESUME_POINTS` of them (6 by default, 20 for the
-/// figure in the README), spread over the clean run's frames by a fixed seed.
-fn cut_points(frames: u64) -> Vec<u64> {
+/// figure in the README), spread over the clean run's frames after the handshake by a fixed
+/// seed. (A cut inside the handshake leaves a run that measured nothing, which `--resume`
+/// refuses in words: survey anew.)
+fn cut_points(handshake: u64, frames: u64) -> Vec<u64> {
     let n: u64 = std::env::var("OHMSIGHT_RESUME_POINTS").ok().and_then(|v| v.parse().ok()).unwrap_or(6);
     let mut x = 0x9e37_79b9_7f4a_7c15u64;
     (0..n)
@@ -94,8 +96,8 @@ fn cut_points(frames: u64) -> Vec<u64> {
             x ^= x << 13;
             x ^= x >> 7;
             x ^= x << 17;
-            let span = frames / n;
-            (i * span + x % span.max(1)).clamp(1, frames - 1)
+            let span = (frames - handshake) / n;
+            (handshake + i * span + x % span.max(1)).clamp(handshake, frames - 1)
         })
         .collect()
 }
@@ -107,7 +109,17 @@ fn a_run_cut_anywhere_is_resumed_to_the_clean_verdicts() {
     let mut session = Session::new(InProcessLink::new(&s));
     let clean = survey(&mut session, &SurveyOptions::default()).unwrap();
     let frames = session.link().frames_sent();
-    for cut in cut_points(frames) {
+    let mut hello = Session::new(InProcessLink::new(&s));
+    hello.handshake(false).unwrap();
+    let handshake = hello.link().frames_sent();
+    // Cut inside the handshake: nothing was measured, and resume says to survey anew.
+    let mut session = Session::new(InProcessLink::new(&s).silent_after(1));
+    let nothing = survey(&mut session, &SurveyOptions::default()).unwrap();
+    assert!(nothing.record.pins.is_empty() && nothing.fault.is_some());
+    let mut session = Session::new(InProcessLink::new(&s));
+    let refused = ohmsight::run::resume_with(&mut session, nothing.record, &SurveyOptions::default(), &mut |_| {});
+    assert!(refused.err().is_some_and(|e| e.is_bad_input() && e.to_string().contains("survey the board anew")));
+    for cut in cut_points(handshake, frames) {
         let mut session = Session::new(InProcessLink::new(&s).silent_after(cut));
         let partial = survey(&mut session, &SurveyOptions::default()).unwrap();
         assert!(!partial.record.run.complete, "cut at frame {cut} of {frames}");
