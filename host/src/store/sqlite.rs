@@ -35,7 +35,18 @@ impl Sqlite {
         conn.busy_timeout(BUSY_TIMEOUT).map_err(cannot_open)?;
         conn.set_prepared_statement_cache_capacity(64);
         // The first statement reads the file: a file that is not a database fails here.
-        let mode: String = conn.query_row("PRAGMA journal_mode = WAL", [], |row| row.get(0)).map_err(cannot_open)?;
+        // Switching a new file to WAL needs its exclusive lock, and SQLite answers "busy" at
+        // once rather than through the busy handler when another process holds the file: so
+        // several stations opening a fresh database at the same moment try again here.
+        let since = std::time::Instant::now();
+        let mode: String = loop {
+            match conn.query_row("PRAGMA journal_mode = WAL", [], |row| row.get(0)) {
+                Err(e) if matches!(classify(&e), Class::Busy) && since.elapsed() < BUSY_TIMEOUT => {
+                    std::thread::sleep(std::time::Duration::from_millis(5));
+                }
+                other => break other.map_err(cannot_open)?,
+            }
+        };
         if !mode.eq_ignore_ascii_case("wal") {
             return Err(StoreError::CannotOpen {
                 database: describe,
