@@ -16,7 +16,7 @@ use crate::record::{
 };
 use crate::session::{BoardInfo, LinkStats, RunRecords, Session, SessionError, UnansweredRun};
 use ohmsight_protocol::analog::volts_to_lsb;
-use ohmsight_protocol::{ChannelRole, Experiment, Steps};
+use ohmsight_protocol::{ChannelRole, Experiment, RunReport, Steps};
 use std::collections::HashMap;
 use std::time::{Duration, Instant};
 
@@ -179,23 +179,36 @@ impl<L: Link> Runner<'_, '_, L> {
         }
     }
 
+    /// The record of one run the board reported, placed on the run's clock; `records`: what
+    /// the host took of it (`None`: a run it has no records of).
+    fn entry(
+        &self,
+        purpose: Purpose,
+        pin: Option<u8>,
+        experiment: ExperimentSpec,
+        report: &RunReport,
+        records: Option<&RunRecords>,
+    ) -> ExperimentRecord {
+        ExperimentRecord {
+            seq: self.next_seq(),
+            purpose,
+            pin,
+            experiment,
+            board_run: report.run,
+            start_ps: report.start_ps + self.clock_offset_ps,
+            end_ps: report.end_ps + self.clock_offset_ps,
+            received: records.is_some(),
+            conversions: report.conversions,
+            cells: records.map_or(Vec::new(), |r| r.cells.iter().map(Into::into).collect()),
+            samples: records.map_or(Vec::new(), |r| r.samples.clone()),
+        }
+    }
+
     /// Adds runs the board made that the host took no records of, where the board ran them.
     fn push_unanswered(&mut self, runs: &[UnansweredRun]) {
         for u in runs {
             let Some((purpose, pin, spec)) = self.calls.get(&u.call).cloned() else { continue };
-            let e = ExperimentRecord {
-                seq: self.next_seq(),
-                purpose,
-                pin,
-                experiment: spec,
-                board_run: u.report.run,
-                start_ps: u.report.start_ps + self.clock_offset_ps,
-                end_ps: u.report.end_ps + self.clock_offset_ps,
-                received: false,
-                conversions: u.report.conversions,
-                cells: Vec::new(),
-                samples: Vec::new(),
-            };
+            let e = self.entry(purpose, pin, spec, &u.report, None);
             self.push(e);
         }
     }
@@ -210,19 +223,7 @@ impl<L: Link> Runner<'_, '_, L> {
         let spec = ExperimentSpec::from(&exp);
         self.calls.insert(rec.call, (purpose, pin, spec.clone()));
         self.push_unanswered(&rec.unanswered);
-        let e = ExperimentRecord {
-            seq: self.next_seq(),
-            purpose,
-            pin,
-            experiment: spec,
-            board_run: rec.report.run,
-            start_ps: rec.report.start_ps + self.clock_offset_ps,
-            end_ps: rec.report.end_ps + self.clock_offset_ps,
-            received: true,
-            conversions: rec.report.conversions,
-            cells: rec.cells.iter().map(Into::into).collect(),
-            samples: rec.samples.clone(),
-        };
+        let e = self.entry(purpose, pin, spec, &rec.report, Some(&rec));
         self.push(e);
         Ok(rec)
     }

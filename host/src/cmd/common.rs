@@ -103,6 +103,24 @@ pub fn write_output(path: &Path, bytes: &[u8], what: &str) -> Result<(), Failure
     ohmsight::output::write_file(path, bytes).map_err(|e| Failure::bad_input(format!("cannot write the {what}: {e}")))
 }
 
+/// Prints a stored record analysed again (text, or its v2 JSON document) and writes the page
+/// when asked: what `refit` and `history show` both do.
+pub fn print_analysed(
+    record: &ohmsight::RunRecord,
+    opts: &ohmsight::advice::AdviceOptions,
+    json: bool,
+    html: Option<&Path>,
+) -> Result<(), Failure> {
+    use ohmsight::render::{html::survey_html, survey_json, text::survey_text};
+    let r = ohmsight::analyse::analyse(record);
+    let advice = ohmsight::advice::advise(&r, opts);
+    print(&if json { survey_json(&r, &advice, opts) } else { survey_text(&r, &advice) })?;
+    match html {
+        Some(path) => write_output(path, survey_html(&r).as_bytes(), "HTML report"),
+        None => Ok(()),
+    }
+}
+
 /// Loads the scenario of `--scenario` (or the demo) with the `--seed` override.
 pub fn load_scenario(path: Option<&PathBuf>, seed: Option<u64>) -> Result<ohmsight_virtual::Scenario, Failure> {
     let mut sc = match path {

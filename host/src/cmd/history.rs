@@ -1,10 +1,9 @@
 //! `ohmsight history`: list stored runs; `history show RUN_ID`: one as `survey` printed it.
 
-use super::common::{print, write_output, DbArgs};
+use super::common::{print, print_analysed, DbArgs};
 use super::Failure;
-use ohmsight::advice::{advise, AdviceOptions};
-use ohmsight::analyse::analyse;
-use ohmsight::render::{html::survey_html, survey_json, text::survey_text, text::table};
+use ohmsight::advice::AdviceOptions;
+use ohmsight::render::text::table;
 use ohmsight::store::{RunFilter, RunListing};
 use std::path::PathBuf;
 
@@ -117,14 +116,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
     let mut store = args.db.open()?;
     if let Some(Show::Show { id, json, html }) = args.show {
         let record = store.load_run(&id)?;
-        let r = analyse(&record);
-        let opts = AdviceOptions::default();
-        let advice = advise(&r, &opts);
-        print(&if json { survey_json(&r, &advice, &opts) } else { survey_text(&r, &advice) })?;
-        if let Some(path) = html {
-            write_output(&path, survey_html(&r).as_bytes(), "HTML report")?;
-        }
-        return Ok(());
+        return print_analysed(&record, &AdviceOptions::default(), json, html.as_deref());
     }
     let filter = RunFilter { unit: args.unit, board: args.board, since: args.since, kind: None };
     let runs = store.list_runs(&filter)?;

@@ -1,11 +1,9 @@
 //! `ohmsight refit`: analyse a stored run again from its evidence.
 
-use super::common::{print, write_output, DbArgs};
+use super::common::{print_analysed, DbArgs};
 use super::Failure;
-use ohmsight::advice::{advise, AdviceOptions};
-use ohmsight::analyse::analyse;
+use ohmsight::advice::AdviceOptions;
 use ohmsight::record::{profile_file, read_document, Document, RunRecord};
-use ohmsight::render::{html::survey_html, survey_json, text::survey_text};
 use std::path::{Path, PathBuf};
 
 pub const EXAMPLES: &str = "Examples:
@@ -76,12 +74,5 @@ pub fn run(args: Args) -> Result<(), Failure> {
         record.profile = profile_file::apply(&record.profile, &file.display().to_string(), &text)
             .map_err(|e| Failure::bad_input(e.to_string()))?;
     }
-    let r = analyse(&record);
-    let opts = AdviceOptions { resolve_volts: args.resolve };
-    let advice = advise(&r, &opts);
-    print(&if args.json { survey_json(&r, &advice, &opts) } else { survey_text(&r, &advice) })?;
-    if let Some(html) = &args.html {
-        write_output(html, survey_html(&r).as_bytes(), "HTML report")?;
-    }
-    Ok(())
+    print_analysed(&record, &AdviceOptions { resolve_volts: args.resolve }, args.json, args.html.as_deref())
 }
