@@ -114,6 +114,26 @@ pub struct PinAdvice {
     pub hum_period_s: Option<f64>,
     /// Why there is no numeric advice (floating, unknown).
     pub note: Option<String>,
+    /// How the board's scan plan reads this pin, where that differs from the pin's own sample
+    /// time (the plan judges every level and the neighbours of the scan): the plan's settings
+    /// are advice too.
+    #[serde(default)]
+    pub scan: Option<ScanUse>,
+}
+
+/// How the scan plan reads a pin, and why that differs from the pin's own advice.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct ScanUse {
+    /// Sample-time index in the plan.
+    pub sample_index: u8,
+    /// Sample time, ns.
+    pub sample_ns: f64,
+    /// Dummy conversions before the one that counts.
+    pub dummies: u8,
+    /// Worst error in the plan, LSB.
+    pub worst_error_lsb: f64,
+    /// Why the plan needs more than the pin's own sample time.
+    pub reason: String,
 }
 
 /// One pin in the scan plan.
@@ -237,17 +257,48 @@ pub fn advise(r: &SurveyReport, opts: &AdviceOptions) -> BoardAdvice {
     let plan = scan_plan(model, &r.pins);
     let mut pins: Vec<PinAdvice> = r.pins.iter().map(|p| pin_advice(model, p, opts)).collect();
     for (a, p) in pins.iter_mut().zip(&r.pins) {
-        // A rail with nothing fitted has no settling answer of its own: the plan's sample time
-        // (for a stiff source, through the switch) is the one to use.
-        if p.verdict == Verdict::AtRail && p.fit.is_none() {
-            a.sample = plan
-                .entries
-                .iter()
-                .find(|e| e.channel == p.channel)
-                .map(|e| SampleChoice { index: e.sample_index, sample_ns: e.sample_ns });
-        }
+        a.scan = scan_use(model, a.sample.map(|s| s.index), p, &plan);
     }
     BoardAdvice { lsb_volts: model.lsb_volts(), pins, plan }
+}
+
+/// The plan's reading of a pin where it asks for more than the pin's own sample time, with the
+/// reason, so that the advice and the plan tell one story.
+fn scan_use(model: &BoardModel, own: Option<u8>, p: &PinReport, plan: &ScanPlan) -> Option<ScanUse> {
+    let e = plan.entries.iter().find(|e| e.channel == p.channel)?;
+    if own == Some(e.sample_index) && e.dummies == 0 {
+        return None;
+    }
+    let at = |i: u8| crate::units::ns(f64::from(model.sample_ps[usize::from(i)]) / 1000.0);
+    let reason = match own {
+        None if e.dummies > 0 => format!(
+            "no sample time settles a full-scale step from the previous channel, but {} dummy conversion{} of the \
+             pin itself first bring{} the hold capacitor to its level",
+            e.dummies,
+            if e.dummies == 1 { "" } else { "s" },
+            if e.dummies == 1 { "s" } else { "" }
+        ),
+        None => "no sample time settles a full-scale step with the node at rest; the plan, computed for the \
+                 whole scan's periodic steady state, keeps it within ½ LSB at every level"
+            .to_string(),
+        Some(i) if e.sample_index > i || e.dummies > 0 => format!(
+            "its own {} settles a step with the node at rest; in the scan the node has only one scan period to \
+             recover from the conversions before",
+            at(i)
+        ),
+        Some(i) => format!(
+            "its own {} covers a full-scale step; in this scan the neighbours' levels leave it within ½ LSB at {}",
+            at(i),
+            at(e.sample_index)
+        ),
+    };
+    Some(ScanUse {
+        sample_index: e.sample_index,
+        sample_ns: e.sample_ns,
+        dummies: e.dummies,
+        worst_error_lsb: e.worst_error_lsb,
+        reason,
+    })
 }
 
 fn pin_advice(model: &BoardModel, p: &PinReport, opts: &AdviceOptions) -> PinAdvice {
@@ -259,6 +310,7 @@ fn pin_advice(model: &BoardModel, p: &PinReport, opts: &AdviceOptions) -> PinAdv
         averaging: None,
         hum_period_s: None,
         note: None,
+        scan: None,
     };
     match p.verdict {
         Verdict::Floating => {
@@ -656,6 +708,17 @@ fn settle_order(model: &BoardModel, pins: Vec<ScanPin>, mut left_out: Vec<LeftOu
     }
     if c.idle_s == 0.0 {
         idle_for = None;
+    } else {
+        // Name the pin that needs the idle time now, in this plan: the one whose error grows
+        // most without it (the pin the idle was first added for may have been left out since).
+        let without = Candidate { idle_s: 0.0, ..c.clone() }.errors(model);
+        idle_for = without
+            .worst
+            .iter()
+            .enumerate()
+            .max_by(|x, y| x.1.total_cmp(y.1))
+            .map(|(i, _)| c.pins[i].channel)
+            .or(idle_for);
     }
     let err = c.errors(model);
     let entries: Vec<ScanEntry> = c

@@ -11,7 +11,7 @@
 
 use crate::fit::{fit_pin, Fit, FitInput};
 use crate::judge::{judge_pin, PinReport, SurveyReport};
-use crate::model::{BoardModel, CellObs, Event};
+use crate::model::{hum_cell_means_lsb, BoardModel, CellObs, Event, EventClock};
 use crate::noise::{analyse as analyse_noise, NoiseSummary, MAINS_HZ};
 use crate::plan::{screen_rail, RAW_LEAD_IN};
 use crate::record::{ExperimentRecord, ExperimentSpec, Profile, Purpose, RunRecord};
@@ -117,6 +117,7 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
             // The pin's timeline is the board's own report of each run, runs the host took no
             // records of included: their conversions acted on the node too.
             let mut end_ps: Option<u64> = None;
+            let mut noise_record: Option<&ExperimentRecord> = None;
             for e in record.experiments.iter().filter(|e| e.pin == Some(pin.channel)) {
                 let Some(exp) = e.experiment.to_experiment() else { continue };
                 let cells: Vec<CellObs> = e.cells.iter().map(|c| CellObs::from_aggregate(&c.aggregate())).collect();
@@ -124,12 +125,16 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 if !ev.purposes.contains(&e.purpose) {
                     ev.purposes.push(e.purpose);
                 }
+                let clock = EventClock::of(model, &exp, e.start_ps, e.end_ps);
                 let event = Event {
                     experiment: exp,
                     target: pin.channel,
                     gap_before_ps: end_ps.map(|end| e.start_ps.saturating_sub(end)).unwrap_or(0),
                     cells: e.fitted().then(|| cells.clone()),
                     coherent_var_lsb2: Vec::new(),
+                    clock,
+                    hum: None,
+                    hum_at_steps: None,
                 };
                 end_ps = Some(e.end_ps.max(e.start_ps));
                 if e.purpose == Purpose::Memory {
@@ -148,6 +153,7 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                     (Purpose::Noise, ExperimentSpec::NoiseRecord { period_ns, .. }) => {
                         ev.noise_codes = e.samples[RAW_LEAD_IN.min(e.samples.len())..].to_vec();
                         ev.noise = analyse_noise(&ev.noise_codes, f64::from(*period_ns) * 1e-9);
+                        noise_record = Some(e);
                     }
                     (Purpose::Memory, ExperimentSpec::OrderSwap { a, sample, .. }) => {
                         ev.swap = Some(Swap { previous: *a, sample: *sample, cells });
@@ -155,7 +161,30 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                     _ => {}
                 }
             }
-            if let Some(n) = &ev.noise {
+            let waveform = HUM_WAVEFORM.load(std::sync::atomic::Ordering::Relaxed);
+            if let Some(hum) = noise_record.filter(|_| waveform).and_then(|e| node_hum(model, e, &ev)) {
+                // Hum measured on the board's clock is a known waveform: the model carries it,
+                // and only what is uncertain about it weighs on the cells.
+                let amplitude_lsb = hum.amplitude_volts() / model.lsb_volts();
+                let se_lsb = hum.se_volts / model.lsb_volts();
+                let var = se_lsb * se_lsb + (HUM_MODEL_SHARE * amplitude_lsb).powi(2);
+                let hum = std::sync::Arc::new(hum);
+                for event in &mut ev.events {
+                    event.set_hum(model, hum.clone());
+                    event.coherent_var_lsb2 = vec![var; event.cells.as_ref().map_or(0, Vec::len)];
+                }
+                for event in &mut ev.memory_events {
+                    event.set_hum(model, hum.clone());
+                }
+                // The order swap compares cells read at different moments of the hum: take the
+                // hum out of them before they are compared.
+                let swap_hum = ev.memory_events.last().and_then(|e| hum_cell_means_lsb(model, e));
+                if let (Some(swap), Some(h)) = (ev.swap.as_mut(), swap_hum) {
+                    for (c, h) in swap.cells.iter_mut().zip(h) {
+                        c.mean -= h;
+                    }
+                }
+            } else if let Some(n) = &ev.noise {
                 // Hum is nearly constant over a cell that spans a fraction of its period: it adds
                 // to each cell mean as an offset. Averaged down for cells spanning many cycles.
                 let hum_var = |span_s: f64| -> f64 {
@@ -172,6 +201,33 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
             ev
         })
         .collect()
+}
+
+/// Whether the fit models measured hum as a waveform (the default) or only as variance that
+/// widens every cell (the method before it; kept so that benchmarks can compare the two).
+pub static HUM_WAVEFORM: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(true);
+
+/// What the hum model leaves unexplained, as a share of the hum's amplitude: the sample
+/// window treats the hum as constant, and the node's hum under back-to-back conversions is
+/// taken to be its hum under the noise record's.
+pub const HUM_MODEL_SHARE: f64 = 0.005;
+
+/// The mains hum of a pin's node from its noise record, on the board's clock, where the record
+/// shows hum and every experiment of the pin has a clock.
+fn node_hum(model: &BoardModel, record: &ExperimentRecord, pin: &PinEvidence) -> Option<crate::model::Hum> {
+    let noise = pin.noise.as_ref()?;
+    let mains: Vec<f64> =
+        MAINS_HZ.iter().zip(crate::noise::hum_present(noise)).filter(|(_, on)| *on).map(|(f, _)| *f).collect();
+    if mains.is_empty() || pin.events.iter().any(|e| e.clock.is_none()) {
+        return None;
+    }
+    let exp = record.experiment.to_experiment()?;
+    let clock = EventClock::of(model, &exp, record.start_ps, record.end_ps)?;
+    let times: Vec<f64> = crate::model::raw_sample_times(model, &exp, &clock).into_iter().skip(RAW_LEAD_IN).collect();
+    let codes: Vec<f64> = pin.noise_codes.iter().map(|&c| f64::from(c)).collect();
+    let mid = times.get(times.len() / 2).copied()?;
+    let span = pin.events.iter().filter_map(|e| e.clock).map(|c| (mid - c.start_s).abs()).fold(0.0, f64::max);
+    crate::noise::fit_hum(&codes, &times, &mains, model.lsb_volts(), span)
 }
 
 /// Fits every pin that was fully measured and is not at a rail (in parallel: fits are

@@ -2,12 +2,14 @@
 //! intervals from the profile likelihood (one-sided bounds where the data only bound a
 //! parameter).
 //!
-//! Parameters `θ = (ln Rs, ln Cn, Vs, ln(Ch/Ch₀), ln(Rm/Rm₀), ln δ)`. `Ch` and `Rm` are the board's
-//! hold capacitance and switch resistance, which the profile knows only to a tolerance; `δ` is
-//! the firmware's overhead between conversions (µs), which lengthens every idle gap and which
-//! no profile states. They enter with Gaussian priors (σ = tolerance/2 for `Ch` and `Rm`,
-//! [`OVERHEAD_PRIOR_US`] for `δ`), so their uncertainty widens the intervals of `Rs` and `Cn`
-//! as it should, instead of being silently assumed away.
+//! Parameters `θ = (ln Rs, ln Cn, Vs, ln(Ch/Ch₀), ln(Rm/Rm₀), ln δ, I)`. `Ch` and `Rm` are the
+//! board's hold capacitance and switch resistance, which the profile knows only to a tolerance;
+//! `δ` is the firmware's overhead between conversions (µs), which lengthens every idle gap and
+//! which no profile states; `I` is the pin's leakage current (pA), which the profile bounds.
+//! They enter with Gaussian priors (σ = tolerance/2 for `Ch` and `Rm`, [`OVERHEAD_PRIOR_US`]
+//! for `δ`, half the leakage bound for `I`), so their uncertainty widens the intervals of `Rs`
+//! and `Cn` as it should, instead of being silently assumed away: behind a large node a leak
+//! moves the node as slowly as a gigohm source does, and only the leak's bound tells them apart.
 
 use crate::model::{predict, predict_with_spread, BoardModel, CellObs, Event, PinParams};
 use levenberg_marquardt::{LeastSquaresProblem, LevenbergMarquardt};
@@ -23,7 +25,8 @@ pub const VS: usize = 2;
 const LN_CH: usize = 3;
 const LN_RM: usize = 4;
 const OVERHEAD_US: usize = 5;
-const N_THETA: usize = 6;
+const LEAK_PA: usize = 6;
+const N_THETA: usize = 7;
 
 /// Prior standard deviation of the firmware overhead per conversion, µs (centred on zero).
 pub const OVERHEAD_PRIOR_US: f64 = 1.0;
@@ -36,15 +39,30 @@ const OVERHEAD_START_US: f64 = 0.1;
 
 /// Smallest and largest source resistance the fit considers, Ω.
 pub const RS_RANGE: (f64, f64) = (1.0, 1e13);
-/// Smallest and largest node capacitance the fit considers, F.
-/// The upper end keeps the fit within what the survey's timescales can tell apart: a larger
-/// capacitor makes any source look stiff for the few milliseconds a survey watches a pin.
-pub const CN_RANGE: (f64, f64) = (0.2e-12, 2e-6);
+/// Smallest and largest node capacitance the fit considers, F. The upper end is far beyond
+/// what a survey's milliseconds resolve (behind microfarads any source looks stiff), so that a
+/// node larger than the survey can see leaves the fit free to say "at least", and the source
+/// resistance it would hide open, instead of squeezing both into a range that excludes them.
+pub const CN_RANGE: (f64, f64) = (0.2e-12, 1e-3);
 
-/// How closely the model can match any reading, LSB: the converter's differential and integral
-/// non-linearity and the charge the conversion leaves behind are not modelled, and a fit that
-/// trusted cell means beyond this would report intervals narrower than the truth allows.
+/// How closely the model can match any reading, LSB of a 12-bit converter: the converter's
+/// differential and integral non-linearity, kT/C noise frozen on the hold capacitor and the
+/// charge the conversion leaves behind are not modelled, and a fit that trusted cell means
+/// beyond this would report intervals narrower than the truth allows. These are voltages, not
+/// codes: a finer converter sees them as more LSB ([`model_floor_lsb`]).
 pub const MODEL_FLOOR_LSB: f64 = 0.1;
+
+/// [`MODEL_FLOOR_LSB`] in a board's own LSB: the same share of full scale, never below 0.1 LSB.
+pub fn model_floor_lsb(b: &BoardModel) -> f64 {
+    (MODEL_FLOOR_LSB * b.full_scale() / 4096.0).max(MODEL_FLOOR_LSB)
+}
+
+/// The node capacitance a stiff pin's source-resistance bound assumes at most, F. A reading
+/// that does not move under a survey's conversions says "a small source resistance, or a node
+/// capacitor too large for these conversions to move": no experiment of finite length tells
+/// the two apart, so the bound is stated with this assumption beside it (common practice for
+/// ADC input filters, which stay well below it; no source).
+pub const STIFF_NODE_FARADS: f64 = 2e-6;
 
 /// Widest ratio high/low of a 95% interval still reported as an estimate.
 pub const BOUND_RATIO: f64 = 3.0;
@@ -82,6 +100,9 @@ pub struct Fit {
     pub node_farads: Interval,
     /// Source voltage, V (estimate and 95% interval).
     pub source_volts: Interval,
+    /// Where `source_ohms`'s upper end holds only for a node below this capacitance, F: the
+    /// readings did not show the node's size (see [`STIFF_NODE_FARADS`]).
+    pub assumes_node_below: Option<f64>,
     /// Standard deviation of ln Rs from the covariance (for benchmarks).
     pub sigma_ln_rs: f64,
     /// Model evaluations spent.
@@ -131,9 +152,12 @@ impl<'a> Problem<'a> {
                 cells.iter().enumerate().map(move |(i, c)| (*c, coherent.get(i).copied().unwrap_or(0.0)))
             })
             .collect();
-        let obs = cells.iter().map(|(c, k)| (c.mean, cell_se(c.variance.max(floor), c.count, *k))).collect();
+        let model_floor = model_floor_lsb(b);
+        let obs =
+            cells.iter().map(|(c, k)| (c.mean, cell_se(c.variance.max(floor), c.count, *k, model_floor))).collect();
         let [sd_ch, sd_rm, sd_overhead] = nuisance_prior_sd(b);
-        let prior_sigma = [0.0, 0.0, 0.0, sd_ch, sd_rm, sd_overhead];
+        let sd_leak = leak_prior_sd_pa(b);
+        let prior_sigma = [0.0, 0.0, 0.0, sd_ch, sd_rm, sd_overhead, sd_leak];
         let bounds = [
             (RS_RANGE.0.ln(), RS_RANGE.1.ln()),
             (CN_RANGE.0.ln(), CN_RANGE.1.ln()),
@@ -142,6 +166,7 @@ impl<'a> Problem<'a> {
             (-10.0 * prior_sigma[LN_CH], 10.0 * prior_sigma[LN_CH]),
             (-10.0 * prior_sigma[LN_RM], 10.0 * prior_sigma[LN_RM]),
             ((1e-4 * OVERHEAD_PRIOR_US).ln(), (10.0 * OVERHEAD_PRIOR_US).ln()),
+            (-10.0 * sd_leak, 10.0 * sd_leak),
         ];
         let free = (0..N_THETA).filter(|&i| i < LN_CH || prior_sigma[i] > 0.0).collect();
         Self {
@@ -163,8 +188,9 @@ impl<'a> Problem<'a> {
         let floor = self.input.board.variance_floor_lsb2();
         let (mut mean, mut spread) = (Vec::new(), Vec::new());
         predict_with_spread(self.input.board, &self.params_of(t), self.input.events, &mut mean, Some(&mut spread));
+        let model_floor = model_floor_lsb(self.input.board);
         for ((o, (c, k)), s) in self.obs.iter_mut().zip(&self.cells).zip(&spread) {
-            o.1 = cell_se((c.variance - s).max(floor), c.count, *k);
+            o.1 = cell_se((c.variance - s).max(floor), c.count, *k, model_floor);
         }
     }
 
@@ -177,6 +203,7 @@ impl<'a> Problem<'a> {
             hold_farads: b.hold_farads * t[LN_CH].exp(),
             switch_ohms: b.switch_ohms * t[LN_RM].exp(),
             overhead_s: t[OVERHEAD_US].exp() * 1e-6,
+            leak_amps: t[LEAK_PA] * 1e-12,
         }
     }
 
@@ -194,7 +221,7 @@ impl<'a> Problem<'a> {
         *self.evaluations.borrow_mut() += 1;
         out.clear();
         out.extend(self.obs.iter().zip(pred.iter()).map(|(&(m, se), &p)| (p - m) / se));
-        for i in [LN_CH, LN_RM, OVERHEAD_US] {
+        for i in [LN_CH, LN_RM, OVERHEAD_US, LEAK_PA] {
             if self.prior_sigma[i] > 0.0 {
                 // δ ≥ 0 is fitted as ln δ; its prior is on δ itself.
                 let x = if i == OVERHEAD_US { t[i].exp() } else { t[i] };
@@ -219,6 +246,7 @@ impl<'a> Problem<'a> {
         match i {
             VS => 2e-5 * vref,
             OVERHEAD_US => 2e-2,
+            LEAK_PA => 1e-2,
             _ => 2e-3,
         }
     }
@@ -285,6 +313,12 @@ pub fn nuisance_prior_sd(b: &BoardModel) -> [f64; 3] {
     [ln_tol(b.hold_tolerance) / 2.0, ln_tol(b.switch_tolerance) / 2.0, OVERHEAD_PRIOR_US]
 }
 
+/// Standard deviation of the fit's Gaussian prior on the pin's leakage current, pA: half the
+/// board's leakage bound (the bound as 2σ, as for the other tolerances); 0 when none is stated.
+pub fn leak_prior_sd_pa(b: &BoardModel) -> f64 {
+    b.leakage_amps * 1e12 / 2.0
+}
+
 /// Fits one pin. Returns `None` when there is nothing to fit.
 pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
     let mut p = Problem::new(input);
@@ -309,8 +343,8 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
         let mut rs: f64 = RS_RANGE.0 * 10.0;
         while rs <= RS_RANGE.1 {
             let mut cn: f64 = 1e-12;
-            while cn <= 2e-6 {
-                let t = [rs.ln(), cn.ln(), vs, 0.0, 0.0, OVERHEAD_START_US.ln()];
+            while cn <= CN_RANGE.1 {
+                let t = [rs.ln(), cn.ln(), vs, 0.0, 0.0, OVERHEAD_START_US.ln(), 0.0];
                 starts.push((p.objective(&t), t));
                 cn *= 10f64.sqrt();
             }
@@ -342,6 +376,7 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
             t0[LN_CH] = 0.0;
             t0[LN_RM] = 0.0;
             t0[OVERHEAD_US] = f64::ln(overhead_us);
+            t0[LEAK_PA] = 0.0;
             p = consider(p, t0, &mut best);
         }
     }
@@ -363,7 +398,7 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
     let var = |i: usize| free.iter().position(|&f| f == i).map(|c| cov[(c, c)]).unwrap_or(0.0).max(0.0);
     let sigma_ln_rs = var(LN_RS).sqrt();
     let (s_rs, s_cn) = (var(LN_RS).sqrt(), var(LN_CN).sqrt());
-    let (p, mut source_ohms) = interval_log(p, theta, LN_RS, s_rs, birge2);
+    let (p, mut source_ohms) = interval_log(p, theta, LN_RS, s_rs, birge2, &starts);
     // An interval spanning more than a factor of BOUND_RATIO is a bound, not a measurement:
     // below the switch resistance the data say "at most", far above it "at least".
     if let (Some(e), Some(l), Some(h)) = (source_ohms.estimate, source_ohms.low, source_ohms.high) {
@@ -375,19 +410,44 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
             };
         }
     }
-    let (p, node_farads) = interval_log(p, theta, LN_CN, s_cn, birge2);
+    let (mut p, node_farads) = interval_log(p, theta, LN_CN, s_cn, birge2, &starts);
+    // A stiff node with nothing to show its size: a large source behind a capacitor larger than
+    // the conversions could move explains the readings as well. Bound the source for a node
+    // below STIFF_NODE_FARADS, and say so.
+    let mut assumes_node_below = None;
+    let mut reported = theta;
+    if source_ohms.high.is_none() && node_farads.low.is_none() {
+        let saved = p.bounds[LN_CN];
+        p.bounds[LN_CN].1 = STIFF_NODE_FARADS.ln().min(saved.1);
+        let mut restricted = None;
+        let t0 = p.clamp(theta);
+        p = consider(p, t0, &mut restricted);
+        if let Some((_, t)) = restricted {
+            let (q, iv) = interval_log(p, t, LN_RS, s_rs, birge2, &starts);
+            p = q;
+            if let Some(h) = iv.high {
+                source_ohms = Interval { estimate: None, low: source_ohms.low, high: Some(h) };
+                assumes_node_below = Some(STIFF_NODE_FARADS);
+                // What the advice and the scan plan work from: the best fit within the
+                // assumption the bound states, not a gigohm behind a millifarad.
+                reported = t;
+            }
+        }
+        p.bounds[LN_CN] = saved;
+    }
     let s_vs = var(VS).sqrt();
     let source_volts =
         Interval { estimate: Some(theta[VS]), low: Some(theta[VS] - Z95 * s_vs), high: Some(theta[VS] + Z95 * s_vs) };
     let evaluations = *p.evaluations.borrow();
     Some(Fit {
-        params: p.params_of(&theta),
-        theta,
+        params: p.params_of(&reported),
+        theta: reported,
         chi2,
         dof,
         source_ohms,
         node_farads,
         source_volts,
+        assumes_node_below,
         sigma_ln_rs,
         evaluations,
     })
@@ -396,8 +456,8 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
 /// Standard error of a cell mean: noise over the count, slow interference that the cell's
 /// readings share, plus [`MODEL_FLOOR_LSB`] for what the
 /// model leaves out (converter non-linearity, residual charge, timing jitter).
-fn cell_se(noise_var: f64, count: u32, coherent_var: f64) -> f64 {
-    (noise_var / f64::from(count.max(1)) + coherent_var + MODEL_FLOOR_LSB * MODEL_FLOOR_LSB).sqrt()
+fn cell_se(noise_var: f64, count: u32, coherent_var: f64, model_floor: f64) -> f64 {
+    (noise_var / f64::from(count.max(1)) + coherent_var + model_floor * model_floor).sqrt()
 }
 
 /// Runs LM from `t0` and keeps the result in `best` if it is the lowest objective so far.
@@ -457,19 +517,71 @@ fn pseudo_inverse(m: &DMatrix<f64>) -> DMatrix<f64> {
 /// The covariance's `sigma` only seeds the search; with two uncertain board constants the
 /// posterior is curved enough that the Wald interval alone is too narrow (in a 30-seed study of
 /// a 2.2 MΩ / 25 pF pin the Wald interval held the truth 26 times, this one 29).
+///
+/// The set of values the data allow need not be one piece: behind a large node a small source
+/// and a large one can both explain the readings, with the values between excluded. So an edge
+/// is only kept if no grid point of the fit's start-up search beyond it leads to a profile
+/// within the threshold; otherwise that side is open.
 fn interval_log<'a>(
     p: Problem<'a>,
     theta: [f64; N_THETA],
     i: usize,
     sigma: f64,
     birge2: f64,
+    grid: &[(f64, [f64; N_THETA])],
 ) -> (Problem<'a>, Interval) {
     let (lo_b, hi_b) = p.bounds[i];
     let threshold = p.objective(&theta) + CHI2_95_1DOF * birge2;
     let (p, low) = profile_edge(p, theta, i, lo_b, threshold, sigma);
     let (p, high) = profile_edge(p, theta, i, hi_b, threshold, sigma);
+    let (p, low) = beyond_edge(p, i, low, -1.0, threshold, grid);
+    let (p, high) = beyond_edge(p, i, high, 1.0, threshold, grid);
     let estimate = (low.is_some() && high.is_some()).then(|| theta[i].exp());
     (p, Interval { estimate, low: low.map(f64::exp), high: high.map(f64::exp) })
+}
+
+/// An edge of a profile interval, or `None` when another valley lies beyond it: the best grid
+/// points past the edge (by at least a third of an e-fold, inside the current bounds) are
+/// profiled, and one within the threshold opens that side.
+fn beyond_edge<'a>(
+    mut p: Problem<'a>,
+    i: usize,
+    edge: Option<f64>,
+    dir: f64,
+    threshold: f64,
+    grid: &[(f64, [f64; N_THETA])],
+) -> (Problem<'a>, Option<f64>) {
+    let Some(e) = edge else { return (p, None) };
+    let inside = |t: &[f64; N_THETA]| {
+        [LN_RS, LN_CN].iter().all(|&k| t[k] >= p.bounds[k].0 - 1e-9 && t[k] <= p.bounds[k].1 + 1e-9)
+    };
+    // The best grid point past the edge, then probes a decade and three decades past it (the
+    // profile's own scan of the other parameter finds the valley there, if there is one).
+    let mut past: Vec<[f64; N_THETA]> =
+        grid.iter().filter(|(_, t)| dir * (t[i] - e) > 0.33 && inside(t)).take(1).map(|(_, t)| *t).collect();
+    let (lo, hi) = p.bounds[i];
+    for k in [1.0, 3.0] {
+        let x = e + dir * k * std::f64::consts::LN_10;
+        if x > lo && x < hi {
+            if let Some(&(_, mut t)) = grid.first() {
+                t[i] = x;
+                past.push(t);
+            }
+        }
+    }
+    let saved_free = p.free.clone();
+    p.free.retain(|&f| f != i);
+    let mut open = false;
+    for t in past {
+        let (q, obj, _) = profile_at(p, i, t[i], t);
+        p = q;
+        if obj <= threshold {
+            open = true;
+            break;
+        }
+    }
+    p.free = saved_free;
+    (p, if open { None } else { Some(e) })
 }
 
 /// The profile objective at θᵢ = x: the other free parameters re-optimized, from `warm` and
@@ -562,6 +674,7 @@ pub fn objective_at(input: &FitInput<'_>, p: &PinParams) -> f64 {
         (p.hold_farads / b.hold_farads).ln(),
         (p.switch_ohms / b.switch_ohms).ln(),
         (p.overhead_s * 1e6).max(1e-4 * OVERHEAD_PRIOR_US).ln(),
+        p.leak_amps * 1e12,
     ];
     prob.objective(&t)
 }

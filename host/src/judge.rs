@@ -26,10 +26,15 @@ pub fn floating_ohms(model: &BoardModel) -> f64 {
         1e12
     }
 }
+/// χ²/dof above which the report says the model explains a pin's readings poorly (its
+/// intervals are already widened by √(χ²/dof)).
+pub const POOR_FIT_CHI2_PER_DOF: f64 = 4.0;
+/// χ²/dof above which nothing is claimed from the fit: the readings hold something the model
+/// does not describe, and widening alone would not make its numbers true.
+pub const FAILED_FIT_CHI2_PER_DOF: f64 = 25.0;
+
 /// Excess noise: white variance above this multiple of the ADC floor.
 const EXCESS_NOISE_RATIO: f64 = 2.0;
-/// Smallest hum amplitude worth flagging, LSB.
-const HUM_MIN_LSB: f64 = 0.5;
 
 /// What a pin is.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -119,6 +124,9 @@ pub struct PinReport {
     pub source_ohms: Interval,
     /// Node capacitance, F.
     pub node_farads: Interval,
+    /// `source_ohms` holds for a node below this capacitance, F: a stiff node whose size the
+    /// readings do not show (a larger capacitor could hide a larger source).
+    pub source_assumes_node_below: Option<f64>,
     /// Source voltage, V.
     pub source_volts: Option<f64>,
     /// Noise, LSB rms.
@@ -238,6 +246,7 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         reason: None,
         source_ohms: none,
         node_farads: none,
+        source_assumes_node_below: None,
         source_volts: None,
         noise_lsb_rms: None,
         min_sample_ns: None,
@@ -254,8 +263,10 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         r.verdict = Verdict::AtRail;
         r.source_volts = Some(rail);
         r.noise_lsb_rms = Some(pin.screen.iter().map(|c| c.variance).fold(0.0, f64::max).sqrt());
-        r.min_sample_index = Some(0);
-        r.min_sample_ns = Some(f64::from(model.sample_ps[0]) / 1000.0);
+        // Nothing is fitted: settle a stiff source at the rail (1 Ω, 1 pF) through the switch,
+        // the model the scan plan uses for it too.
+        r.min_sample_index = min_sample_index(model, &PinParams::nominal(model, 1.0, 1e-12, rail));
+        r.min_sample_ns = r.min_sample_index.map(|i| f64::from(model.sample_ps[usize::from(i)]) / 1000.0);
         r.reason = Some("every reading at the rail: source resistance not measurable".into());
         return r;
     }
@@ -264,13 +275,8 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         if n.white_rms_lsb.powi(2) > EXCESS_NOISE_RATIO * model.variance_floor_lsb2() {
             r.flags.push(Flag::ExcessNoise);
         }
-        let strongest = n.hum_lsb.iter().copied().fold(0.0, f64::max);
-        for (i, flag) in [Flag::Hum50, Flag::Hum60].into_iter().enumerate() {
-            // One mains frequency leaks a little into the other on a drifting node; flag the
-            // weaker only when it is a real line of its own.
-            let a = n.hum_lsb[i];
-            // A line stands above the control frequencies; broadband drift does not.
-            if a > HUM_MIN_LSB && a > 6.0 * n.hum_se_lsb && a >= 0.25 * strongest && a > 4.0 * n.control_lsb {
+        for (present, flag) in crate::noise::hum_present(&n).into_iter().zip([Flag::Hum50, Flag::Hum60]) {
+            if present {
                 r.flags.push(flag);
             }
         }
@@ -280,6 +286,14 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         r.reason = Some("too few readings to fit".into());
         return r;
     };
+    let chi2_dof = if fit.dof > 0 { fit.chi2 / fit.dof as f64 } else { 1.0 };
+    if chi2_dof > FAILED_FIT_CHI2_PER_DOF {
+        r.reason = Some(format!(
+            "the model does not explain this pin's readings (χ²/dof = {chi2_dof:.1}): no claim on its source or node"
+        ));
+        r.fit = Some(fit);
+        return r;
+    }
     let lsb = model.lsb_volts();
     let vs = fit.theta[crate::fit::VS];
     r.source_ohms = fit.source_ohms;
@@ -296,18 +310,42 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         ));
     } else if rs.high.is_none() {
         r.verdict = Verdict::Unknown;
-        r.reason = Some(format!(
-            "source resistance above {} cannot be told from an open pin with these experiments",
-            crate::units::ohms(rs.low.unwrap_or(0.0))
-        ));
+        r.reason = Some(match (rs.low, fit.node_farads.low) {
+            (Some(l), Some(c)) => format!(
+                "a node of at least {} hides the source: above {} it cannot be told from an open pin with these experiments",
+                crate::units::farads(c),
+                crate::units::ohms(l)
+            ),
+            (Some(l), None) => {
+                format!("source resistance above {} cannot be told from an open pin with these experiments", crate::units::ohms(l))
+            }
+            (None, _) => "the readings bound neither the source resistance nor the node: no claim".into(),
+        });
     } else if vs < RAIL_MARGIN * model.vref_volts || vs > (1.0 - RAIL_MARGIN) * model.vref_volts - lsb {
         r.verdict = Verdict::AtRail;
         r.source_volts = Some(vs.clamp(0.0, model.vref_volts));
+        // Readings clipped at the end of the scale show how fast the node settles, not how much
+        // charge it holds: no claim on the node.
+        r.node_farads = Interval { estimate: None, low: None, high: None };
     } else {
         r.verdict = Verdict::Driven;
         r.source_volts = Some(vs);
     }
+    if chi2_dof > POOR_FIT_CHI2_PER_DOF && r.reason.is_none() {
+        r.reason = Some(format!(
+            "the model explains the readings poorly (χ²/dof = {chi2_dof:.1}): its intervals are widened {:.1}×",
+            chi2_dof.sqrt()
+        ));
+    }
     if matches!(r.verdict, Verdict::Driven | Verdict::AtRail) {
+        if let (Some(c), Some(h)) = (fit.assumes_node_below, rs.high) {
+            r.source_assumes_node_below = Some(c);
+            r.reason = Some(format!(
+                "a stiff node: the source is below {} unless the node holds more than {}, which the survey's conversions could not move",
+                crate::units::ohms(h),
+                crate::units::farads(c)
+            ));
+        }
         // At the best fit: the parameters that explain the readings, bounds or not.
         r.min_sample_index = min_sample_index(model, &fit.params);
         r.min_sample_ns = r.min_sample_index.map(|i| f64::from(model.sample_ps[usize::from(i)]) / 1000.0);

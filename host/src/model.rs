@@ -106,6 +106,8 @@ pub struct PinParams {
     pub switch_ohms: f64,
     /// Firmware overhead added to the idle time after every conversion, s.
     pub overhead_s: f64,
+    /// Leakage current out of the node, A (the pin's own, within the board's leakage bound).
+    pub leak_amps: f64,
 }
 
 impl PinParams {
@@ -119,10 +121,11 @@ impl PinParams {
             hold_farads: model.hold_farads,
             switch_ohms: model.switch_ohms,
             overhead_s: 0.0,
+            leak_amps: 0.0,
         }
     }
 
-    /// The network these parameters describe (no leakage: the host does not model it).
+    /// The network these parameters describe.
     pub fn network(&self) -> Network {
         Network {
             source_volts: self.source_volts,
@@ -130,7 +133,7 @@ impl PinParams {
             node_farads: self.node_farads,
             switch_ohms: self.switch_ohms,
             hold_farads: self.hold_farads,
-            leak_amps: 0.0,
+            leak_amps: self.leak_amps,
         }
     }
 }
@@ -176,6 +179,139 @@ pub struct Event {
     /// per cell, or empty for none): a cell that spans a small part of a hum cycle sees the
     /// hum as an offset, not as spread among its own readings.
     pub coherent_var_lsb2: Vec<f64>,
+    /// When the experiment ran on the board's clock, for the hum model; `None` when the record
+    /// has no clock (a v1 document) or the pin has no hum.
+    pub clock: Option<EventClock>,
+    /// Mains hum at the node during the experiment, as the pin's noise record measured it.
+    pub hum: Option<std::sync::Arc<Hum>>,
+    /// The hum at each step's sample, V (index: step), computed once from `hum` and `clock`:
+    /// the fit evaluates the model thousands of times.
+    pub hum_at_steps: Option<std::sync::Arc<[f64]>>,
+}
+
+impl Event {
+    /// Sets the hum the node carries during this event (needs its clock).
+    pub fn set_hum(&mut self, board: &BoardModel, hum: std::sync::Arc<Hum>) {
+        let Some(clock) = self.clock else { return };
+        let Ok(steps) = Steps::new(&self.experiment, board.timing()) else { return };
+        let mut t_ps = u64::from(steps.settle_ns()) * 1000;
+        let mut at = Vec::with_capacity(steps.len() as usize);
+        for (k, step) in steps.iter().enumerate() {
+            let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
+            at.push(if step.channel == self.target { hum.volts_at(clock.at(t_ps, sample_ps, k)) } else { 0.0 });
+            t_ps += sample_ps + u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000;
+        }
+        self.hum_at_steps = Some(at.into());
+        self.hum = Some(hum);
+    }
+}
+
+/// An experiment's place on the board's clock.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct EventClock {
+    /// Start of the experiment (its settle time included), s.
+    pub start_s: f64,
+    /// Time each conversion took beyond its nominal sample, conversion and wait time, s: the
+    /// firmware's own overhead, from the measured duration (spread over the conversions, not
+    /// over the settle time before them, where no firmware runs).
+    pub extra_per_step_s: f64,
+}
+
+impl EventClock {
+    /// The clock of an experiment the board reports from `start_ps` to `end_ps`.
+    pub fn of(board: &BoardModel, exp: &Experiment, start_ps: u64, end_ps: u64) -> Option<EventClock> {
+        let steps = Steps::new(exp, board.timing()).ok()?;
+        let nominal = steps.nominal_ps() as f64;
+        let measured = end_ps.checked_sub(start_ps)? as f64;
+        let n = steps.len().max(1) as f64;
+        if nominal <= 0.0 || measured <= 0.0 {
+            return None;
+        }
+        let extra = (measured - nominal) / n * 1e-12;
+        // A clock that disagrees with the nominal timing by more than a few per cent, or
+        // that ran faster than the nominal steps, is no clock to place hum on.
+        (measured >= 0.999 * nominal && measured <= 1.5 * nominal)
+            .then_some(EventClock { start_s: start_ps as f64 * 1e-12, extra_per_step_s: extra.max(0.0) })
+    }
+
+    /// Board time of the middle of step `index`'s sample window, which starts `nominal_ps`
+    /// into the experiment on the nominal clock, s.
+    pub fn at(&self, nominal_ps: u64, sample_ps: u64, index: usize) -> f64 {
+        self.start_s + (nominal_ps as f64 + sample_ps as f64 / 2.0) * 1e-12 + index as f64 * self.extra_per_step_s
+    }
+}
+
+/// A periodic disturbance at a node: `Σ sᵢ·sin(2π fᵢ t) + cᵢ·cos(2π fᵢ t)` volts, `t` on the
+/// board's clock. Mains hum reaches a node through its source (filtered by the node's own RC)
+/// or by capacitive pickup; either way the node's response to it is what a settled noise record
+/// reads, and the switched network's response to everything else is the same with it or
+/// without it (superposition), so the model carries the node's state relative to this waveform.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct Hum {
+    /// (frequency Hz, sine amplitude V, cosine amplitude V).
+    pub lines: Vec<(f64, f64, f64)>,
+    /// Standard error of the waveform at any instant, V (from the noise record's fit,
+    /// including what its frequency's uncertainty does over the span of the survey).
+    pub se_volts: f64,
+}
+
+impl Hum {
+    /// The waveform at board time `t`, V.
+    pub fn volts_at(&self, t_s: f64) -> f64 {
+        self.lines
+            .iter()
+            .map(|&(f, s, c)| {
+                let w = 2.0 * std::f64::consts::PI * f * t_s;
+                s * w.sin() + c * w.cos()
+            })
+            .sum()
+    }
+
+    /// Peak amplitude of the largest line, V.
+    pub fn amplitude_volts(&self) -> f64 {
+        self.lines.iter().map(|&(_, s, c)| s.hypot(c)).fold(0.0, f64::max)
+    }
+}
+
+/// The mean of an event's hum over each of its cells, LSB: what the hum adds to each cell mean
+/// of a settled pin (the cells of other channels get none). `None` without hum or clock.
+pub fn hum_cell_means_lsb(board: &BoardModel, ev: &Event) -> Option<Vec<f64>> {
+    let (hum, clock) = (ev.hum.as_deref()?, ev.clock?);
+    let steps = Steps::new(&ev.experiment, board.timing()).ok()?;
+    let mut t_ps = u64::from(steps.settle_ns()) * 1000;
+    let mut sums = vec![(0.0, 0u32); usize::from(steps.cells())];
+    for (k, step) in steps.iter().enumerate() {
+        let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
+        if let StepRecord::Cell(c) = step.record {
+            let t = clock.at(t_ps, sample_ps, k);
+            let v = if step.channel == ev.target { hum.volts_at(t) / board.lsb_volts() } else { 0.0 };
+            let cell = &mut sums[usize::from(c)];
+            cell.0 += v;
+            cell.1 += 1;
+        }
+        t_ps += sample_ps + u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000;
+    }
+    Some(sums.iter().map(|&(s, n)| if n > 0 { s / f64::from(n) } else { 0.0 }).collect())
+}
+
+/// Board times of the recorded conversions of an experiment (middle of each sample window), s:
+/// raw samples in record order.
+pub fn raw_sample_times(board: &BoardModel, exp: &Experiment, clock: &EventClock) -> Vec<f64> {
+    let Ok(steps) = Steps::new(exp, board.timing()) else { return Vec::new() };
+    let mut t_ps = u64::from(steps.settle_ns()) * 1000;
+    let mut out = Vec::new();
+    for (k, step) in steps.iter().enumerate() {
+        let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
+        if let StepRecord::Raw(j) = step.record {
+            let j = usize::from(j);
+            if out.len() <= j {
+                out.resize(j + 1, 0.0);
+            }
+            out[j] = clock.at(t_ps, sample_ps, k);
+        }
+        t_ps += sample_ps + u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000;
+    }
+    out
 }
 
 /// `E[clamp(round(x + σ·Z), 0, max)]` for a standard normal `Z`: the mean code a converter
@@ -255,17 +391,28 @@ pub fn predict_with_spread(
     let overhead_ps = (p.overhead_s * 1e12).round().max(0.0) as u64;
     let mut s = State { node_volts: p.source_volts, hold_volts: board.vref_volts / 2.0 };
     let mut sums: Vec<(f64, f64, u32)> = Vec::new();
+    // With hum, the node's state is carried relative to the hum waveform (exact for the open
+    // phases, whose map is linear); a sample, microseconds long, sees the hum as a constant.
     for ev in events {
         let Ok(steps) = Steps::new(&ev.experiment, timing) else {
             continue;
         };
+        let hum = ev.hum_at_steps.as_deref();
         s = open(ev.gap_before_ps + u64::from(steps.settle_ns()) * 1000).apply(s);
         sums.clear();
         sums.resize(usize::from(steps.cells()), (0.0, 0.0, 0));
-        for step in steps.iter() {
+        for (k, step) in steps.iter().enumerate() {
             let busy_after_sample = u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000 + overhead_ps;
+            let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
             if step.channel == ev.target {
-                s = sampling[usize::from(step.sample)].apply(s);
+                match hum.and_then(|h| h.get(k)) {
+                    Some(&v) => {
+                        s.hold_volts -= v;
+                        s = sampling[usize::from(step.sample)].apply(s);
+                        s.hold_volts += v;
+                    }
+                    None => s = sampling[usize::from(step.sample)].apply(s),
+                }
                 if let StepRecord::Cell(c) = step.record {
                     let x = volts_to_lsb(s.hold_volts, board.vref_volts, board.bits);
                     let cell = &mut sums[usize::from(c)];
@@ -279,7 +426,7 @@ pub fn predict_with_spread(
                 let level = board.precharge_volts.get(&step.channel).copied().unwrap_or(board.vref_volts / 2.0);
                 let keep = precharge_keep[usize::from(step.sample)];
                 s.hold_volts = level + (s.hold_volts - level) * keep;
-                s = open(u64::from(board.sample_ps[usize::from(step.sample)]) + busy_after_sample).apply(s);
+                s = open(sample_ps + busy_after_sample).apply(s);
             }
         }
         if ev.cells.is_some() {
@@ -302,6 +449,89 @@ pub fn predict_with_spread(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_stiff_pin_reads_its_source_plus_the_hum_and_the_clock_places_it() {
+        // Superposition: a 100 Ω source with 20 mV of 50 Hz hum, read by a noise record at the
+        // longest sample time, reads Vs plus the hum at each sample's time on the board's clock
+        // (firmware overhead included: 1 µs per conversion, from the measured duration).
+        let fe = ohmsight_protocol::FrontEnd {
+            bits: 12,
+            vref_microvolts: 3_300_000,
+            sample_ps: vec![1_000_000, 20_000_000].as_slice().try_into().unwrap(),
+            conversion_ps: 1_000_000,
+            hold_attofarads: 4_000_000,
+            hold_tolerance_ppm: 0,
+            switch_milliohms: 6_000_000,
+            switch_tolerance_ppm: 0,
+            // Noise of 1 LSB: the expected code is then the input itself (the quantizer's
+            // staircase averages out), so the comparison below is of the analog model alone.
+            noise_millilsb: 1000,
+            leakage_picoamps: 0,
+            pull_milliohms: 0,
+            precharges: heapless::Vec::new(),
+        };
+        let b = BoardModel::from_front_end(&fe);
+        let exp = Experiment::NoiseRecord { target: 2, sample: 1, period_ns: 250_000, count: 64, settle_ns: 1_000 };
+        let nominal = Steps::new(&exp, b.timing()).unwrap().nominal_ps();
+        let clock = EventClock::of(&b, &exp, 5_000_000_000_000, 5_000_000_000_000 + nominal + 64 * 1_000_000).unwrap();
+        assert!((clock.extra_per_step_s - 1e-6).abs() < 1e-12);
+        let hum = std::sync::Arc::new(Hum { lines: vec![(50.0, 0.020, 0.004)], se_volts: 0.0 });
+        let mut ev = Event {
+            experiment: exp.clone(),
+            target: 2,
+            gap_before_ps: 0,
+            cells: Some(Vec::new()),
+            coherent_var_lsb2: Vec::new(),
+            clock: Some(clock),
+            hum: None,
+            hum_at_steps: None,
+        };
+        ev.set_hum(&b, hum.clone());
+        let times = raw_sample_times(&b, &exp, &clock);
+        assert_eq!(times.len(), 64);
+        // The k-th reading: 1 µs settle, k periods of 250 µs, k µs of overhead, half the sample.
+        assert!((times[10] - (5.0 + 1e-6 + 10.0 * 250e-6 + 10e-6 + 10e-6)).abs() < 1e-12);
+        let steps = ev.hum_at_steps.as_deref().unwrap();
+        for (k, &t) in times.iter().enumerate() {
+            assert!((steps[k] - hum.volts_at(t)).abs() < 1e-15);
+        }
+        // A stiff source read with long samples, precharged low and high in turn over some
+        // 50 ms: each cell mean moves by the mean of the hum over that cell's own conversions.
+        let sweep = Experiment::PrechargeSweep {
+            target: 2,
+            precharges: heapless::Vec::from_slice(&[0, 1]).unwrap(),
+            precharge_sample: 1,
+            samples: heapless::Vec::from_slice(&[1, 0]).unwrap(),
+            repeats: 50,
+            rest_ns: 500_000,
+            settle_ns: 1_000,
+        };
+        let mut b = b;
+        b.precharge_volts.insert(0, 0.0);
+        b.precharge_volts.insert(1, 3.3);
+        let nominal = Steps::new(&sweep, b.timing()).unwrap().nominal_ps();
+        let clock = EventClock::of(&b, &sweep, 7_000_000_000_000, 7_000_000_000_000 + nominal).unwrap();
+        let quiet = Event { experiment: sweep, clock: Some(clock), hum: None, hum_at_steps: None, ..ev };
+        let mut humming = quiet.clone();
+        humming.set_hum(&b, hum);
+        let p = PinParams::nominal(&b, 100.0, 10e-12, 1.5);
+        let (mut with, mut without) = (Vec::new(), Vec::new());
+        predict(&b, &p, std::slice::from_ref(&humming), &mut with);
+        predict(&b, &p, std::slice::from_ref(&quiet), &mut without);
+        let means = hum_cell_means_lsb(&b, &humming).unwrap();
+        assert_eq!(with.len(), 4);
+        let spread = means.iter().fold(0.0f64, |m, x| m.max(x.abs()));
+        assert!(spread > 1.0, "the cells see different parts of the hum: {means:?}");
+        for k in 0..4 {
+            assert!(
+                (with[k] - without[k] - means[k]).abs() < 0.02,
+                "cell {k}: {} vs {}",
+                with[k] - without[k],
+                means[k]
+            );
+        }
+    }
 
     #[test]
     fn expected_code_matches_brute_force() {

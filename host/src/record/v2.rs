@@ -175,6 +175,10 @@ pub struct Pin {
     pub source_ohms: IntervalDoc,
     /// Node capacitance, F.
     pub node_farads: IntervalDoc,
+    /// `source_ohms` holds for a node below this capacitance, F (a stiff node whose size the
+    /// readings do not show); null when it needs no such assumption.
+    #[serde(default)]
+    pub source_ohms_assumes_node_below_farads: Option<f64>,
     /// Source voltage, V.
     pub source_volts: Option<f64>,
     /// Noise, LSB rms.
@@ -269,6 +273,7 @@ fn pin_doc(p: &PinReport, advice: &BoardAdvice, record: &RunRecord) -> Pin {
         reason: p.reason.clone(),
         source_ohms: (&p.source_ohms).into(),
         node_farads: (&p.node_farads).into(),
+        source_ohms_assumes_node_below_farads: p.source_assumes_node_below,
         source_volts: p.source_volts,
         noise_lsb_rms: p.noise_lsb_rms,
         min_sample_ns: p.min_sample_ns,

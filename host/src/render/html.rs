@@ -1064,7 +1064,7 @@ pub fn survey_html(r: &SurveyReport) -> String {
             p.channel,
             escape(&p.label),
             verdict_chip(p.verdict),
-            iv(&p.source_ohms, units::ohms),
+            escape(&crate::render::text::source_text(p)),
             iv(&p.node_farads, units::farads),
             p.source_volts.map_or("—".into(), |v| format!("{v:.4} V")),
             p.noise_lsb_rms.map_or("—".into(), |n| format!("{n:.2} LSB")),
@@ -1125,7 +1125,7 @@ fn pin_section(r: &SurveyReport, p: &PinReport, row: &MemoryRow, cols: &[(u8, Op
          <dt>source V</dt><dd>{}</dd><dt>noise</dt><dd>{}</dd>\
          <dt>min sample</dt><dd>{}</dd><dt>memory</dt><dd>{}</dd>\
          <dt>flags</dt><dd>{}</dd><dt>fit</dt><dd>{} · {} conversions</dd></dl>",
-        iv(&p.source_ohms, units::ohms),
+        escape(&crate::render::text::source_text(p)),
         iv(&p.node_farads, units::farads),
         p.source_volts.map_or("—".into(), |v| format!("{v:.4} V")),
         p.noise_lsb_rms.map_or("—".into(), |n| format!("{n:.2} LSB rms")),
@@ -1200,6 +1200,9 @@ mod tests {
             gap_before_ps: 1_000_000_000,
             cells: Some(Vec::new()),
             coherent_var_lsb2: Vec::new(),
+            clock: None,
+            hum: None,
+            hum_at_steps: None,
         }
     }
 

@@ -19,6 +19,15 @@ pub fn interval_text(iv: &Interval, fmt: fn(f64) -> String) -> String {
     }
 }
 
+/// A pin's source resistance as the table shows it, with the node it assumes where it needs
+/// one: `< 2.52 kΩ if C < 2.00 µF`.
+pub fn source_text(p: &PinReport) -> String {
+    match p.source_assumes_node_below {
+        Some(c) => format!("{} if C < {}", interval_text(&p.source_ohms, units::ohms), units::farads(c)),
+        None => interval_text(&p.source_ohms, units::ohms),
+    }
+}
+
 /// The min-sample cell of a pin: the time, `none settles` (measured: no setting is long
 /// enough), `not measured` (the survey was cut short before it), or `—` (no claim: the verdict
 /// is unknown).
@@ -111,7 +120,7 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
                 p.channel.to_string(),
                 p.label.clone(),
                 p.verdict.as_str().to_string(),
-                interval_text(&p.source_ohms, units::ohms),
+                source_text(p),
                 interval_text(&p.node_farads, units::farads),
                 p.source_volts.map_or("—".into(), |v| format!("{v:.4} V")),
                 p.noise_lsb_rms.map_or("—".into(), |n| format!("{n:.2} LSB")),
@@ -188,6 +197,16 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
             out += "no sample-time advice";
         }
         out += "\n";
+        if let Some(u) = &a.scan {
+            out += &format!(
+                "    in the scan plan: sample time {} with {} dummy conversion{} (worst error {:.2} LSB): {}\n",
+                ns(u.sample_ns),
+                u.dummies,
+                if u.dummies == 1 { "" } else { "s" },
+                u.worst_error_lsb,
+                u.reason
+            );
+        }
         if let Some(m) = a.memory {
             out +=
                 &format!("    memory: the previous channel moves this reading by up to {:.2} LSB; ", m.worst_shift_lsb);

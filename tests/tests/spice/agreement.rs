@@ -100,6 +100,9 @@ fn worst_over_grid(board: &BoardProfile) -> (f64, String, usize) {
             gap_before_ps: 0,
             cells: None,
             coherent_var_lsb2: Vec::new(),
+            clock: None,
+            hum: None,
+            hum_at_steps: None,
         })
         .collect();
     let (phases, _, end_s) = history_timeline(&model, &events, 0);
