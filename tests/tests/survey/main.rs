@@ -7,5 +7,6 @@
 mod accuracy;
 mod demo;
 mod faults;
+mod honesty;
 mod link;
 mod verdicts;

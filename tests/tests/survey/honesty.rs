@@ -1,0 +1,156 @@
+//! Never a confident wrong number: the cases where the survey used to print an interval, a
+//! bound or a verdict that the truth contradicts, and the field case of mains hum.
+//!
+//! The scenarios are our own (an invented sensor board). Each check compares the report with
+//! the truth the scenario wired; "wrong" means an interval or bound that misses the truth by
+//! more than 15% beyond its end, or a wrong verdict (the accuracy benchmark's count).
+
+use ohmsight::advice::{advise, AdviceOptions};
+use ohmsight::fit::Interval;
+use ohmsight::{PinReport, SurveyReport, Verdict};
+use ohmsight_tests::{default_board, driven, floating, run, scenario, show};
+use ohmsight_virtual::{BoardProfile, PinSetup};
+use std::sync::OnceLock;
+
+/// An interval or bound that misses `truth` by more than 15% beyond one of its ends.
+fn misses(iv: &Interval, truth: f64) -> bool {
+    iv.low.is_some_and(|l| truth < l / 1.15) || iv.high.is_some_and(|h| truth > h * 1.15)
+}
+
+fn hum(pin: PinSetup, volts: f64, hz: f64) -> PinSetup {
+    PinSetup { hum_volts: volts, hum_hz: hz, ..pin }
+}
+
+/// One sensor board: a slow RC filter larger than a survey can move, mains hum on three
+/// sources, and two unconnected inputs behind 100 nF filter capacitors.
+fn board() -> &'static SurveyReport {
+    static R: OnceLock<SurveyReport> = OnceLock::new();
+    R.get_or_init(|| {
+        let pins = vec![
+            driven(0, 1.2, 220e3, 4.7e-6),                    // thermistor divider, big filter
+            hum(driven(1, 1.0, 1e3, 10e-12), 0.030, 60.0),    // current-loop shunt, 60 Hz pickup
+            hum(driven(2, 1.65, 4.7e3, 10e-12), 0.030, 50.0), // divider, 50 Hz pickup
+            hum(driven(3, 2.2, 100e3, 20e-12), 0.030, 50.0),  // high-impedance divider
+            floating(4, 100e-9),                              // unplugged sensor, filter left
+            floating(5, 100e-9),
+            hum(driven(6, 0.9, 47e3, 10e-12), 0.050, 50.0), // 50 mV of hum
+        ];
+        run(&scenario("honest sensor board", 1307, default_board(), pins))
+    })
+}
+
+fn pin(r: &SurveyReport, ch: u8) -> &PinReport {
+    r.pins.iter().find(|p| p.channel == ch).expect("pin surveyed")
+}
+
+fn about(p: &PinReport) -> String {
+    format!(
+        "ch{} {}: Rs {}{} Cn {} reason {:?}",
+        p.channel,
+        p.verdict.as_str(),
+        show(&p.source_ohms),
+        p.source_assumes_node_below.map_or(String::new(), |c| format!(" if C < {c:e}")),
+        ohmsight::render::text::interval_text(&p.node_farads, ohmsight::units::farads),
+        p.reason
+    )
+}
+
+#[test]
+fn a_node_larger_than_the_survey_can_move_is_a_bound_with_its_reason() {
+    let p = pin(board(), 0);
+    // 220 kΩ behind 4.7 µF: a time constant of a second, far beyond the survey's milliseconds.
+    assert_ne!(p.verdict, Verdict::Floating, "{}", about(p));
+    let conditional_void = p.source_assumes_node_below.is_some_and(|c| 4.7e-6 > c);
+    assert!(conditional_void || !misses(&p.source_ohms, 220e3), "{}", about(p));
+    assert!(!misses(&p.node_farads, 4.7e-6), "{}", about(p));
+    assert!(p.source_ohms.estimate.is_none(), "no estimate the data cannot support: {}", about(p));
+    if p.verdict == Verdict::Unknown {
+        assert!(p.reason.as_deref().is_some_and(|r| r.contains("hides the source")), "{}", about(p));
+    }
+}
+
+#[test]
+fn open_pins_behind_filter_capacitors_are_never_driven() {
+    for ch in [4, 5] {
+        let p = pin(board(), ch);
+        assert!(matches!(p.verdict, Verdict::Floating | Verdict::Unknown), "{}", about(p));
+        assert!(p.source_ohms.high.is_none(), "no upper bound on an open pin: {}", about(p));
+        assert!(!misses(&p.node_farads, 100e-9), "{}", about(p));
+    }
+}
+
+#[test]
+fn hum_of_30_mv_is_measured_through_not_given_up_on() {
+    let r = board();
+    // 1 kΩ: below what the default board resolves; a bound of at most 3 kΩ that holds it.
+    let p = pin(r, 1);
+    assert_eq!(p.verdict, Verdict::Driven, "{}", about(p));
+    assert!(p.source_ohms.high.is_some_and(|h| (1e3..=3e3).contains(&h)), "{}", about(p));
+    assert!(p.flags.contains(&ohmsight::Flag::Hum60), "{}", about(p));
+    // 4.7 kΩ and 100 kΩ: within 10%, with the truth inside the interval.
+    for (ch, truth) in [(2, 4.7e3), (3, 100e3)] {
+        let p = pin(r, ch);
+        assert_eq!(p.verdict, Verdict::Driven, "{}", about(p));
+        let e = p.source_ohms.estimate.unwrap_or(f64::NAN);
+        assert!((e / truth - 1.0).abs() <= 0.10, "{}", about(p));
+        assert!(ohmsight_tests::covers(&p.source_ohms, truth), "{}", about(p));
+        assert!(p.flags.contains(&ohmsight::Flag::Hum50), "{}", about(p));
+        // The hum is taken out of the order swap too: no memory conjured from it.
+        assert!(!p.flags.contains(&ohmsight::Flag::Memory), "{}", about(p));
+    }
+}
+
+#[test]
+fn hum_of_50_mv_leaves_an_interval_that_holds_the_truth() {
+    let p = pin(board(), 6);
+    assert_eq!(p.verdict, Verdict::Driven, "{}", about(p));
+    assert!(ohmsight_tests::covers(&p.source_ohms, 47e3), "{}", about(p));
+    assert!(p.source_ohms.estimate.is_some(), "{}", about(p));
+}
+
+#[test]
+fn a_stiff_buffer_on_a_16_bit_board_gets_no_node_claim_and_a_stated_assumption() {
+    // A 50 Ω op-amp output with 30 pF on a 16-bit converter: its readings show a stiff node
+    // and nothing of its size.
+    let board = BoardProfile { bits: 16, ..default_board() };
+    let r =
+        run(&scenario("16-bit buffer", 1311, board, vec![driven(0, 1.4, 50.0, 30e-12), driven(1, 2.4, 10e3, 30e-12)]));
+    let p = pin(&r, 0);
+    assert_eq!(p.verdict, Verdict::Driven, "{}", about(p));
+    assert!(!misses(&p.node_farads, 30e-12), "{}", about(p));
+    assert!(!misses(&p.source_ohms, 50.0), "{}", about(p));
+    if p.source_ohms.high.is_some() && p.node_farads.low.is_none() {
+        assert!(p.source_assumes_node_below.is_some(), "a bound on a stiff node says what it assumes: {}", about(p));
+    }
+    let q = pin(&r, 1);
+    assert!(ohmsight_tests::covers(&q.source_ohms, 10e3), "{}", about(q));
+}
+
+#[test]
+fn advice_and_scan_plan_tell_one_story() {
+    let r = board();
+    let advice = advise(r, &AdviceOptions::default());
+    let plan = &advice.plan;
+    if let Some(ch) = plan.idle_for {
+        assert!(
+            plan.entries.iter().any(|e| e.channel == ch),
+            "idle time named after ch{ch}, which the plan leaves out"
+        );
+    }
+    for e in &plan.entries {
+        let p = pin(r, e.channel);
+        let a = advice.pins.iter().find(|a| a.channel == e.channel).expect("advice per pin");
+        let own = a.sample.map(|s| s.index);
+        assert_eq!(own, p.min_sample_index, "ch{}: the advice's sample time is the table's", e.channel);
+        if own != Some(e.sample_index) || e.dummies > 0 {
+            let u = a
+                .scan
+                .as_ref()
+                .unwrap_or_else(|| panic!("ch{}: the plan differs from its advice unexplained", e.channel));
+            assert_eq!((u.sample_index, u.dummies), (e.sample_index, e.dummies));
+            assert!(!u.reason.is_empty());
+        } else {
+            assert!(a.scan.is_none(), "ch{}", e.channel);
+        }
+    }
+}
