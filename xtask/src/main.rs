@@ -115,6 +115,7 @@ fn study(args: &[String]) -> Result<()> {
     let mut realism = Realism::full();
     let mut board = BoardProfile::default();
     let mut floating = false;
+    let mut hum: Option<(f64, f64)> = None;
     let mut it = args.iter();
     while let Some(a) = it.next() {
         let mut val = || it.next().context("missing value");
@@ -124,6 +125,11 @@ fn study(args: &[String]) -> Result<()> {
             "--volts" => volts = val()?.parse()?,
             "--seeds" => seeds = val()?.parse()?,
             "--floating" => floating = true,
+            "--hum" => {
+                let v = val()?;
+                let (a, f) = v.split_once(',').context("--hum takes VOLTS,HZ")?;
+                hum = Some((a.parse()?, f.parse()?));
+            }
             "--hold-tol" => board.hold_tolerance = val()?.parse()?,
             "--switch-tol" => board.switch_tolerance = val()?.parse()?,
             "--ideal" => realism = Realism::ideal(),
@@ -152,7 +158,12 @@ fn study(args: &[String]) -> Result<()> {
     let mut zs: Vec<f64> = Vec::new();
     for seed in 0..seeds {
         let mut pins = heapless::Vec::new();
-        pins.push(pin(0, source, farads)).ok();
+        let mut p = pin(0, source, farads);
+        if let Some((v, hz)) = hum {
+            p.hum_volts = v;
+            p.hum_hz = hz;
+        }
+        pins.push(p).ok();
         let sc =
             Scenario { name: "study".try_into().unwrap_or_default(), seed: 1000 + seed, board: board.clone(), pins };
         let mut link = InProcessLink::with_realism(&sc, realism);
@@ -175,6 +186,7 @@ fn study(args: &[String]) -> Result<()> {
                 hold_farads: ch,
                 switch_ohms: rm,
                 overhead_s: if realism.overhead { 130e-9 } else { 0.0 },
+                leak_amps: 0.0,
             };
             let input = ohmsight::fit::FitInput { board: &r.model, events: &p.events };
             let at_fit = ohmsight::fit::objective_at(&input, &f.params);
