@@ -287,7 +287,11 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         return r;
     };
     let chi2_dof = if fit.dof > 0 { fit.chi2 / fit.dof as f64 } else { 1.0 };
-    if chi2_dof > FAILED_FIT_CHI2_PER_DOF {
+    // A misfit cannot conjure a DC path: a lower bound on the source resistance above the
+    // floating threshold, from intervals already widened by the misfit, still says "open"
+    // (an open node wanders with charges the model leaves out). Nothing else is claimed.
+    let open = fit.source_ohms.low.is_some_and(|l| l >= floating_ohms(model));
+    if chi2_dof > FAILED_FIT_CHI2_PER_DOF && !open {
         r.reason = Some(format!(
             "the model does not explain this pin's readings (χ²/dof = {chi2_dof:.1}): no claim on its source or node"
         ));
@@ -301,12 +305,17 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
     let rs = fit.source_ohms;
     // A path that can carry no more than a tenth of the pin's own leakage is no source: the
     // node is governed by leakage and by the charge the converter leaves on it.
-    if rs.low.is_some_and(|l| l >= floating_ohms(model)) {
+    if open {
         r.verdict = Verdict::Floating;
         r.source_ohms = Interval { estimate: None, low: rs.low, high: None };
         r.reason = Some(format!(
-            "no path below {} (a tenth of the pin's leakage): the node keeps the charge the converter leaves on it",
-            crate::units::ohms(floating_ohms(model))
+            "no path below {} (a tenth of the pin's leakage): the node keeps the charge the converter leaves on it{}",
+            crate::units::ohms(floating_ohms(model)),
+            if chi2_dof > POOR_FIT_CHI2_PER_DOF {
+                format!(" (and wanders with charges the model leaves out: χ²/dof = {chi2_dof:.1})")
+            } else {
+                String::new()
+            }
         ));
     } else if rs.high.is_none() {
         r.verdict = Verdict::Unknown;

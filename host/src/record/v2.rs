@@ -156,6 +156,9 @@ pub struct FitDoc {
     pub chi2: f64,
     /// Degrees of freedom.
     pub dof: usize,
+    /// χ²/dof, as the notes quote it (0 when there are no degrees of freedom).
+    #[serde(default)]
+    pub chi2_per_dof: f64,
     /// Model evaluations spent.
     pub evaluations: usize,
 }
@@ -285,7 +288,12 @@ fn pin_doc(p: &PinReport, advice: &BoardAdvice, record: &RunRecord) -> Pin {
             shift_se_lsb: m.shift_se_lsb,
             coefficient: m.coefficient,
         }),
-        fit: p.fit.as_ref().map(|f| FitDoc { chi2: f.chi2, dof: f.dof, evaluations: f.evaluations }),
+        fit: p.fit.as_ref().map(|f| FitDoc {
+            chi2: f.chi2,
+            dof: f.dof,
+            chi2_per_dof: if f.dof > 0 { f.chi2 / f.dof as f64 } else { 0.0 },
+            evaluations: f.evaluations,
+        }),
         conversions: p.conversions,
         advice: advice.pins.iter().find(|a| a.channel == p.channel).cloned(),
         complete: record.pins.iter().any(|q| q.channel == p.channel && q.complete),
