@@ -55,9 +55,13 @@ fn check(board: BoardProfile, seed: u64) -> (usize, usize) {
         assert!((vs - volts).abs() <= 0.01 * volts + 0.010, "{ctx}: source {vs} V vs {volts} V");
         let rs = p.source_ohms;
         if ohms <= 1e3 {
-            // Below the switch resistance the data bound the source from above.
+            // Below the switch resistance the data bound the source from above. A bound that
+            // states a node assumption (a stiff node whose size the readings do not show) may
+            // be looser: a larger source behind a microfarad-sized node (below the assumed
+            // 2 µF) can explain the same readings, and the survey says so rather than hide it.
             let upper = rs.high.or(rs.estimate).expect("an upper end");
-            assert!(upper <= 3e3, "{ctx}: a stiff source must be reported ≤ 3 kΩ");
+            let limit = if p.source_assumes_node_below.is_some() { 10e3 } else { 3e3 };
+            assert!(upper <= limit && covers(&rs, ohms), "{ctx}: a stiff source must be reported ≤ {limit} Ω");
             continue;
         }
         counted += 1;
