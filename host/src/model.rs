@@ -2,7 +2,7 @@
 //! sequence of experiments the firmware ran on it.
 
 use ohmsight_protocol::analog::{volts_to_lsb, Network, Open, Sampling, State};
-use ohmsight_protocol::{Experiment, FrontEnd, StepRecord, Steps, Timing};
+use ohmsight_protocol::{Experiment, FrontEnd, Step, StepRecord, Steps, Timing};
 use std::collections::BTreeMap;
 
 /// What the host knows of the board's converter (from its front-end description, plus the
@@ -193,14 +193,10 @@ impl Event {
     /// Sets the hum the node carries during this event (needs its clock).
     pub fn set_hum(&mut self, board: &BoardModel, hum: std::sync::Arc<Hum>) {
         let Some(clock) = self.clock else { return };
-        let Ok(steps) = Steps::new(&self.experiment, board.timing()) else { return };
-        let mut t_ps = u64::from(steps.settle_ns()) * 1000;
-        let mut at = Vec::with_capacity(steps.len() as usize);
-        for (k, step) in steps.iter().enumerate() {
-            let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
-            at.push(if step.channel == self.target { hum.volts_at(clock.at(t_ps, sample_ps, k)) } else { 0.0 });
-            t_ps += sample_ps + u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000;
-        }
+        let at: Vec<f64> = timed_steps(board, &self.experiment, &clock)
+            .into_iter()
+            .map(|(step, t)| if step.channel == self.target { hum.volts_at(t) } else { 0.0 })
+            .collect();
         self.hum_at_steps = Some(at.into());
         self.hum = Some(hum);
     }
@@ -276,40 +272,47 @@ impl Hum {
 /// The mean of an event's hum over each of its cells, LSB: what the hum adds to each cell mean
 /// of a settled pin (the cells of other channels get none). `None` without hum or clock.
 pub fn hum_cell_means_lsb(board: &BoardModel, ev: &Event) -> Option<Vec<f64>> {
-    let (hum, clock) = (ev.hum.as_deref()?, ev.clock?);
+    let hum = ev.hum_at_steps.as_deref()?;
     let steps = Steps::new(&ev.experiment, board.timing()).ok()?;
-    let mut t_ps = u64::from(steps.settle_ns()) * 1000;
     let mut sums = vec![(0.0, 0u32); usize::from(steps.cells())];
-    for (k, step) in steps.iter().enumerate() {
-        let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
+    for (step, &v) in steps.iter().zip(hum) {
         if let StepRecord::Cell(c) = step.record {
-            let t = clock.at(t_ps, sample_ps, k);
-            let v = if step.channel == ev.target { hum.volts_at(t) / board.lsb_volts() } else { 0.0 };
             let cell = &mut sums[usize::from(c)];
-            cell.0 += v;
+            cell.0 += v / board.lsb_volts();
             cell.1 += 1;
         }
-        t_ps += sample_ps + u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000;
     }
     Some(sums.iter().map(|&(s, n)| if n > 0 { s / f64::from(n) } else { 0.0 }).collect())
+}
+
+/// Every step of an experiment with the board time of the middle of its sample window, s.
+fn timed_steps(board: &BoardModel, exp: &Experiment, clock: &EventClock) -> Vec<(Step, f64)> {
+    let Ok(steps) = Steps::new(exp, board.timing()) else { return Vec::new() };
+    let mut t_ps = u64::from(steps.settle_ns()) * 1000;
+    steps
+        .iter()
+        .enumerate()
+        .map(|(k, step)| {
+            let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
+            let t = clock.at(t_ps, sample_ps, k);
+            t_ps += sample_ps + u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000;
+            (step, t)
+        })
+        .collect()
 }
 
 /// Board times of the recorded conversions of an experiment (middle of each sample window), s:
 /// raw samples in record order.
 pub fn raw_sample_times(board: &BoardModel, exp: &Experiment, clock: &EventClock) -> Vec<f64> {
-    let Ok(steps) = Steps::new(exp, board.timing()) else { return Vec::new() };
-    let mut t_ps = u64::from(steps.settle_ns()) * 1000;
     let mut out = Vec::new();
-    for (k, step) in steps.iter().enumerate() {
-        let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
+    for (step, t) in timed_steps(board, exp, clock) {
         if let StepRecord::Raw(j) = step.record {
             let j = usize::from(j);
             if out.len() <= j {
                 out.resize(j + 1, 0.0);
             }
-            out[j] = clock.at(t_ps, sample_ps, k);
+            out[j] = t;
         }
-        t_ps += sample_ps + u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000;
     }
     out
 }

@@ -82,6 +82,14 @@ enum Truth {
     Rail { volts: f64, ohms: f64 },
 }
 
+/// The true source resistance of a case, Ω (infinite for an open pin).
+fn ohms_of(o: &Outcome) -> f64 {
+    match o.case.truth {
+        Truth::Driven { ohms, .. } | Truth::Rail { ohms, .. } => ohms,
+        Truth::Floating => f64::INFINITY,
+    }
+}
+
 /// One pin of the grid.
 #[derive(Debug, Clone, Copy)]
 struct Case {
@@ -579,10 +587,6 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
     }
     let groups = groups(outcomes);
     let driven: Vec<&Outcome> = outcomes.iter().filter(|o| matches!(o.case.truth, Truth::Driven { .. })).collect();
-    let ohms_of = |o: &Outcome| match o.case.truth {
-        Truth::Driven { ohms, .. } | Truth::Rail { ohms, .. } => ohms,
-        Truth::Floating => f64::INFINITY,
-    };
     let rel_err = |o: &Outcome| o.best_ln_rs.map(|l| (l.exp() / ohms_of(o) - 1.0).abs());
 
     println!("\nSource resistance by decade (driven pins; error of the best fit, bounds included)");
@@ -930,10 +934,6 @@ fn hum_report(all: &[Outcome]) -> usize {
         "{:<14} {:>5} {:>9} {:>9} {:>9} {:>10} {:>8}",
         "hum", "pins", "1 kΩ ≤ 3k", "≤ 10% err", "med err", "coverage", "unknown"
     );
-    let ohms_of = |o: &Outcome| match o.case.truth {
-        Truth::Driven { ohms, .. } | Truth::Rail { ohms, .. } => ohms,
-        Truth::Floating => f64::INFINITY,
-    };
     let mut levels: Vec<(u64, u64)> =
         hum.iter().filter_map(|o| o.case.hum.map(|(v, hz)| (((v * 1e3).round()) as u64, hz as u64))).collect();
     levels.sort_unstable();
