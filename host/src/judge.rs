@@ -339,6 +339,12 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
     } else {
         r.verdict = Verdict::Driven;
         r.source_volts = Some(vs);
+        // A source known only to be small settles the node within the shortest sample time:
+        // the readings show the charge sharing with the hold capacitor too little to size the
+        // node, and a fit's node interval there rests on the model's small print. No claim.
+        if rs.low.is_none() {
+            r.node_farads = Interval { estimate: None, low: None, high: None };
+        }
     }
     if chi2_dof > POOR_FIT_CHI2_PER_DOF && r.reason.is_none() {
         r.reason = Some(format!(

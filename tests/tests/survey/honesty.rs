@@ -127,6 +127,28 @@ fn a_stiff_buffer_on_a_16_bit_board_gets_no_node_claim_and_a_stated_assumption()
 }
 
 #[test]
+fn a_source_known_only_to_be_small_gets_no_node_claim() {
+    // Low-impedance sources behind filter capacitors (the cases the accuracy grid caught with a
+    // node interval that missed the truth: 316 Ω behind 1 µF read "42–680 nF"). Where the
+    // source is only bounded from above, the readings do not size the node.
+    let pins = vec![
+        driven(0, 2.33, 316.0, 1e-6),    // reference buffer, 1 µF bypass
+        driven(1, 0.383, 316.0, 4.7e-6), // bridge midpoint, 4.7 µF
+        driven(2, 1.72, 100.0, 1e-9),    // op-amp output, 1 nF
+    ];
+    let r = run(&scenario("stiff sources", 1313, default_board(), pins));
+    let bounded = |p: &&PinReport| p.source_ohms.high.is_some() && p.source_ohms.low.is_none();
+    assert!(r.pins.iter().any(|p| bounded(&p)), "the case under test: a source bounded from above only");
+    for p in &r.pins {
+        assert_ne!(p.verdict, Verdict::Floating, "{}", about(p));
+        if bounded(&p) {
+            let cn = &p.node_farads;
+            assert!(cn.estimate.is_none() && cn.low.is_none() && cn.high.is_none(), "{}", about(p));
+        }
+    }
+}
+
+#[test]
 fn advice_and_scan_plan_tell_one_story() {
     let r = board();
     let advice = advise(r, &AdviceOptions::default());
