@@ -54,6 +54,15 @@ fn tick(span: f64) -> impl Fn(&f64) -> String {
     move |v: &f64| format!("{v:.digits$}")
 }
 
+/// A count or run number: whole ticks labelled, fractional ones left blank.
+fn whole(v: &f64) -> String {
+    if (v - v.round()).abs() < 1e-6 {
+        format!("{v:.0}")
+    } else {
+        String::new()
+    }
+}
+
 /// Horizontal (or, in the histogram, vertical) reference lines: (value, name, colour).
 fn references(m: &MeasurementStats) -> Vec<(f64, String, RGBColor)> {
     let mut out = Vec::new();
@@ -79,11 +88,19 @@ fn outside(m: &MeasurementStats, v: f64) -> bool {
     m.limits.is_some_and(|l| l.low.is_some_and(|lo| v < lo) || l.high.is_some_and(|hi| v > hi))
 }
 
+/// Why a measurement has no plot.
+fn no_values(m: &MeasurementStats) -> String {
+    match m.missing {
+        0 => "no run has a value for it".into(),
+        n => format!("no estimate to plot: the {n} runs of this pin have only a bound or no value for it"),
+    }
+}
+
 /// Control chart (individuals): every run's value against its run number in time order.
 fn control_chart(id: &str, pin: &PinStats, m: &MeasurementStats) -> String {
     let title = format!("{} control chart", m.measurement.key());
     if m.points.is_empty() {
-        return no_data(id, &escape(&title), "no run has a value for it");
+        return no_data(id, &escape(&title), &no_values(m));
     }
     let (lo, hi) = span(m);
     let (scale, unit) = axis_unit(m.measurement, lo.abs().max(hi.abs()));
@@ -98,7 +115,7 @@ fn control_chart(id: &str, pin: &PinStats, m: &MeasurementStats) -> String {
         mesh(&mut chart)
             .x_desc("run, in time order")
             .y_desc(unit.as_str())
-            .x_label_formatter(&|v| format!("{v:.0}"))
+            .x_label_formatter(&whole)
             .y_label_formatter(&tick((hi - lo) / scale))
             .draw()?;
         for &(v, ref name, colour) in &refs {
@@ -137,7 +154,7 @@ fn control_chart(id: &str, pin: &PinStats, m: &MeasurementStats) -> String {
 fn histogram(id: &str, pin: &PinStats, m: &MeasurementStats) -> String {
     let title = format!("{} histogram", m.measurement.key());
     if m.points.is_empty() {
-        return no_data(id, &escape(&title), "no run has a value for it");
+        return no_data(id, &escape(&title), &no_values(m));
     }
     let values: Vec<f64> = m.points.iter().map(|p| p.value).collect();
     let vmin = values.iter().copied().fold(f64::INFINITY, f64::min);
@@ -166,7 +183,7 @@ fn histogram(id: &str, pin: &PinStats, m: &MeasurementStats) -> String {
             .x_desc(unit.as_str())
             .y_desc("runs")
             .x_label_formatter(&tick((hi - lo) / scale))
-            .y_label_formatter(&|v| format!("{v:.0}"))
+            .y_label_formatter(&whole)
             .draw()?;
         chart
             .draw_series(counts.iter().enumerate().map(|(i, &k)| {
@@ -288,11 +305,13 @@ pub fn stats_html(s: &Stats, database: &str) -> String {
     };
     let _ = writeln!(
         out,
-        "<header><h1>ohmsight production history</h1><p class=\"sub\">{} complete runs in {}; {} incomplete runs left \
-         out; {limits}</p><p class=\"sub\">{}</p></header>",
+        "<header><h1>ohmsight production history</h1><p class=\"sub\">{} complete run{} in {}; {} incomplete \
+         run{} left out; {limits}</p><p class=\"sub\">{}</p></header>",
         s.runs,
+        if s.runs == 1 { "" } else { "s" },
         escape(database),
         s.incomplete_left_out,
+        if s.incomplete_left_out == 1 { "" } else { "s" },
         escape(METHOD)
     );
     if s.boards.is_empty() {
