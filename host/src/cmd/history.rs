@@ -16,6 +16,7 @@ pub const EXAMPLES: &str = "Examples:
   ohmsight history --board bench-f4 --json
   ohmsight history show 01KBX3Q2                   a run as `survey` printed it
   ohmsight history show 01KBX3Q2 --html run.html
+  ohmsight history stats --limits eol.toml         count, mean, σ, Cp/Cpk, first-pass yield
   ohmsight history --db postgres://station3@db.example/factory
 
 A run cut short (a crash, kill -9, an unplugged cable) is listed as incomplete with what it

@@ -42,7 +42,7 @@ enum Command {
     /// other converter values (a calibration, a corrected datasheet figure).
     #[command(after_long_help = refit::EXAMPLES)]
     Refit(refit::Args),
-    /// List stored runs, or show one as `survey` printed it.
+    /// List stored runs, show one as `survey` printed it, or their production statistics.
     #[command(after_long_help = history::EXAMPLES)]
     History(history::Args),
     /// What attaching an instrument (scope, probe, meter) to a pin would do to its node.
