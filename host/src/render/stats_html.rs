@@ -103,6 +103,8 @@ fn control_chart(id: &str, pin: &PinStats, m: &MeasurementStats) -> String {
         return no_data(id, &escape(&title), &no_values(m));
     }
     let (lo, hi) = span(m);
+    // Room above the data for the legend (about half the plot), so it never hides a point.
+    let hi = hi + 1.1 * (hi - lo);
     let (scale, unit) = axis_unit(m.measurement, lo.abs().max(hi.abs()));
     let n = m.points.len();
     let refs = references(m);
@@ -170,7 +172,8 @@ fn histogram(id: &str, pin: &PinStats, m: &MeasurementStats) -> String {
     let (lo, hi) = span(m);
     let (lo, hi) = (lo.min(vmin - width), hi.max(vmin + width * bins as f64 + width));
     let (scale, unit) = axis_unit(m.measurement, lo.abs().max(hi.abs()));
-    let top = f64::from(*counts.iter().max().unwrap_or(&1)) * 1.3;
+    // Bars in the lower half: the legend takes the upper one.
+    let top = f64::from(*counts.iter().max().unwrap_or(&1)) * 2.0;
     let refs: Vec<(f64, String, RGBColor)> =
         references(m).into_iter().filter(|(_, name, _)| !name.ends_with('σ')).collect();
     let svg = svg(PLOT_W, PLOT_H, |root| {
@@ -250,7 +253,7 @@ fn board_section(out: &mut String, bi: usize, b: &BoardStats, with_limits: bool)
          <th>σ</th><th>LSL</th><th>USL</th><th>Cp</th><th>Cpk</th><th>pin FPY</th><th>note</th></tr></thead>\n<tbody>\n",
     );
     for p in &b.pins {
-        for m in p.measurements.iter().filter(|m| m.count > 0 || m.limits.is_some()) {
+        for (row, m) in p.measurements.iter().filter(|m| m.count > 0 || m.limits.is_some()).enumerate() {
             let k = m.measurement;
             let why = m.cpk.why.clone().or_else(|| m.cp.why.as_ref().map(|_| "one-sided: Cpk only".to_string()));
             let _ = writeln!(
@@ -268,7 +271,11 @@ fn board_section(out: &mut String, bi: usize, b: &BoardStats, with_limits: bool)
                 cell(m.limits.and_then(|l| l.high), k),
                 m.cp.text(),
                 m.cpk.text(),
-                p.first_pass_yield.as_ref().map_or("—".into(), |y| escape(&y.text())),
+                match (&p.first_pass_yield, row) {
+                    (_, 1..) => String::new(),
+                    (Some(y), 0) => escape(&y.text()),
+                    (None, 0) => "—".into(),
+                },
                 if with_limits { escape(&why.unwrap_or_default()) } else { String::new() },
             );
         }
