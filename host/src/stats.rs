@@ -573,4 +573,34 @@ mod tests {
         assert_eq!(decide_interval(&r, [None, Some(3e8), None]), Outcome::Fail);
         assert_eq!(decide_interval(&r, [None, None, None]), Outcome::Undecided);
     }
+
+    #[test]
+    fn judged_like_a_check_pin_by_pin() {
+        use crate::limits::{ExpectedVerdict, PinRef};
+        let mut l = PinLimits::new(PinRef { channel: Some(0), label: None });
+        l.verdict = Some(ExpectedVerdict::Driven);
+        l.hum = Some(false);
+        l.noise_lsb_max = Some(1.0);
+        let s = PinSummary {
+            channel: 0,
+            verdict: "driven".into(),
+            reason: None,
+            source_ohms: [None; 3],
+            node_farads: [None; 3],
+            source_volts: None,
+            noise_lsb_rms: Some(0.6),
+            min_sample_ns: None,
+            flags: Vec::new(),
+        };
+        let outcomes = |s: Option<&PinSummary>| judge(&l, s).into_iter().map(|(_, o)| o).collect::<Vec<_>>();
+        assert_eq!(outcomes(Some(&s)), [Outcome::Pass; 3]);
+        let unknown = PinSummary { verdict: "unknown".into(), ..s.clone() };
+        assert_eq!(outcomes(Some(&unknown))[0], Outcome::Fail, "unknown fails a verdict limit");
+        let hum = PinSummary { flags: vec!["hum-50hz".into()], ..s.clone() };
+        // In report order: verdict, noise_lsb_max, hum.
+        assert_eq!(outcomes(Some(&hum))[2], Outcome::Fail, "hum seen where none is allowed");
+        let no_record = PinSummary { noise_lsb_rms: None, ..s.clone() };
+        assert_eq!(outcomes(Some(&no_record))[1..], [Outcome::Undecided; 2], "not measured: not a pass");
+        assert_eq!(outcomes(None), [Outcome::Undecided; 3], "no result for the pin");
+    }
 }
