@@ -14,13 +14,14 @@
 //! | render | [`render`] | text, JSON, HTML |
 //! | store | [`store`] | SQLite or PostgreSQL, committed experiment by experiment |
 //!
-//! Around them: [`scenario`] (simulated boards), [`simulate`] and [`ports`] (serial tools),
+//! Around them: [`limits`] (limits files of a production check), [`stats`] (production history), [`scenario`] (simulated boards), [`simulate`] and [`ports`] (serial tools),
 //! [`output`] (writing the files a user names), [`units`].
 pub mod advice;
 pub mod analyse;
 pub mod faulty;
 pub mod fit;
 pub mod judge;
+pub mod limits;
 pub mod link;
 pub mod loading;
 pub mod model;
@@ -35,6 +36,7 @@ pub mod scenario;
 pub mod session;
 #[cfg(unix)]
 pub mod simulate;
+pub mod stats;
 pub mod store;
 pub mod units;
 

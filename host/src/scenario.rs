@@ -11,9 +11,10 @@ pub const DEMO_TOML: &str = include_str!("../../boards/virtual/scenarios/demo.to
 /// Name shown for the demo file in messages.
 pub const DEMO_NAME: &str = "<built-in demo scenario>";
 
-/// A scenario file that could not be used.
+/// A file a user wrote (a scenario, a limits file) that could not be used: file, line, column
+/// and what to change.
 #[derive(Debug, Clone, PartialEq, Eq)]
-pub struct ScenarioError {
+pub struct FileError {
     /// File name.
     pub file: String,
     /// 1-based line, when known.
@@ -24,7 +25,21 @@ pub struct ScenarioError {
     pub message: String,
 }
 
-impl std::fmt::Display for ScenarioError {
+/// A scenario file that could not be used.
+pub type ScenarioError = FileError;
+
+impl FileError {
+    /// An error in `file` (whose text is `text`) at byte range `span`.
+    pub fn at(file: &str, text: &str, span: Option<Range<usize>>, message: impl Into<String>) -> FileError {
+        let (line, column) = match span.map(|s| line_column(text, s.start)) {
+            Some((l, c)) => (Some(l), Some(c)),
+            None => (None, None),
+        };
+        FileError { file: file.to_string(), line, column, message: message.into() }
+    }
+}
+
+impl std::fmt::Display for FileError {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match (self.line, self.column) {
             (Some(l), Some(c)) => write!(f, "{}:{l}:{c}: {}", self.file, self.message),
@@ -34,11 +49,11 @@ impl std::fmt::Display for ScenarioError {
     }
 }
 
-impl std::error::Error for ScenarioError {}
+impl std::error::Error for FileError {}
 
 /// A number written as an integer or a float.
 #[derive(Debug, Clone, Copy, PartialEq)]
-struct Real(f64);
+pub(crate) struct Real(pub f64);
 
 impl<'de> Deserialize<'de> for Real {
     fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
@@ -107,18 +122,17 @@ struct Ctx<'a> {
     text: &'a str,
 }
 
+/// The 1-based line and column of byte `offset` in `text`.
+pub(crate) fn line_column(text: &str, offset: usize) -> (usize, usize) {
+    let before = &text[..offset.min(text.len())];
+    let line = before.matches('\n').count() + 1;
+    let column = before.rsplit('\n').next().map(|l| l.chars().count() + 1).unwrap_or(1);
+    (line, column)
+}
+
 impl Ctx<'_> {
     fn err(&self, span: Option<Range<usize>>, message: impl Into<String>) -> ScenarioError {
-        let (line, column) = match span {
-            Some(s) => {
-                let before = &self.text[..s.start.min(self.text.len())];
-                let line = before.matches('\n').count() + 1;
-                let column = before.rsplit('\n').next().map(|l| l.chars().count() + 1).unwrap_or(1);
-                (Some(line), Some(column))
-            }
-            None => (None, None),
-        };
-        ScenarioError { file: self.file.to_string(), line, column, message: message.into() }
+        FileError::at(self.file, self.text, span, message)
     }
 
     /// A value within `[lo, hi]` or the default.

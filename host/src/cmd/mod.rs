@@ -42,7 +42,7 @@ enum Command {
     /// other converter values (a calibration, a corrected datasheet figure).
     #[command(after_long_help = refit::EXAMPLES)]
     Refit(refit::Args),
-    /// List stored runs, or show one as `survey` printed it.
+    /// List stored runs, show one as `survey` printed it, or their production statistics.
     #[command(after_long_help = history::EXAMPLES)]
     History(history::Args),
     /// What attaching an instrument (scope, probe, meter) to a pin would do to its node.
@@ -71,6 +71,13 @@ pub enum Kind {
     Failed,
     /// The user asked for something that cannot be (a file, an argument, a run id).
     BadInput,
+    /// The unit was measured and is not what was asked of it (it fails its limits, it changed
+    /// since its baseline): a result, not a fault.
+    Rejected,
+    /// In a command whose exit 1 is a verdict on the unit (`check`, `compare`): the board, the
+    /// link or the store failed, so no verdict was reached. A test executive must tell a bad
+    /// unit from a broken station.
+    NoVerdict,
 }
 
 /// A command that did not do everything it was asked: what to say and how to exit.
@@ -93,11 +100,27 @@ impl Failure {
         Failure { kind: Kind::BadInput, message: message.into() }
     }
 
-    /// The process exit code: 1 failed, 2 bad input.
+    /// The unit is not what was asked of it.
+    pub fn rejected(message: impl Into<String>) -> Self {
+        Failure { kind: Kind::Rejected, message: message.into() }
+    }
+
+    /// For commands whose exit 1 is a verdict: a failure of the board, link or store becomes
+    /// "no verdict" (exit 3); bad input stays bad input.
+    pub fn no_verdict(self) -> Self {
+        match self.kind {
+            Kind::Failed => Failure { kind: Kind::NoVerdict, ..self },
+            _ => self,
+        }
+    }
+
+    /// The process exit code: 1 failed (or, for `check` and `compare`, the unit fails or
+    /// changed), 2 bad input, 3 no verdict reached.
     pub fn exit_code(&self) -> u8 {
         match self.kind {
-            Kind::Failed => 1,
+            Kind::Failed | Kind::Rejected => 1,
             Kind::BadInput => 2,
+            Kind::NoVerdict => 3,
         }
     }
 }

@@ -26,9 +26,9 @@ use std::error::Error;
 use std::fmt::Write as _;
 
 /// Width of one plot, px (two fit side by side in a 1200 px window).
-const PLOT_W: u32 = 540;
+pub(crate) const PLOT_W: u32 = 540;
 /// Height of one plot, px.
-const PLOT_H: u32 = 300;
+pub(crate) const PLOT_H: u32 = 300;
 /// Half-height of the zoomed settling panel, LSB.
 const ZOOM_LSB: f64 = 4.0;
 /// Points of a fitted curve.
@@ -36,22 +36,22 @@ const CURVE_POINTS: usize = 48;
 
 // Our palette: ink, a teal for readings after the low precharge, a copper for those after the
 // high one, a plum for the model, a sage band for the ½ LSB tolerance, a crimson for hum.
-const INK: RGBColor = RGBColor(0x24, 0x2e, 0x38);
+pub(crate) const INK: RGBColor = RGBColor(0x24, 0x2e, 0x38);
 const GRID: RGBColor = RGBColor(0xe4, 0xe1, 0xda);
-const LOW: RGBColor = RGBColor(0x0e, 0x7c, 0x86);
+pub(crate) const LOW: RGBColor = RGBColor(0x0e, 0x7c, 0x86);
 const HIGH: RGBColor = RGBColor(0xc8, 0x64, 0x1a);
-const MODEL: RGBColor = RGBColor(0x4b, 0x2c, 0x6e);
+pub(crate) const MODEL: RGBColor = RGBColor(0x4b, 0x2c, 0x6e);
 const BAND: RGBColor = RGBColor(0x8c, 0xc9, 0x9b);
-const HUM: RGBColor = RGBColor(0xc2, 0x1f, 0x4a);
-const PAPER: RGBColor = RGBColor(0xff, 0xfe, 0xfb);
+pub(crate) const HUM: RGBColor = RGBColor(0xc2, 0x1f, 0x4a);
+pub(crate) const PAPER: RGBColor = RGBColor(0xff, 0xfe, 0xfb);
 /// Heat-map ends: reading pulled down (slate blue) and pulled up (brick red).
 const COLD: RGBColor = RGBColor(0x2f, 0x5d, 0x9b);
 const HOT: RGBColor = RGBColor(0xb3, 0x3a, 0x2a);
 
 const FONT: &str = "sans-serif";
 
-type Draw<'a> = DrawingArea<SVGBackend<'a>, Shift>;
-type PlotResult = Result<(), Box<dyn Error>>;
+pub(crate) type Draw<'a> = DrawingArea<SVGBackend<'a>, Shift>;
+pub(crate) type PlotResult = Result<(), Box<dyn Error>>;
 
 /// `text` with `& < > " '` replaced by entities: safe inside HTML text and attribute values.
 pub fn escape(text: &str) -> String {
@@ -70,7 +70,7 @@ pub fn escape(text: &str) -> String {
 }
 
 /// Renders one SVG of `w`×`h` px; a failure becomes a note in the page instead of a plot.
-fn svg(w: u32, h: u32, draw: impl FnOnce(&Draw<'_>) -> PlotResult) -> String {
+pub(crate) fn svg(w: u32, h: u32, draw: impl FnOnce(&Draw<'_>) -> PlotResult) -> String {
     let mut buf = String::new();
     let result = {
         let root = SVGBackend::with_string(&mut buf, (w, h)).into_drawing_area();
@@ -82,11 +82,11 @@ fn svg(w: u32, h: u32, draw: impl FnOnce(&Draw<'_>) -> PlotResult) -> String {
     }
 }
 
-fn figure(id: &str, svg: String, caption: &str) -> String {
+pub(crate) fn figure(id: &str, svg: String, caption: &str) -> String {
     format!("<figure id=\"{id}\">{svg}<figcaption>{caption}</figcaption></figure>\n")
 }
 
-fn no_data(id: &str, title: &str, why: &str) -> String {
+pub(crate) fn no_data(id: &str, title: &str, why: &str) -> String {
     format!("<figure id=\"{id}\" class=\"empty\"><p class=\"nodata\"><b>{title}</b>: {why}</p></figure>\n")
 }
 
@@ -351,19 +351,19 @@ fn inside_runs(pts: &[(f64, f64)], lo: f64, hi: f64) -> Vec<Vec<(f64, f64)>> {
 }
 
 /// Text of `px` pixels (plotters' SVG backend writes a size 1.24 times smaller than it is given).
-fn label_style(px: u32) -> TextStyle<'static> {
+pub(crate) fn label_style(px: u32) -> TextStyle<'static> {
     (FONT, f64::from(px) * 1.24).into_font().color(&INK)
 }
 
 /// A chart in our layout: margins and room for the axis labels.
-fn builder<'a, 'b>(area: &'a Draw<'b>) -> ChartBuilder<'a, 'b, SVGBackend<'b>> {
+pub(crate) fn builder<'a, 'b>(area: &'a Draw<'b>) -> ChartBuilder<'a, 'b, SVGBackend<'b>> {
     let mut b = ChartBuilder::on(area);
     b.margin(8).margin_right(16);
     b
 }
 
 /// The mesh in our style: a light grid, small labels; the caller adds descriptions and draws.
-fn mesh<'a, 'b, XT, YT, X, Y>(
+pub(crate) fn mesh<'a, 'b, XT, YT, X, Y>(
     chart: &'b mut ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
 ) -> MeshStyle<'a, 'b, X, Y, SVGBackend<'a>>
 where
@@ -379,7 +379,7 @@ where
 }
 
 /// The legend box in our style.
-fn legend<'a, X: Ranged, Y: Ranged>(
+pub(crate) fn legend<'a, X: Ranged, Y: Ranged>(
     chart: &mut ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
     position: SeriesLabelPosition,
 ) -> PlotResult {
@@ -984,7 +984,7 @@ fn iv(iv: &Interval, f: fn(f64) -> String) -> String {
     escape(&interval_text(iv, f))
 }
 
-const STYLE: &str = "
+pub(crate) const STYLE: &str = "
 :root { --ink:#242e38; --muted:#5d6873; --paper:#fffefb; --rule:#e4e1da; --accent:#4b2c6e; }
 * { box-sizing: border-box; }
 body { margin: 0; background: #f3f1ec; color: var(--ink); font: 14px/1.45 system-ui, sans-serif; }

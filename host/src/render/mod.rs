@@ -2,6 +2,8 @@
 //! ([`crate::record::v2`]) and as one self-contained HTML page.
 
 pub mod html;
+pub mod stats_html;
+pub mod stats_text;
 pub mod text;
 
 use crate::advice::{AdviceOptions, BoardAdvice};

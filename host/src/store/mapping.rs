@@ -512,7 +512,8 @@ fn load_experiments<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<Vec<Experime
     Ok(experiments)
 }
 
-fn load_record<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<RunRecord, StoreError> {
+/// The run row and the board's channel list: all of a record but its pins and experiments.
+fn load_head<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<(RunMeta, BoardRecord, Profile), StoreError> {
     let key = [Arg::text(id)];
     let sql = format!("SELECT {} FROM runs WHERE id = $1", RUN_COLUMNS.join(", "));
     let rows = db.query(&sql, &key)?;
@@ -522,6 +523,12 @@ fn load_record<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<RunRecord, StoreE
         let mut c = Cols::new(id, "channels", &row);
         board.channels.push(ChannelRecord { channel: c.int()?, label: c.text()?, role: c.text()? });
     }
+    Ok((run, board, profile))
+}
+
+fn load_record<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<RunRecord, StoreError> {
+    let key = [Arg::text(id)];
+    let (run, board, profile) = load_head(db, id)?;
     let mut pins = Vec::new();
     for row in db.query("SELECT channel, label, complete FROM pins WHERE run_id = $1 ORDER BY ordinal", &key)? {
         let mut c = Cols::new(id, "pins", &row);
@@ -740,6 +747,13 @@ impl<D: Db> Store for SqlStore<D> {
                     })
                 })
                 .collect()
+        })
+    }
+
+    fn load_board(&mut self, id: &str) -> Result<BoardRecord, StoreError> {
+        read(&mut self.db, &format!("reading the board of run {id}"), |db| {
+            let full = resolve(db, id)?;
+            Ok(load_head(db, &full)?.1)
         })
     }
 

@@ -220,6 +220,11 @@ pub trait Store: Send {
 
     /// Runs matching the filter, oldest first, with per-run counts.
     fn list_runs(&mut self, filter: &RunFilter) -> Result<Vec<RunListing>, StoreError>;
+
+    /// The board as the run recorded it (name, unit, converter, channel list), without the
+    /// run's experiments: cheap enough to call for every run of a production history. `id` as
+    /// for [`Store::load_run`].
+    fn load_board(&mut self, id: &str) -> Result<crate::record::BoardRecord, StoreError>;
 }
 
 impl fmt::Debug for dyn Store {
