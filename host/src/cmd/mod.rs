@@ -2,6 +2,7 @@
 //! becomes an exit code.
 
 mod common;
+mod compare;
 mod history;
 mod loading;
 mod ports;
@@ -45,6 +46,14 @@ enum Command {
     /// List stored runs, or show one as `survey` printed it.
     #[command(after_long_help = history::EXAMPLES)]
     History(history::Args),
+    /// What changed on a unit since its baseline, per pin, and what it likely means.
+    ///
+    /// Surveys the unit now (same link options as survey) or takes --run, and compares it with
+    /// its baseline (--baseline, or its first complete survey in the database): a sensor now
+    /// floating, series resistance grown, a filter capacitor gone, new hum, a drifted source.
+    /// Exit 0 no significant change, 1 changes found, 2 bad input, 3 link, board or database.
+    #[command(after_long_help = compare::EXAMPLES)]
+    Compare(compare::Args),
     /// What attaching an instrument (scope, probe, meter) to a pin would do to its node.
     ///
     /// From a stored survey (--from run.json) or a live one of that pin alone (the same link
@@ -71,6 +80,13 @@ pub enum Kind {
     Failed,
     /// The user asked for something that cannot be (a file, an argument, a run id).
     BadInput,
+    /// The unit was measured and is not what was asked of it (it fails its limits, it changed
+    /// since its baseline): a result, not a fault.
+    Rejected,
+    /// In a command whose exit 1 is a verdict on the unit (`check`, `compare`): the board, the
+    /// link or the store failed, so no verdict was reached. A test executive must tell a bad
+    /// unit from a broken station.
+    NoVerdict,
 }
 
 /// A command that did not do everything it was asked: what to say and how to exit.
@@ -93,11 +109,27 @@ impl Failure {
         Failure { kind: Kind::BadInput, message: message.into() }
     }
 
-    /// The process exit code: 1 failed, 2 bad input.
+    /// The unit is not what was asked of it.
+    pub fn rejected(message: impl Into<String>) -> Self {
+        Failure { kind: Kind::Rejected, message: message.into() }
+    }
+
+    /// For commands whose exit 1 is a verdict: a failure of the board, link or store becomes
+    /// "no verdict" (exit 3); bad input stays bad input.
+    pub fn no_verdict(self) -> Self {
+        match self.kind {
+            Kind::Failed => Failure { kind: Kind::NoVerdict, ..self },
+            _ => self,
+        }
+    }
+
+    /// The process exit code: 1 failed (or, for `check` and `compare`, the unit fails or
+    /// changed), 2 bad input, 3 no verdict reached.
     pub fn exit_code(&self) -> u8 {
         match self.kind {
-            Kind::Failed => 1,
+            Kind::Failed | Kind::Rejected => 1,
             Kind::BadInput => 2,
+            Kind::NoVerdict => 3,
         }
     }
 }
@@ -134,6 +166,7 @@ pub fn run(cli: Cli) -> Result<(), Failure> {
         Command::Survey(args) => survey::run(args),
         Command::Refit(args) => refit::run(args),
         Command::History(args) => history::run(args),
+        Command::Compare(args) => compare::run(args),
         Command::Loading(args) => loading::run(args),
         Command::Simulate(args) => simulate::run(args),
         Command::Ports(args) => ports::run(args),

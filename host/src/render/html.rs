@@ -36,22 +36,22 @@ const CURVE_POINTS: usize = 48;
 
 // Our palette: ink, a teal for readings after the low precharge, a copper for those after the
 // high one, a plum for the model, a sage band for the ½ LSB tolerance, a crimson for hum.
-const INK: RGBColor = RGBColor(0x24, 0x2e, 0x38);
-const GRID: RGBColor = RGBColor(0xe4, 0xe1, 0xda);
-const LOW: RGBColor = RGBColor(0x0e, 0x7c, 0x86);
-const HIGH: RGBColor = RGBColor(0xc8, 0x64, 0x1a);
+pub(crate) const INK: RGBColor = RGBColor(0x24, 0x2e, 0x38);
+pub(crate) const GRID: RGBColor = RGBColor(0xe4, 0xe1, 0xda);
+pub(crate) const LOW: RGBColor = RGBColor(0x0e, 0x7c, 0x86);
+pub(crate) const HIGH: RGBColor = RGBColor(0xc8, 0x64, 0x1a);
 const MODEL: RGBColor = RGBColor(0x4b, 0x2c, 0x6e);
 const BAND: RGBColor = RGBColor(0x8c, 0xc9, 0x9b);
 const HUM: RGBColor = RGBColor(0xc2, 0x1f, 0x4a);
-const PAPER: RGBColor = RGBColor(0xff, 0xfe, 0xfb);
+pub(crate) const PAPER: RGBColor = RGBColor(0xff, 0xfe, 0xfb);
 /// Heat-map ends: reading pulled down (slate blue) and pulled up (brick red).
 const COLD: RGBColor = RGBColor(0x2f, 0x5d, 0x9b);
 const HOT: RGBColor = RGBColor(0xb3, 0x3a, 0x2a);
 
 const FONT: &str = "sans-serif";
 
-type Draw<'a> = DrawingArea<SVGBackend<'a>, Shift>;
-type PlotResult = Result<(), Box<dyn Error>>;
+pub(crate) type Draw<'a> = DrawingArea<SVGBackend<'a>, Shift>;
+pub(crate) type PlotResult = Result<(), Box<dyn Error>>;
 
 /// `text` with `& < > " '` replaced by entities: safe inside HTML text and attribute values.
 pub fn escape(text: &str) -> String {
@@ -70,7 +70,7 @@ pub fn escape(text: &str) -> String {
 }
 
 /// Renders one SVG of `w`×`h` px; a failure becomes a note in the page instead of a plot.
-fn svg(w: u32, h: u32, draw: impl FnOnce(&Draw<'_>) -> PlotResult) -> String {
+pub(crate) fn svg(w: u32, h: u32, draw: impl FnOnce(&Draw<'_>) -> PlotResult) -> String {
     let mut buf = String::new();
     let result = {
         let root = SVGBackend::with_string(&mut buf, (w, h)).into_drawing_area();
@@ -82,7 +82,7 @@ fn svg(w: u32, h: u32, draw: impl FnOnce(&Draw<'_>) -> PlotResult) -> String {
     }
 }
 
-fn figure(id: &str, svg: String, caption: &str) -> String {
+pub(crate) fn figure(id: &str, svg: String, caption: &str) -> String {
     format!("<figure id=\"{id}\">{svg}<figcaption>{caption}</figcaption></figure>\n")
 }
 
@@ -351,19 +351,19 @@ fn inside_runs(pts: &[(f64, f64)], lo: f64, hi: f64) -> Vec<Vec<(f64, f64)>> {
 }
 
 /// Text of `px` pixels (plotters' SVG backend writes a size 1.24 times smaller than it is given).
-fn label_style(px: u32) -> TextStyle<'static> {
+pub(crate) fn label_style(px: u32) -> TextStyle<'static> {
     (FONT, f64::from(px) * 1.24).into_font().color(&INK)
 }
 
 /// A chart in our layout: margins and room for the axis labels.
-fn builder<'a, 'b>(area: &'a Draw<'b>) -> ChartBuilder<'a, 'b, SVGBackend<'b>> {
+pub(crate) fn builder<'a, 'b>(area: &'a Draw<'b>) -> ChartBuilder<'a, 'b, SVGBackend<'b>> {
     let mut b = ChartBuilder::on(area);
     b.margin(8).margin_right(16);
     b
 }
 
 /// The mesh in our style: a light grid, small labels; the caller adds descriptions and draws.
-fn mesh<'a, 'b, XT, YT, X, Y>(
+pub(crate) fn mesh<'a, 'b, XT, YT, X, Y>(
     chart: &'b mut ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
 ) -> MeshStyle<'a, 'b, X, Y, SVGBackend<'a>>
 where
@@ -972,7 +972,7 @@ fn memory_caption(r: &SurveyReport) -> String {
     )
 }
 
-fn verdict_chip(v: Verdict) -> String {
+pub(crate) fn verdict_chip(v: Verdict) -> String {
     format!("<span class=\"chip {0}\">{0}</span>", v.as_str())
 }
 
@@ -984,7 +984,7 @@ fn iv(iv: &Interval, f: fn(f64) -> String) -> String {
     escape(&interval_text(iv, f))
 }
 
-const STYLE: &str = "
+pub(crate) const STYLE: &str = "
 :root { --ink:#242e38; --muted:#5d6873; --paper:#fffefb; --rule:#e4e1da; --accent:#4b2c6e; }
 * { box-sizing: border-box; }
 body { margin: 0; background: #f3f1ec; color: var(--ink); font: 14px/1.45 system-ui, sans-serif; }
