@@ -5,6 +5,7 @@
 
 // Shared with the store tests, which use more of it than this file does.
 #[allow(dead_code)]
+#[macro_use]
 mod store_support;
 
 use ohmsight::compare::{Document, SCHEMA};
@@ -45,8 +46,9 @@ fn stderr(out: &Output) -> String {
 fn surveyed(scenario: &str, extra: &[&str]) -> PathBuf {
     static DONE: OnceLock<Mutex<HashMap<String, PathBuf>>> = OnceLock::new();
     let key = format!("{scenario} {}", extra.join(" "));
-    let done = DONE.get_or_init(|| Mutex::new(HashMap::new()));
-    if let Some(path) = done.lock().unwrap().get(&key) {
+    // Held while surveying: tests running at once wait for one survey instead of each making it.
+    let mut done = DONE.get_or_init(|| Mutex::new(HashMap::new())).lock().unwrap_or_else(|e| e.into_inner());
+    if let Some(path) = done.get(&key) {
         return path.clone();
     }
     let out = ohmsight()
@@ -58,7 +60,7 @@ fn surveyed(scenario: &str, extra: &[&str]) -> PathBuf {
     assert_eq!(code(&out), 0, "{key}: {}", stderr(&out));
     let path = dir().join(format!("{}.json", key.replace([' ', '/', '.'], "_")));
     std::fs::write(&path, &out.stdout).unwrap();
-    done.lock().unwrap().insert(key, path.clone());
+    done.insert(key, path.clone());
     path
 }
 
@@ -212,7 +214,10 @@ fn a_sensor_come_loose_is_floating_now() {
     assert_eq!(exit, 1, "{err}");
     let p = pin(&doc, 0);
     let verdict = p["changes"].as_array().unwrap().iter().find(|c| c["what"] == "verdict").expect("a verdict change");
-    assert_eq!((verdict["before"]["verdict"].as_str(), verdict["after"]["verdict"].as_str()), (Some("driven"), Some("floating")));
+    assert_eq!(
+        (verdict["before"]["verdict"].as_str(), verdict["after"]["verdict"].as_str()),
+        (Some("driven"), Some("floating"))
+    );
     assert!(verdict["after"]["low"].as_f64().unwrap() > 1e9, "{verdict:#}");
     assert!(verdict["after"]["high"].is_null(), "a floating pin is a lower bound: {verdict:#}");
     let meaning = verdict["meaning"].as_str().unwrap();
@@ -287,23 +292,6 @@ fn store_run(db: &store_support::TestDb, path: &Path) -> String {
     let pins: Vec<PinSummary> = report.pins.iter().map(PinSummary::from_report).collect();
     store.finish_run(&record.run, &pins).unwrap();
     record.run.id
-}
-
-macro_rules! on_both_backends {
-    ($($name:ident),* $(,)?) => {$(
-        mod $name {
-            #[test]
-            fn sqlite() {
-                super::$name(&crate::store_support::sqlite());
-            }
-            #[test]
-            fn postgres() {
-                if let Some(db) = crate::store_support::postgres() {
-                    super::$name(&db);
-                }
-            }
-        }
-    )*};
 }
 
 on_both_backends!(baseline_defaults_to_the_units_first_complete_survey);

@@ -96,8 +96,13 @@ impl Db<'_> {
     }
 }
 
-/// The unit's first complete survey of every pin, other than `now`.
-fn first_complete_survey(store: &mut Box<dyn Store>, now: &RunRecord) -> Result<RunRecord, Failure> {
+/// The unit's first complete survey of every pin, other than `now` (`surveyed_now`: made by
+/// this command, so it will be the baseline of later ones).
+fn first_complete_survey(
+    store: &mut Box<dyn Store>,
+    now: &RunRecord,
+    surveyed_now: bool,
+) -> Result<RunRecord, Failure> {
     let filter = RunFilter {
         unit: Some(now.run.unit_id.clone()),
         board: Some(now.run.board.clone()),
@@ -115,7 +120,7 @@ fn first_complete_survey(store: &mut Box<dyn Store>, now: &RunRecord) -> Result<
         now.run.unit_id,
         now.run.board,
         store.describe(),
-        if now.run.command.is_empty() { "" } else { "this survey is kept and will be the unit's baseline from now on; or " }
+        if surveyed_now { "this survey is kept and will be the unit's baseline from now on; or " } else { "" }
     )))
 }
 
@@ -175,7 +180,7 @@ fn compare(args: Args) -> Result<(), Failure> {
         }
         None => {
             let store = db.get()?;
-            let record = first_complete_survey(store, &now.record)?;
+            let record = first_complete_survey(store, &now.record, args.run.is_none())?;
             (record, format!("the unit's first complete survey in {}", store.describe()))
         }
     };
