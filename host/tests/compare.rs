@@ -149,10 +149,13 @@ fn every_kind_of_change_is_found_with_its_numbers_and_meaning() {
         }
     }
     // Each change against the truth the scenarios set (coldframe.toml → coldframe-worn.toml),
-    // with the interval of each side holding its own truth.
+    // with the interval of each side holding its own truth. A source voltage's interval leaves
+    // out the converter's own offset and gain errors (common to every run of a unit; the
+    // simulated unit's add up to about 3 LSB), so it is allowed 0.2% of full scale beyond its ends.
     let holds = |side: &Value, truth: f64| {
-        side["low"].as_f64().is_some_and(|l| l <= truth * 1.000_001)
-            && side["high"].as_f64().is_some_and(|h| h >= truth * 0.999_999)
+        let slack = if side["unit"] == "V" { 0.002 * 3.3 } else { 0.0 };
+        side["low"].as_f64().is_some_and(|l| l - slack <= truth * 1.000_001)
+            && side["high"].as_f64().is_some_and(|h| h + slack >= truth * 0.999_999)
     };
     // ch0: the probe's output 1.42 V → 1.61 V: +13% ((1.61 − 1.42) / 1.42 = 13.4%).
     let c = the_change(&doc, 0);

@@ -13,8 +13,8 @@ use ohmsight::{RunRecord, SurveyReport};
 use std::path::{Path, PathBuf};
 
 pub const EXAMPLES: &str = "Examples:
-  ohmsight compare                                 survey the demo board now, compare with its first survey
-  ohmsight compare --port /dev/ttyACM0             a unit in the field against its first stored survey
+  ohmsight compare                                 the demo board now, against its first survey
+  ohmsight compare --port /dev/ttyACM0             a unit in the field, against its first survey
   ohmsight compare --baseline unit-0042.json --port /dev/ttyACM0 --html what-changed.html
   ohmsight compare --baseline 01KBX3Q2 --run 01KC7M4T --json
   ohmsight compare --scenario boards/virtual/scenarios/coldframe-loose.toml
@@ -24,8 +24,10 @@ The rule: a measurement changed when the two runs' 95% intervals do not overlap;
 bound (`> 361 GΩ`, `< 1.15 kΩ`) the other run's interval must lie entirely beyond it. A verdict
 that changed (driven → floating, → at-rail, → unknown) is a change. Where either run has no
 number (an unknown verdict, a pin not measured, a rail with no node), nothing is claimed: the
-pin is listed as \"cannot tell\". Source resistance, node capacitance, source voltage and the
-50/60 Hz hum lines are compared; each change comes with what it likely means, for example
+pin is listed as \"cannot tell\". Source resistance, node capacitance, source voltage (its
+interval at least ±½ LSB; with --other-unit ±0.2% of full scale more, for the converters' own
+offset and gain) and the 50/60 Hz hum lines are compared; each change comes with what it likely
+means, for example
   series resistance grew 9.6× (10.1 kΩ → 97.0 kΩ): a corroded or loose connector, a cracked resistor
   now floating (> 361 GΩ): the sensor came loose or its wire broke
 
