@@ -328,3 +328,19 @@ fn baseline_defaults_to_the_units_first_complete_survey(db: &store_support::Test
     let stored = db.open().load_run(now).unwrap();
     assert!(stored.run.complete && stored.run.command.contains("compare"), "{:?}", stored.run);
 }
+
+#[test]
+fn a_board_that_never_answers_is_no_verdict_exit_3() {
+    // A serial port where nothing answers: no verdict on the unit (exit 3, not 1), and the
+    // attempt is kept in the database with its fault.
+    let (_master, path) = ohmsight::simulate::open_pty().unwrap();
+    let db = dir().join("silent.db");
+    let out = ohmsight().args(["compare", "--quiet", "--port", &path, "--db", s(&db)]).output().unwrap();
+    assert_eq!(code(&out), 3, "{}", stderr(&out));
+    let err = stderr(&out);
+    assert!(err.contains("no comparison made"), "{err}");
+    let mut store = ohmsight::store::open(&ohmsight::store::DbUrl::Sqlite(db.clone())).unwrap();
+    let runs = store.list_runs(&ohmsight::store::RunFilter::default()).unwrap();
+    assert_eq!(runs.len(), 1, "{runs:?}");
+    assert!(!runs[0].complete && runs[0].fault.is_some(), "{:?}", runs[0]);
+}
