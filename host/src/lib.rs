@@ -12,12 +12,14 @@
 //! | judge | [`judge`] | verdicts, flags, settling, memory |
 //! | advise | [`advice`], [`loading`] | sample times, fixes, the scan plan; instrument loading |
 //! | render | [`render`] | text, JSON, HTML |
+//! | compare | [`compare`] | what changed on a unit between two analysed runs, and what it likely means |
 //! | store | [`store`] | SQLite or PostgreSQL, committed experiment by experiment |
 //!
 //! Around them: [`limits`] (limits files of a production check), [`stats`] (production history), [`scenario`] (simulated boards), [`simulate`] and [`ports`] (serial tools),
 //! [`output`] (writing the files a user names), [`units`].
 pub mod advice;
 pub mod analyse;
+pub mod compare;
 pub mod faulty;
 pub mod fit;
 pub mod judge;

@@ -2,6 +2,7 @@
 //! becomes an exit code.
 
 mod common;
+mod compare;
 mod history;
 mod loading;
 mod ports;
@@ -45,6 +46,14 @@ enum Command {
     /// List stored runs, show one as `survey` printed it, or their production statistics.
     #[command(after_long_help = history::EXAMPLES)]
     History(history::Args),
+    /// What changed on a unit since its baseline, per pin, and what it likely means.
+    ///
+    /// Surveys the unit now (same link options as survey) or takes --run, and compares it with
+    /// its baseline (--baseline, or its first complete survey in the database): a sensor now
+    /// floating, series resistance grown, a filter capacitor gone, new hum, a drifted source.
+    /// Exit 0 no significant change, 1 changes found, 2 bad input, 3 link, board or database.
+    #[command(after_long_help = compare::EXAMPLES)]
+    Compare(compare::Args),
     /// What attaching an instrument (scope, probe, meter) to a pin would do to its node.
     ///
     /// From a stored survey (--from run.json) or a live one of that pin alone (the same link
@@ -157,6 +166,7 @@ pub fn run(cli: Cli) -> Result<(), Failure> {
         Command::Survey(args) => survey::run(args),
         Command::Refit(args) => refit::run(args),
         Command::History(args) => history::run(args),
+        Command::Compare(args) => compare::run(args),
         Command::Loading(args) => loading::run(args),
         Command::Simulate(args) => simulate::run(args),
         Command::Ports(args) => ports::run(args),

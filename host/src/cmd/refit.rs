@@ -59,15 +59,21 @@ pub fn record_from_file(path: &Path) -> Result<RunRecord, Failure> {
     }
 }
 
-pub fn run(args: Args) -> Result<(), Failure> {
-    let path = Path::new(&args.source);
-    let mut record = if path.is_file() {
-        record_from_file(path)?
-    } else if args.source.contains(['/', '.']) {
-        return Err(Failure::bad_input(format!("{}: no such file (give a survey document or a run id)", args.source)));
+/// The record `source` names: a survey document file, else a run id (or unique prefix) that
+/// `load` looks up in the database (so it is opened only when needed).
+pub fn load_record(source: &str, load: impl FnOnce(&str) -> Result<RunRecord, Failure>) -> Result<RunRecord, Failure> {
+    let path = Path::new(source);
+    if path.is_file() {
+        record_from_file(path)
+    } else if source.contains(['/', '.']) {
+        Err(Failure::bad_input(format!("{source}: no such file (give a survey document or a run id)")))
     } else {
-        args.db.open()?.load_run(&args.source)?
-    };
+        load(source)
+    }
+}
+
+pub fn run(args: Args) -> Result<(), Failure> {
+    let mut record = load_record(&args.source, |id| Ok(args.db.open()?.load_run(id)?))?;
     if let Some(file) = &args.profile {
         let text = std::fs::read_to_string(file)
             .map_err(|e| Failure::bad_input(format!("cannot read the profile file {}: {e}", file.display())))?;

@@ -6,6 +6,7 @@ use ohmsight::advice::{advise, AdviceOptions};
 use ohmsight::render::{html::survey_html, survey_json, text::survey_text};
 use ohmsight::run::{resume_with, survey_with, RunEvent, SurveyOptions};
 use ohmsight::store::{PinSummary, Store, StoreError};
+use ohmsight::{RunRecord, SurveyReport};
 use std::path::PathBuf;
 
 pub const EXAMPLES: &str = "Examples:
@@ -74,14 +75,14 @@ fn positive_volts(text: &str) -> Result<f64, String> {
 
 /// Writes a run to the store as it happens; after the first failure it writes nothing more
 /// and keeps the error for the end.
-struct Keeper {
-    store: Box<dyn Store>,
-    run_id: Option<String>,
-    error: Option<StoreError>,
+pub(super) struct Keeper {
+    pub store: Box<dyn Store>,
+    pub run_id: Option<String>,
+    pub error: Option<StoreError>,
 }
 
 impl Keeper {
-    fn on(&mut self, event: &RunEvent) {
+    pub fn on(&mut self, event: &RunEvent) {
         if self.error.is_some() {
             return;
         }
@@ -124,36 +125,10 @@ pub fn run(args: Args) -> Result<(), Failure> {
         }
         _ => None,
     };
-    let (mut session, context) = match &resume {
-        Some(record) if !args.link.given() => open_run_link(record, args.link.any_version)?,
-        _ => open_session(&args.link)?,
-    };
-    let opts = SurveyOptions { any_version: args.link.any_version, channels: args.channels.clone(), context };
-    let bar = Bar::new(args.quiet);
-    let mut on_event = |e: &RunEvent| {
-        bar.on(e);
-        if let Some(k) = keeper.as_mut() {
-            k.on(e);
-        }
-    };
-    let surveyed = match resume {
-        Some(record) => resume_with(&mut session, record, &opts, &mut on_event),
-        None => survey_with(&mut session, &opts, &mut on_event),
-    };
-    bar.finish();
-    let r = surveyed?.report;
+    let r = measure(&args.link, args.channels.clone(), resume, args.quiet, keeper.as_mut())?;
     let advice_opts = AdviceOptions { resolve_volts: args.resolve };
     let advice = advise(&r, &advice_opts);
-    let mut stored = None;
-    if let Some(k) = keeper.as_mut() {
-        if k.error.is_none() {
-            let pins: Vec<PinSummary> = r.pins.iter().map(PinSummary::from_report).collect();
-            if let Err(e) = k.store.finish_run(&r.record.run, &pins) {
-                k.error = Some(e);
-            }
-        }
-        stored = Some(k.store.describe());
-    }
+    let stored = keeper.as_ref().map(|k| k.store.describe());
     // A board that never answered has no table: the one sentence below says it all; the JSON
     // document still records the attempt.
     let measured = !r.record.pins.is_empty();
@@ -188,4 +163,42 @@ pub fn run(args: Args) -> Result<(), Failure> {
         (None, _) if !r.record.run.complete => Err(Failure::failed("the survey did not measure every pin")),
         (None, _) => Ok(()),
     }
+}
+
+/// Surveys the board of `link` (or finishes `resume` on its own link when no link option is
+/// given), drawing the progress bar and writing the run to `keeper` as it happens, the pins'
+/// summaries at the end. A store error is kept in `keeper` for the caller to report; a fault of
+/// the board or link is in the report (`fault`, `record.run.complete`).
+pub(super) fn measure(
+    link: &LinkArgs,
+    channels: Vec<u8>,
+    resume: Option<RunRecord>,
+    quiet: bool,
+    mut keeper: Option<&mut Keeper>,
+) -> Result<SurveyReport, Failure> {
+    let (mut session, context) = match &resume {
+        Some(record) if !link.given() => open_run_link(record, link.any_version)?,
+        _ => open_session(link)?,
+    };
+    let opts = SurveyOptions { any_version: link.any_version, channels, context };
+    let bar = Bar::new(quiet);
+    let mut on_event = |e: &RunEvent| {
+        bar.on(e);
+        if let Some(k) = keeper.as_deref_mut() {
+            k.on(e);
+        }
+    };
+    let surveyed = match resume {
+        Some(record) => resume_with(&mut session, record, &opts, &mut on_event),
+        None => survey_with(&mut session, &opts, &mut on_event),
+    };
+    bar.finish();
+    let r = surveyed?.report;
+    if let Some(k) = keeper.filter(|k| k.error.is_none()) {
+        let pins: Vec<PinSummary> = r.pins.iter().map(PinSummary::from_report).collect();
+        if let Err(e) = k.store.finish_run(&r.record.run, &pins) {
+            k.error = Some(e);
+        }
+    }
+    Ok(r)
 }

@@ -37,9 +37,9 @@ const CURVE_POINTS: usize = 48;
 // Our palette: ink, a teal for readings after the low precharge, a copper for those after the
 // high one, a plum for the model, a sage band for the ½ LSB tolerance, a crimson for hum.
 pub(crate) const INK: RGBColor = RGBColor(0x24, 0x2e, 0x38);
-const GRID: RGBColor = RGBColor(0xe4, 0xe1, 0xda);
+pub(crate) const GRID: RGBColor = RGBColor(0xe4, 0xe1, 0xda);
 pub(crate) const LOW: RGBColor = RGBColor(0x0e, 0x7c, 0x86);
-const HIGH: RGBColor = RGBColor(0xc8, 0x64, 0x1a);
+pub(crate) const HIGH: RGBColor = RGBColor(0xc8, 0x64, 0x1a);
 pub(crate) const MODEL: RGBColor = RGBColor(0x4b, 0x2c, 0x6e);
 const BAND: RGBColor = RGBColor(0x8c, 0xc9, 0x9b);
 pub(crate) const HUM: RGBColor = RGBColor(0xc2, 0x1f, 0x4a);
@@ -972,7 +972,7 @@ fn memory_caption(r: &SurveyReport) -> String {
     )
 }
 
-fn verdict_chip(v: Verdict) -> String {
+pub(crate) fn verdict_chip(v: Verdict) -> String {
     format!("<span class=\"chip {0}\">{0}</span>", v.as_str())
 }
 

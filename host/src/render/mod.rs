@@ -1,6 +1,8 @@
 //! Render: a survey report as text for the terminal, as the JSON document
-//! ([`crate::record::v2`]) and as one self-contained HTML page.
+//! ([`crate::record::v2`]) and as one self-contained HTML page; a comparison of two runs
+//! ([`compare`]) as text and as a page.
 
+pub mod compare;
 pub mod html;
 pub mod stats_html;
 pub mod stats_text;
