@@ -14,10 +14,11 @@
 //! | render | [`render`] | text, JSON, HTML |
 //! | store | [`store`] | SQLite or PostgreSQL, committed experiment by experiment |
 //!
-//! Around them: [`limits`] (limits files of a production check), [`scenario`] (simulated boards), [`simulate`] and [`ports`] (serial tools),
+//! Around them: [`limits`] and [`check`] (production checks: limits files, judging, JUnit), [`scenario`] (simulated boards), [`simulate`] and [`ports`] (serial tools),
 //! [`output`] (writing the files a user names), [`units`].
 pub mod advice;
 pub mod analyse;
+pub mod check;
 pub mod faulty;
 pub mod fit;
 pub mod judge;

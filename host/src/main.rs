@@ -3,7 +3,9 @@
 //!
 //! Exit codes, decided in one place ([`cmd::Failure::exit_code`]): 0 everything asked for was
 //! done; 1 the board, the link or the store failed (or a survey was cut short: what was
-//! measured is still printed and stored); 2 bad input (a file, an argument, a run id).
+//! measured is still printed and stored); 2 bad input (a file, an argument, a run id). Commands
+//! that judge a unit (`check`, `compare`) use 1 for "the unit fails / changed" and 3 for "no
+//! verdict: the board, the link or the store failed".
 
 mod cmd;
 

@@ -2,6 +2,7 @@
 //! against a fresh PostgreSQL schema (`OHMSIGHT_TEST_POSTGRES`, else a private server this binary
 //! starts; without PostgreSQL the PostgreSQL half says SKIPPED, and fails under CI).
 
+#[macro_use]
 mod store_support;
 
 use ohmsight::record::{
@@ -13,24 +14,6 @@ use std::io::BufRead;
 use std::sync::{Arc, Barrier};
 use std::time::Instant;
 use store_support::TestDb;
-
-/// `mod NAME { fn sqlite(); fn postgres(); }` running the body `fn NAME(&TestDb)` on each backend.
-macro_rules! on_both_backends {
-    ($($name:ident),* $(,)?) => {$(
-        mod $name {
-            #[test]
-            fn sqlite() {
-                super::$name(&crate::store_support::sqlite());
-            }
-            #[test]
-            fn postgres() {
-                if let Some(db) = crate::store_support::postgres() {
-                    super::$name(&db);
-                }
-            }
-        }
-    )*};
-}
 
 on_both_backends!(
     written_run_loads_back_equal,

@@ -3,6 +3,7 @@
 use super::common::{print, print_analysed, DbArgs};
 use super::Failure;
 use ohmsight::advice::AdviceOptions;
+use ohmsight::record::RunKind;
 use ohmsight::render::text::table;
 use ohmsight::store::{RunFilter, RunListing};
 use std::path::PathBuf;
@@ -11,6 +12,7 @@ pub const EXAMPLES: &str = "Examples:
   ohmsight history                                 every run in the default database
   ohmsight history --unit 00000000c0ffee42 --since 2026-11-01
   ohmsight history --board bench-f4 --json
+  ohmsight history --kind check --unit SN0042      the production checks of one unit
   ohmsight history show 01KBX3Q2                   a run as `survey` printed it
   ohmsight history show 01KBX3Q2 --html run.html
   ohmsight history --db postgres://station3@db.example/factory
@@ -38,6 +40,9 @@ pub struct Args {
     /// Only runs started on or after this day (YYYY-MM-DD, UTC) or instant (RFC 3339).
     #[arg(long, value_name = "DATE", value_parser = parse_since)]
     since: Option<String>,
+    /// Only runs of this kind: survey or check.
+    #[arg(long, value_name = "KIND", value_parser = parse_kind)]
+    kind: Option<RunKind>,
     /// Print one JSON document instead of the table.
     #[arg(long)]
     json: bool,
@@ -59,6 +64,10 @@ enum Show {
         #[arg(long, value_name = "FILE")]
         html: Option<PathBuf>,
     },
+}
+
+fn parse_kind(text: &str) -> Result<RunKind, String> {
+    RunKind::parse(text.trim()).ok_or_else(|| format!("'{text}' is not a kind of run: use survey or check"))
 }
 
 /// `2026-11-01` (midnight UTC) or an RFC 3339 instant, as the store's fixed-width UTC text.
@@ -118,7 +127,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
         let record = store.load_run(&id)?;
         return print_analysed(&record, &AdviceOptions::default(), json, html.as_deref());
     }
-    let filter = RunFilter { unit: args.unit, board: args.board, since: args.since, kind: None };
+    let filter = RunFilter { unit: args.unit, board: args.board, since: args.since, kind: args.kind };
     let runs = store.list_runs(&filter)?;
     let db = store.describe();
     if args.json {

@@ -1,8 +1,10 @@
 //! The commands of the `ohmsight` binary, one file each, and the one place where an outcome
 //! becomes an exit code.
 
+mod check;
 mod common;
 mod history;
+mod limits;
 mod loading;
 mod ports;
 mod refit;
@@ -62,6 +64,16 @@ enum Command {
     /// List serial ports and mark those where a board answers the ohmsight handshake.
     #[command(after_long_help = ports::EXAMPLES)]
     Ports(ports::Args),
+    /// Production check: judge one unit against a limits file; PASS or FAIL, JSON, JUnit XML.
+    ///
+    /// Runs only the experiments the limits need (more only where a limit is still
+    /// undecided), prints one line per pin and the overall result, and stores the run (kind
+    /// check). Exit 0 pass, 1 the unit fails, 2 bad input, 3 the check could not be completed.
+    #[command(after_long_help = check::EXAMPLES)]
+    Check(check::Args),
+    /// Propose a limits file from stored runs of golden units (mean ± K·σ per measurement).
+    #[command(after_long_help = limits::EXAMPLES)]
+    Limits(limits::Args),
 }
 
 /// What kind of failure ended a command: it decides the exit code.
@@ -71,6 +83,13 @@ pub enum Kind {
     Failed,
     /// The user asked for something that cannot be (a file, an argument, a run id).
     BadInput,
+    /// The unit was measured and is not what was asked of it (it fails its limits, it changed
+    /// since its baseline): a result, not a fault.
+    Rejected,
+    /// In a command whose exit 1 is a verdict on the unit (`check`, `compare`): the board, the
+    /// link or the store failed, so no verdict was reached. A test executive must tell a bad
+    /// unit from a broken station.
+    NoVerdict,
 }
 
 /// A command that did not do everything it was asked: what to say and how to exit.
@@ -93,11 +112,27 @@ impl Failure {
         Failure { kind: Kind::BadInput, message: message.into() }
     }
 
-    /// The process exit code: 1 failed, 2 bad input.
+    /// The unit is not what was asked of it.
+    pub fn rejected(message: impl Into<String>) -> Self {
+        Failure { kind: Kind::Rejected, message: message.into() }
+    }
+
+    /// For commands whose exit 1 is a verdict: a failure of the board, link or store becomes
+    /// "no verdict" (exit 3); bad input stays bad input.
+    pub fn no_verdict(self) -> Self {
+        match self.kind {
+            Kind::Failed => Failure { kind: Kind::NoVerdict, ..self },
+            _ => self,
+        }
+    }
+
+    /// The process exit code: 1 failed (or, for `check` and `compare`, the unit fails or
+    /// changed), 2 bad input, 3 no verdict reached.
     pub fn exit_code(&self) -> u8 {
         match self.kind {
-            Kind::Failed => 1,
+            Kind::Failed | Kind::Rejected => 1,
             Kind::BadInput => 2,
+            Kind::NoVerdict => 3,
         }
     }
 }
@@ -137,5 +172,7 @@ pub fn run(cli: Cli) -> Result<(), Failure> {
         Command::Loading(args) => loading::run(args),
         Command::Simulate(args) => simulate::run(args),
         Command::Ports(args) => ports::run(args),
+        Command::Check(args) => check::run(args),
+        Command::Limits(args) => limits::run(args),
     }
 }

@@ -10,6 +10,25 @@ use std::sync::atomic::{AtomicBool, AtomicU32, Ordering};
 use std::sync::{Mutex, OnceLock};
 use std::time::{Duration, Instant};
 
+/// `mod NAME { fn sqlite(); fn postgres(); }` running the body `fn NAME(&TestDb)` on each backend.
+#[allow(unused_macros)]
+macro_rules! on_both_backends {
+    ($($name:ident),* $(,)?) => {$(
+        mod $name {
+            #[test]
+            fn sqlite() {
+                super::$name(&crate::store_support::sqlite());
+            }
+            #[test]
+            fn postgres() {
+                if let Some(db) = crate::store_support::postgres() {
+                    super::$name(&db);
+                }
+            }
+        }
+    )*};
+}
+
 /// The environment variable naming a PostgreSQL server for the tests (a `postgres://` URL whose
 /// user may create schemas in its database).
 pub const POSTGRES_ENV: &str = "OHMSIGHT_TEST_POSTGRES";
