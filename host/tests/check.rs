@@ -149,7 +149,8 @@ fn station_flow(db: &store_support::TestDb) {
     assert_eq!(suite.tests as usize, cases);
     let failing: Vec<_> = suite.cases.iter().filter(|c| c.status.is_failure()).collect();
     assert_eq!(suite.failures as usize, failing.len());
-    let rs_case = suite.cases.iter().find(|c| c.name == "ch0 source_ohms").expect("a ch0 source_ohms case");
+    let rs_case = suite.cases.iter().find(|c| c.original_name == "ch0 source_ohms").expect("a ch0 source_ohms case");
+    assert_eq!(rs_case.classname.as_deref(), Some("virtual"), "classname: the board");
     let junit_parser::TestStatus::Failure(f) = &rs_case.status else { panic!("ch0 source_ohms passed: {rs_case:?}") };
     assert!(f.message.contains("kΩ") && f.message.contains('…'), "measured value and limit: {}", f.message);
     let good_suites =

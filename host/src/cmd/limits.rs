@@ -16,7 +16,8 @@ pub const EXAMPLES: &str = "Examples:
 
 Survey (or check) three or more golden units and store the runs; `ohmsight history` lists
 their ids (a unique prefix will do). For each pin and each measurement the runs share, the
-limit is the mean ± K·σ over the runs (σ: their sample standard deviation), widened on each
+limit is the mean ± K·σ over the runs (σ: their sample standard deviation, but no smaller than
+the standard error their own 95% intervals state: a few runs can agree by chance), widened on each
 side by the largest half-width of the golden runs' own 95% intervals: a check passes a limit
 only when the whole interval lies inside it, so a unit measured as well as the golden ones then
 passes while its value is within K·σ of their mean. One-sided limits: noise_lsb_max and
@@ -70,7 +71,13 @@ fn proposed(ivs: &[Interval], k: f64) -> Option<Range> {
     }
     let n = est.len() as f64;
     let mean = est.iter().sum::<f64>() / n;
-    let sd = (est.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+    // A few golden runs estimate σ poorly, and their estimates can agree by chance more
+    // closely than one unit measured twice would: σ is taken no smaller than the standard
+    // error the runs' own intervals state (their mean 95% half-width / 1.96).
+    let halves: Vec<f64> =
+        ivs.iter().filter_map(|i| Some((i.high? - i.low?) / 2.0)).filter(|h| h.is_finite()).collect();
+    let se = if halves.is_empty() { 0.0 } else { halves.iter().sum::<f64>() / halves.len() as f64 / 1.96 };
+    let sd = (est.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt().max(se);
     let below = ivs.iter().zip(&est).map(|(i, e)| i.low.map(|l| e - l)).try_fold(0.0, |m, d| d.map(|d| f64::max(m, d)));
     let above =
         ivs.iter().zip(&est).map(|(i, e)| i.high.map(|h| h - e)).try_fold(0.0, |m, d| d.map(|d| f64::max(m, d)));
