@@ -15,10 +15,12 @@
 //! | compare | [`compare`] | what changed on a unit between two analysed runs, and what it likely means |
 //! | store | [`store`] | SQLite or PostgreSQL, committed experiment by experiment |
 //!
-//! Around them: [`limits`] (limits files of a production check), [`stats`] (production history), [`scenario`] (simulated boards), [`simulate`] and [`ports`] (serial tools),
-//! [`output`] (writing the files a user names), [`units`].
+//! Around them: [`limits`] and [`check`] (production checks: limits files, judging, JUnit), [`stats`]
+//! (production history), [`compare`] (what changed on a unit), [`scenario`] (simulated boards),
+//! [`simulate`] and [`ports`] (serial tools), [`output`] (writing the files a user names), [`units`].
 pub mod advice;
 pub mod analyse;
+pub mod check;
 pub mod compare;
 pub mod faulty;
 pub mod fit;

@@ -51,7 +51,11 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
     let t_mid = t[n - 1] / 2.0;
     // Trend-only fit.
     let trend_cols = 2;
-    let cols = trend_cols + MAINS_HZ.len() * HARMONICS * 2 + CONTROL_HZ.len() * 2;
+    // A record too short to tell the control frequencies from the mains lines (a check's
+    // 50 ms record) fits the mains lines alone; its hum amplitudes' standard error then comes
+    // from the fit's covariance, which says how well the record separates 50 from 60 Hz.
+    let controls = if (n as f64) * period_s >= CONTROL_SPAN_S { CONTROL_HZ.len() } else { 0 };
+    let cols = trend_cols + MAINS_HZ.len() * HARMONICS * 2 + controls * 2;
     let mut a = DMatrix::zeros(n, cols);
     for i in 0..n {
         a[(i, 0)] = 1.0;
@@ -65,7 +69,7 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
                 c += 2;
             }
         }
-        for &f in &CONTROL_HZ {
+        for &f in &CONTROL_HZ[..controls] {
             let w = 2.0 * std::f64::consts::PI * f * t[i];
             a[(i, c)] = w.sin();
             a[(i, c + 1)] = w.cos();
@@ -95,7 +99,7 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
         }
         *h_f = p.sqrt();
     }
-    let control = CONTROL_HZ
+    let control = CONTROL_HZ[..controls]
         .iter()
         .enumerate()
         .map(|(k, _)| {
@@ -114,11 +118,22 @@ pub fn analyse(codes: &[u16], period_s: f64) -> Option<NoiseSummary> {
         drift_lsb_per_s: tc[1],
         hum_lsb: hum,
         control_lsb: control,
-        hum_se_lsb: white * (2.0 / n as f64).sqrt(),
+        hum_se_lsb: if controls > 0 {
+            white * (2.0 / n as f64).sqrt()
+        } else {
+            // The worst-determined line coefficient, from (AᵀA)⁻¹ scaled by the white variance.
+            let inv = (a.transpose() * &a).try_inverse()?;
+            let worst = (trend_cols..cols).map(|j| inv[(j, j)]).fold(0.0, f64::max);
+            white * worst.sqrt()
+        },
         psd,
         peak_hz,
     })
 }
+
+/// Shortest record, s, whose analysis fits the control frequencies beside the mains lines (37
+/// and 43 Hz stand 7 Hz from 50 Hz: 1/7 Hz ≈ 143 ms separates them).
+pub const CONTROL_SPAN_S: f64 = 0.2;
 
 /// Smallest hum amplitude worth flagging, LSB.
 pub const HUM_MIN_LSB: f64 = 0.5;

@@ -23,6 +23,12 @@ pub const NOISE_PERIOD_NS: u32 = 250_000;
 const NOISE_SETTLE_NS: u32 = 100_000_000;
 /// Noise-record length.
 const NOISE_COUNT: u16 = 1024;
+/// Longest period of a check's first-pass period sweep, ns.
+pub const QUICK_LONGEST_PERIOD_NS: u32 = 1_000_000;
+/// Readings of a check's short noise record (the lead-in included).
+pub const QUICK_NOISE_COUNT: u16 = 208;
+/// Idle time before a check's short noise record, ns.
+const QUICK_NOISE_SETTLE_NS: u32 = 2_000_000;
 /// Readings at the start of a raw record that are left out of its analysis (the node's
 /// response to the conversion before the record).
 pub const RAW_LEAD_IN: usize = 8;
@@ -207,6 +213,72 @@ impl Plan {
             out.push(period_sweep(pin, screen.far, longest, longest, &periods[..3.min(periods.len())], 256));
         }
         out
+    }
+
+    /// A check's first pass at a pin's settling: the survey's [`Plan::detail`] cut to what
+    /// decides most limits (fewer repeats, period sweeps up to [`QUICK_LONGEST_PERIOD_NS`]). A
+    /// pin whose limits it leaves open gets the full detail afterwards.
+    pub fn quick_detail(&self, model: &BoardModel, pin: u8, screen: &ScreenResult) -> Vec<Experiment> {
+        self.detail(model, pin, screen)
+            .into_iter()
+            .map(|exp| match exp {
+                Experiment::PrechargeSweep {
+                    target,
+                    precharges,
+                    precharge_sample,
+                    samples,
+                    rest_ns,
+                    settle_ns,
+                    ..
+                } => Experiment::PrechargeSweep {
+                    target,
+                    precharges,
+                    precharge_sample,
+                    samples,
+                    repeats: 8,
+                    rest_ns,
+                    settle_ns,
+                },
+                Experiment::PeriodSweep {
+                    target,
+                    precharge,
+                    precharge_sample,
+                    sample,
+                    periods_ns,
+                    repeats,
+                    settle_ns,
+                } => {
+                    let mut short: HVec<u32, { ohmsight_protocol::MAX_PERIODS }> = HVec::new();
+                    for p in periods_ns.iter().map(|&p| p.min(QUICK_LONGEST_PERIOD_NS)) {
+                        if short.last().is_none_or(|&l| p > l) {
+                            let _ = short.push(p);
+                        }
+                    }
+                    Experiment::PeriodSweep {
+                        target,
+                        precharge,
+                        precharge_sample,
+                        sample,
+                        periods_ns: short,
+                        repeats: (repeats / 4).max(4),
+                        settle_ns,
+                    }
+                }
+                other => other,
+            })
+            .collect()
+    }
+
+    /// A check's short noise record: [`QUICK_NOISE_COUNT`] readings at the survey's 4 kHz
+    /// (three 60 Hz periods, two and a half of 50 Hz), after a short rest.
+    pub fn quick_noise(&self, pin: u8) -> Experiment {
+        Experiment::NoiseRecord {
+            target: pin,
+            sample: self.longest,
+            period_ns: NOISE_PERIOD_NS,
+            count: QUICK_NOISE_COUNT,
+            settle_ns: QUICK_NOISE_SETTLE_NS,
+        }
     }
 
     /// The noise record, after the node has had time to recover from the experiments before it.

@@ -5,7 +5,8 @@
 //! draws its progress bar from them and the store commits each experiment as it comes, so a
 //! crash or an unplugged cable loses at most the experiment in flight.
 
-use crate::analyse::{board_model, fit_pins, judge_pins, pin_evidence, report};
+use crate::analyse::{board_model, fit_pins, judge_pins, pin_evidence, report, PinEvidence};
+use crate::fit::Fit;
 use crate::judge::{memory_planned, SurveyReport};
 use crate::link::Link;
 use crate::model::{BoardModel, CellObs};
@@ -75,6 +76,8 @@ pub struct SurveyOptions {
     pub channels: Vec<u8>,
     /// Link, scenario and command line for the record.
     pub context: RunContext,
+    /// The kind of run the record says it is.
+    pub kind: RunKind,
 }
 
 /// Errors of a survey.
@@ -106,6 +109,8 @@ pub enum SurveyError {
         /// The board's pins.
         pins: Vec<u8>,
     },
+    /// The limits of a check do not fit the board that answered (file, line, what to change).
+    Limits(String),
 }
 
 impl SurveyError {
@@ -114,7 +119,10 @@ impl SurveyError {
     pub fn is_bad_input(&self) -> bool {
         matches!(
             self,
-            SurveyError::NoSuchPin { .. } | SurveyError::OtherBoard { .. } | SurveyError::NothingToResume { .. }
+            SurveyError::NoSuchPin { .. }
+                | SurveyError::OtherBoard { .. }
+                | SurveyError::NothingToResume { .. }
+                | SurveyError::Limits(_)
         )
     }
 }
@@ -124,6 +132,7 @@ impl std::fmt::Display for SurveyError {
         match self {
             SurveyError::Session(e) => e.fmt(f),
             SurveyError::Board(e) => e.fmt(f),
+            SurveyError::Limits(e) => f.write_str(e),
             SurveyError::OtherBoard { run, was, now } => write!(
                 f,
                 "run {run} was made on board {was}, but board {now} answers on this link: connect the board of \
@@ -228,6 +237,21 @@ impl<L: Link> Runner<'_, '_, L> {
         Ok(rec)
     }
 
+    /// Measures the precharge sources' `levels` (announcing them and `more` experiments after
+    /// them) and takes the levels into the model; the fault that stopped it, if one did.
+    fn precharge_levels(&mut self, levels: Vec<Experiment>, more: i64) -> Option<String> {
+        self.plan_more(levels.len() as i64 + more);
+        let mut fault = None;
+        for exp in levels {
+            if let Err(e) = self.run(Purpose::PrechargeLevel, None, exp) {
+                fault = Some(e.to_string());
+                break;
+            }
+        }
+        self.model = board_model(&self.record);
+        fault
+    }
+
     /// The experiments of `purpose` the record already holds on `pin`, in order.
     fn recorded(&self, pin: u8, purpose: Purpose) -> Vec<ExperimentRecord> {
         self.record.experiments.iter().filter(|e| e.pin == Some(pin) && e.purpose == purpose).cloned().collect()
@@ -290,6 +314,8 @@ pub const UNIDENTIFIED: &str = "unidentified";
 pub struct Surveyed {
     /// The analysis; `report.record` is the run record.
     pub report: SurveyReport,
+    /// Host computing time spent analysing (evidence, fits, verdicts), s.
+    pub analysis_seconds: f64,
 }
 
 /// The board as it described itself, for the record.
@@ -308,6 +334,24 @@ fn board_record(info: &crate::session::BoardInfo) -> BoardRecord {
     }
 }
 
+/// The handshake and the plan; a board that does not answer or cannot be surveyed still gets
+/// a record (the run, its fault, nothing measured), returned as the error.
+fn connect<L: Link>(
+    session: &mut Session<L>,
+    opts: &SurveyOptions,
+    wall: Instant,
+    on_event: &mut dyn FnMut(&RunEvent),
+) -> Result<(BoardInfo, Plan, String), Box<Surveyed>> {
+    let started = now_rfc3339();
+    match session.handshake(opts.any_version) {
+        Ok(info) => match Plan::new(&info.front_end) {
+            Ok(plan) => Ok((info, plan, started)),
+            Err(e) => Err(Box::new(unsurveyed(opts, started, wall, Some(&info), e.to_string(), session, on_event))),
+        },
+        Err(e) => Err(Box::new(unsurveyed(opts, started, wall, None, e.to_string(), session, on_event))),
+    }
+}
+
 /// Runs a survey on a connected board, emitting progress and record events.
 ///
 /// A link fault after the handshake does not fail the survey: what was measured is analysed
@@ -318,15 +362,9 @@ pub fn survey_with<L: Link>(
     on_event: &mut dyn FnMut(&RunEvent),
 ) -> Result<Surveyed, SurveyError> {
     let wall = Instant::now();
-    let started = now_rfc3339();
-    // A board that does not answer or cannot be surveyed still gets a record: the run, its
-    // fault, and nothing measured.
-    let (info, plan) = match session.handshake(opts.any_version) {
-        Ok(info) => match Plan::new(&info.front_end) {
-            Ok(plan) => (info, plan),
-            Err(e) => return Ok(unsurveyed(opts, started, wall, Some(&info), e.to_string(), session, on_event)),
-        },
-        Err(e) => return Ok(unsurveyed(opts, started, wall, None, e.to_string(), session, on_event)),
+    let (info, plan, started) = match connect(session, opts, wall, on_event) {
+        Ok(connected) => connected,
+        Err(unsurveyed) => return Ok(*unsurveyed),
     };
     let all_pins: Vec<u8> = info.channels.iter().filter(|c| c.role == ChannelRole::Pin).map(|c| c.channel).collect();
     for &c in &opts.channels {
@@ -417,17 +455,8 @@ fn measure<L: Link>(
             !runner.record.experiments.iter().any(|r| r.purpose == Purpose::PrechargeLevel && r.experiment == e.into())
         })
         .collect();
-    runner.plan_more(levels.len() as i64 + 2 * todo.len() as i64);
-
     // 1. Precharge levels, measured. 2. Screen, 3. detail where needed.
-    let mut fault: Option<String> = None;
-    for exp in levels {
-        if let Err(e) = runner.run(Purpose::PrechargeLevel, None, exp) {
-            fault = Some(e.to_string());
-            break;
-        }
-    }
-    runner.model = board_model(&runner.record);
+    let mut fault = runner.precharge_levels(levels, 2 * todo.len() as i64);
     let mut screens: Vec<Option<ScreenResult>> = Vec::new();
     if fault.is_none() {
         for &(_, ch) in &todo {
@@ -454,10 +483,12 @@ fn measure<L: Link>(
 
     // 4. Fit every pin; 5. verdicts, then the memory test where a pin has a verdict to test.
     (runner.on_event)(&RunEvent::Fitting);
+    let analysing = Instant::now();
     let model = runner.model.clone();
     let evidence = pin_evidence(&runner.record, &model);
     let fits = fit_pins(&model, &evidence);
     let judged = judge_pins(&model, &evidence, &fits, true);
+    let mut analysis_seconds = analysing.elapsed().as_secs_f64();
     if fault.is_none() {
         let wanted: Vec<_> = judged
             .iter()
@@ -476,6 +507,22 @@ fn measure<L: Link>(
         }
     }
 
+    let record = close(runner, fault, base, wall);
+    // The memory tests only add to the evidence: the fits stand, the verdicts take them in.
+    let analysing = Instant::now();
+    let evidence = pin_evidence(&record, &model);
+    let report = report(&record, &model, &evidence, &fits);
+    analysis_seconds += analysing.elapsed().as_secs_f64();
+    Surveyed { report, analysis_seconds }
+}
+
+/// Ends a run: the runs the board made that the host has no answer of, the fault, the totals.
+fn close<L: Link>(
+    mut runner: Runner<'_, '_, L>,
+    mut fault: Option<String>,
+    base: RunStats,
+    wall: Instant,
+) -> RunRecord {
     // A request that reached the board twice after its last answer: the board's run log says.
     if fault.is_none() {
         match runner.session.unanswered_runs() {
@@ -499,9 +546,143 @@ fn measure<L: Link>(
         board_seconds: this.board_seconds,
         wall_seconds: base.wall_seconds + this.wall_seconds,
     };
-    // The memory tests only add to the evidence: the fits stand, the verdicts take them in.
+    record
+}
+
+/// What a check needs measured on one pin.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct PinNeeds {
+    /// The channel.
+    pub channel: u8,
+    /// Settling data for a fit (verdict, source resistance and voltage, node, settling time).
+    pub fit: bool,
+    /// A noise record (noise, hum).
+    pub noise: bool,
+}
+
+/// A production check: only what `needs` asks of each pin, in two passes.
+///
+/// `needs` is given the board as it described itself and names the pins and what each needs
+/// (an `Err` is bad input: the limits do not fit this board). The first pass runs each pin's
+/// screen, a short set of settling experiments ([`Plan::quick_detail`]) where a fit is needed
+/// and a short noise record ([`Plan::quick_noise`]) where noise or hum is. `more` then sees
+/// the analysis and names the pins whose decisions are still open; they get the survey's full
+/// settling experiments and noise record, and are fitted again on all their evidence.
+pub fn check_with<L: Link>(
+    session: &mut Session<L>,
+    opts: &SurveyOptions,
+    needs: &mut dyn FnMut(&BoardRecord) -> Result<Vec<PinNeeds>, String>,
+    more: &mut dyn FnMut(&SurveyReport) -> Vec<PinNeeds>,
+    on_event: &mut dyn FnMut(&RunEvent),
+) -> Result<Surveyed, SurveyError> {
+    let wall = Instant::now();
+    let (info, plan, started) = match connect(session, opts, wall, on_event) {
+        Ok(connected) => connected,
+        Err(unsurveyed) => return Ok(*unsurveyed),
+    };
+    let board = board_record(&info);
+    let wanted = needs(&board).map_err(SurveyError::Limits)?;
+    let pins: Vec<PinRecord> = board
+        .channels
+        .iter()
+        .filter(|c| wanted.iter().any(|w| w.channel == c.channel))
+        .map(|c| PinRecord { channel: c.channel, label: c.label.clone(), complete: false })
+        .collect();
+    let nominal_model = BoardModel::from_front_end(&info.front_end);
+    let mut run = run_meta(opts, started, Some(&info));
+    run.channels = pins.iter().map(|p| p.channel).collect();
+    let record = RunRecord {
+        run,
+        board,
+        profile: Profile::from_model(&nominal_model, &info.front_end),
+        pins,
+        experiments: Vec::new(),
+    };
+    on_event(&RunEvent::Began(&record));
+    let model = board_model(&record);
+    let mut runner = Runner { session, model, record, on_event, planned: 0, calls: HashMap::new(), clock_offset_ps: 0 };
+    let mut fault = runner.precharge_levels(plan.precharge_levels().to_vec(), 2 * wanted.len() as i64);
+    // Pass 1: screen, short settling experiments, short noise record.
+    let mut screens: HashMap<u8, Option<ScreenResult>> = HashMap::new();
+    for (i, need) in runner.record.pins.clone().iter().enumerate() {
+        if fault.is_some() {
+            break;
+        }
+        let Some(need) = wanted.iter().find(|w| w.channel == need.channel).copied() else { continue };
+        let pass = runner.screen(&plan, need.channel).and_then(|screen| {
+            if let Some(sc) = &screen {
+                let model = runner.model.clone();
+                let exps: Vec<Experiment> =
+                    if need.fit { plan.quick_detail(&model, need.channel, sc) } else { Vec::new() };
+                runner.plan_more(exps.len() as i64 + i64::from(need.noise));
+                for exp in exps {
+                    runner.run(Purpose::Detail, Some(need.channel), exp)?;
+                }
+                if need.noise {
+                    runner.run(Purpose::Noise, Some(need.channel), plan.quick_noise(need.channel))?;
+                }
+            }
+            Ok(screen)
+        });
+        match pass {
+            Ok(screen) => {
+                screens.insert(need.channel, screen);
+                runner.record.pins[i].complete = true;
+                (runner.on_event)(&RunEvent::PinComplete(need.channel));
+            }
+            Err(e) => fault = Some(e.to_string()),
+        }
+    }
+    (runner.on_event)(&RunEvent::Fitting);
+    let analysing = Instant::now();
+    let model = runner.model.clone();
+    let evidence = pin_evidence(&runner.record, &model);
+    let mut fits = fit_pins(&model, &evidence);
+    let mut analysis_seconds = analysing.elapsed().as_secs_f64();
+    // Pass 2: the survey's own experiments where a decision is still open.
+    if fault.is_none() {
+        let analysing = Instant::now();
+        let first = report(&runner.record, &model, &evidence, &fits);
+        let again: Vec<PinNeeds> = more(&first);
+        analysis_seconds += analysing.elapsed().as_secs_f64();
+        for need in &again {
+            let Some(Some(sc)) = screens.get(&need.channel) else { continue };
+            let exps: Vec<Experiment> = if need.fit { plan.detail(&model, need.channel, sc) } else { Vec::new() };
+            runner.plan_more(exps.len() as i64 + i64::from(need.noise));
+            let pass = exps
+                .into_iter()
+                .try_for_each(|exp| runner.run(Purpose::Detail, Some(need.channel), exp).map(|_| ()))
+                .and_then(|_| match need.noise {
+                    true => runner.run(Purpose::Noise, Some(need.channel), plan.noise(need.channel)).map(|_| ()),
+                    false => Ok(()),
+                });
+            if let Err(e) = pass {
+                fault = Some(e.to_string());
+                break;
+            }
+        }
+        if !again.is_empty() {
+            (runner.on_event)(&RunEvent::Fitting);
+            let analysing = Instant::now();
+            let evidence = pin_evidence(&runner.record, &model);
+            let refit: Vec<bool> = evidence.iter().map(|e| again.iter().any(|a| a.channel == e.channel)).collect();
+            fits = refit_some(&model, &evidence, fits, &refit);
+            analysis_seconds += analysing.elapsed().as_secs_f64();
+        }
+    }
+    let record = close(runner, fault, RunStats::default(), wall);
+    let analysing = Instant::now();
     let evidence = pin_evidence(&record, &model);
-    Surveyed { report: report(&record, &model, &evidence, &fits) }
+    let report = report(&record, &model, &evidence, &fits);
+    analysis_seconds += analysing.elapsed().as_secs_f64();
+    Ok(Surveyed { report, analysis_seconds })
+}
+
+/// Fits again the pins marked in `which` (in parallel), keeping the other fits.
+fn refit_some(model: &BoardModel, pins: &[PinEvidence], fits: Vec<Option<Fit>>, which: &[bool]) -> Vec<Option<Fit>> {
+    let chosen: Vec<PinEvidence> = pins.iter().zip(which).filter(|(_, w)| **w).map(|(p, _)| p.clone()).collect();
+    let mut new = fit_pins(model, &chosen).into_iter();
+    fits.into_iter().zip(which).map(|(old, w)| if *w { new.next().flatten() } else { old }).collect()
 }
 
 /// The run's metadata at its start (`info`: the board, when it answered).
@@ -509,7 +690,7 @@ fn run_meta(opts: &SurveyOptions, started: String, info: Option<&BoardInfo>) -> 
     let ctx = &opts.context;
     RunMeta {
         id: new_run_id(),
-        kind: RunKind::Survey,
+        kind: opts.kind,
         started,
         finished: None,
         tool_version: env!("CARGO_PKG_VERSION").into(),
@@ -573,7 +754,7 @@ fn unsurveyed<L: Link>(
     run.fault = Some(fault);
     run.stats = run_stats(&session.stats, 0, wall);
     let record = RunRecord { run, ..record };
-    Surveyed { report: report(&record, &record.profile.model(), &[], &[]) }
+    Surveyed { report: report(&record, &record.profile.model(), &[], &[]), analysis_seconds: 0.0 }
 }
 
 /// Runs a survey with no one listening to its progress.

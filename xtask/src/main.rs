@@ -2,7 +2,8 @@
 //!
 //! - `test`: installs the Debian packages the tests need (`.ci/debian-packages`), then runs
 //!   `cargo test --workspace` (extra arguments are passed on).
-//! - `bench`: a 16-pin survey on the simulated board; prints wall time, conversions and link bytes.
+//! - `bench`: a 16-pin survey on the simulated board, then a check of it against a typical
+//!   limits file; prints wall time, board and host time, conversions and link bytes of each.
 //! - `study`: one pin surveyed over several seeds, optionally with some of the simulated board's
 //!   non-idealities switched off; prints the estimates against the truth.
 //! - `firmware <board>`, `qemu [--scenario F]`, `size`: board images (see the library).
@@ -88,6 +89,56 @@ fn bench() -> Result<()> {
     println!("  board time       {:.2} s (nominal)", r.board_seconds);
     let evals: usize = r.pins.iter().filter_map(|p| p.fit.as_ref()).map(|f| f.evaluations).sum();
     println!("  model evaluations {evals}");
+    bench_check(&sc, &r)
+}
+
+/// The production check of the same board against a typical limits file, beside the survey.
+fn bench_check(sc: &Scenario, surveyed: &ohmsight::SurveyReport) -> Result<()> {
+    use ohmsight::check::{more_wanted, needs, CheckReport};
+    let file = "boards/virtual/limits/bench16.toml";
+    let text = include_str!("../../boards/virtual/limits/bench16.toml");
+    let limits = ohmsight::limits::parse(file, text).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let opts = SurveyOptions { kind: ohmsight::record::RunKind::Check, ..Default::default() };
+    let mut session = Session::new(InProcessLink::new(sc));
+    let resolved = std::cell::RefCell::new(Vec::new());
+    let t0 = Instant::now();
+    let checked = ohmsight::run::check_with(
+        &mut session,
+        &opts,
+        &mut |board| {
+            let pins = limits.resolve(board).map_err(|e| e.to_string())?;
+            let wanted = needs(&pins);
+            *resolved.borrow_mut() = pins;
+            Ok(wanted)
+        },
+        &mut |first| more_wanted(&resolved.borrow(), first),
+        &mut |_| {},
+    )
+    .map_err(|e| anyhow::anyhow!("{e}"))?;
+    let wall = t0.elapsed().as_secs_f64();
+    let judging = Instant::now();
+    let pins = resolved.borrow().clone();
+    let report = CheckReport::new(checked.report, "bench".into(), limits.clone(), text.into(), &pins, None);
+    let host = checked.analysis_seconds + judging.elapsed().as_secs_f64();
+    let r = &report.survey;
+    let again = r.record.experiments.iter().filter(|e| e.purpose == ohmsight::record::Purpose::Detail).count();
+    println!();
+    println!("16-pin check against {file} ({} limits)", report.summary().limits.len());
+    println!("                   check        survey");
+    println!("  board time       {:>8.2} s   {:>8.2} s (nominal)", r.board_seconds, surveyed.board_seconds);
+    println!("  host computing   {host:>8.2} s   (fits, verdicts, judging; the survey's: wall time above)");
+    println!("  wall time        {wall:>8.2} s");
+    println!("  conversions      {:>8}     {:>8}", r.link.conversions, surveyed.link.conversions);
+    println!("  bytes to board   {:>8}     {:>8}", r.link.bytes_sent, surveyed.link.bytes_sent);
+    println!("  bytes back       {:>8}     {:>8}", r.link.bytes_received, surveyed.link.bytes_received);
+    println!("  result           {} ({} settling experiments; not passed: {})", report.result.as_str(), again, {
+        let np = report.not_passed();
+        if np.is_empty() {
+            "none".to_string()
+        } else {
+            np.join(", ")
+        }
+    });
     Ok(())
 }
 

@@ -221,3 +221,44 @@ impl Bar {
         self.0.finish_and_clear();
     }
 }
+
+/// Writes a run to the store as it happens; after the first failure it writes nothing more
+/// and keeps the error for the end.
+pub struct Keeper {
+    /// The database.
+    pub store: Box<dyn Store>,
+    /// The run being written.
+    pub run_id: Option<String>,
+    /// The first failure.
+    pub error: Option<store::StoreError>,
+}
+
+impl Keeper {
+    /// Writes into `store`.
+    pub fn new(store: Box<dyn Store>) -> Self {
+        Keeper { store, run_id: None, error: None }
+    }
+
+    /// Follows one event.
+    pub fn on(&mut self, event: &RunEvent) {
+        if self.error.is_some() {
+            return;
+        }
+        let done = match (event, &self.run_id) {
+            (RunEvent::Began(record), _) => {
+                self.run_id = Some(record.run.id.clone());
+                self.store.begin_run(record)
+            }
+            (RunEvent::Resumed(record), _) => {
+                self.run_id = Some(record.run.id.clone());
+                Ok(())
+            }
+            (RunEvent::Recorded(e), Some(id)) => self.store.add_experiment(id, e),
+            (RunEvent::PinComplete(ch), Some(id)) => self.store.set_pin_complete(id, *ch, true),
+            _ => Ok(()),
+        };
+        if let Err(e) = done {
+            self.error = Some(e);
+        }
+    }
+}

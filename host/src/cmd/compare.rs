@@ -1,8 +1,9 @@
 //! `ohmsight compare`: what changed on a unit since its baseline, per pin, in physical terms.
 
+use super::common::Keeper;
 use super::common::{print, write_output, DbArgs, LinkArgs};
 use super::refit::load_record;
-use super::survey::{measure, Keeper};
+use super::survey::measure;
 use super::Failure;
 use ohmsight::analyse::analyse;
 use ohmsight::compare::{comparable, Document};
@@ -147,7 +148,7 @@ fn compare(args: Args) -> Result<(), Failure> {
                 Some(store) => store,
                 None => args.db.open()?,
             };
-            let mut keeper = Keeper { store, run_id: None, error: None };
+            let mut keeper = Keeper::new(store);
             let measured = measure(&args.link, Vec::new(), None, args.quiet, Some(&mut keeper));
             let described = keeper.store.describe();
             db.store = Some(keeper.store);

@@ -14,6 +14,7 @@ pub const EXAMPLES: &str = "Examples:
   ohmsight history                                 every run in the default database
   ohmsight history --unit 00000000c0ffee42 --since 2026-11-01
   ohmsight history --board bench-f4 --json
+  ohmsight history --kind check --unit SN0042      the production checks of one unit
   ohmsight history show 01KBX3Q2                   a run as `survey` printed it
   ohmsight history show 01KBX3Q2 --html run.html
   ohmsight history stats --limits eol.toml         count, mean, σ, Cp/Cpk, first-pass yield
@@ -69,6 +70,9 @@ pub struct Args {
     /// Only runs started on or after this day (YYYY-MM-DD, UTC) or instant (RFC 3339).
     #[arg(long, value_name = "DATE", value_parser = parse_since)]
     since: Option<String>,
+    /// Only runs of this kind: survey or check.
+    #[arg(long, value_name = "KIND", value_parser = parse_kind)]
+    kind: Option<RunKind>,
     /// Print one JSON document instead of the table.
     #[arg(long)]
     json: bool,
@@ -109,7 +113,7 @@ struct StatsArgs {
     /// Only runs started on or after this day (YYYY-MM-DD, UTC) or instant (RFC 3339).
     #[arg(long, value_name = "DATE", value_parser = parse_since)]
     since: Option<String>,
-    /// Only runs of this kind (survey, …); default: every kind.
+    /// Only runs of this kind (survey or check); default: every kind.
     #[arg(long, value_name = "KIND", value_parser = parse_kind)]
     kind: Option<RunKind>,
     /// Print one JSON document (schema ohmsight.stats.v1) instead of the table.
@@ -120,17 +124,12 @@ struct StatsArgs {
     html: Option<PathBuf>,
 }
 
-// The shared exit-code patch adds `Failure::rejected` and `.no_verdict()` for `check` and
-// `compare`, which are not on this branch yet; this keeps the binary free of dead-code warnings
-// until they are. Delete it when merging with `check`.
-const _: fn(String) -> Failure = |m| Failure::rejected(m).no_verdict();
-
-/// Runs `history stats` reads when `--kind` is not given: every kind. (Once production checks
-/// are stored as their own kind, this is the place to make them the default.)
+/// Runs `history stats` reads when `--kind` is not given: every kind (`--kind check` for a
+/// station's checks alone).
 const STATS_DEFAULT_KIND: Option<RunKind> = None;
 
 fn parse_kind(text: &str) -> Result<RunKind, String> {
-    RunKind::parse(text.trim()).ok_or_else(|| format!("'{text}' is not a kind of run: use survey"))
+    RunKind::parse(text.trim()).ok_or_else(|| format!("'{text}' is not a kind of run: use survey or check"))
 }
 
 /// `2026-11-01` (midnight UTC) or an RFC 3339 instant, as the store's fixed-width UTC text.
@@ -232,7 +231,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
         Some(Show::Stats(s)) => return stats(s, store.as_mut()),
         None => {}
     }
-    let filter = RunFilter { unit: args.unit, board: args.board, since: args.since, kind: None };
+    let filter = RunFilter { unit: args.unit, board: args.board, since: args.since, kind: args.kind };
     let runs = store.list_runs(&filter)?;
     let db = store.describe();
     if args.json {

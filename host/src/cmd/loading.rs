@@ -77,7 +77,12 @@ pub fn run(args: Args) -> Result<(), Failure> {
             )));
         }
         let name = context.link.describe();
-        let opts = SurveyOptions { any_version: args.link.any_version, channels: vec![args.pin], context };
+        let opts = SurveyOptions {
+            any_version: args.link.any_version,
+            channels: vec![args.pin],
+            context,
+            ..Default::default()
+        };
         let bar = Bar::new(args.quiet);
         let surveyed = survey_with(&mut session, &opts, &mut |e| bar.on(e));
         bar.finish();

@@ -1,9 +1,11 @@
 //! The commands of the `ohmsight` binary, one file each, and the one place where an outcome
 //! becomes an exit code.
 
+mod check;
 mod common;
 mod compare;
 mod history;
+mod limits;
 mod loading;
 mod ports;
 mod refit;
@@ -71,6 +73,16 @@ enum Command {
     /// List serial ports and mark those where a board answers the ohmsight handshake.
     #[command(after_long_help = ports::EXAMPLES)]
     Ports(ports::Args),
+    /// Production check: judge one unit against a limits file; PASS or FAIL, JSON, JUnit XML.
+    ///
+    /// Runs only the experiments the limits need (more only where a limit is still
+    /// undecided), prints one line per pin and the overall result, and stores the run (kind
+    /// check). Exit 0 pass, 1 the unit fails, 2 bad input, 3 the check could not be completed.
+    #[command(after_long_help = check::EXAMPLES)]
+    Check(check::Args),
+    /// Propose a limits file from stored runs of golden units (mean ± K·σ per measurement).
+    #[command(after_long_help = limits::EXAMPLES)]
+    Limits(limits::Args),
 }
 
 /// What kind of failure ended a command: it decides the exit code.
@@ -170,5 +182,7 @@ pub fn run(cli: Cli) -> Result<(), Failure> {
         Command::Loading(args) => loading::run(args),
         Command::Simulate(args) => simulate::run(args),
         Command::Ports(args) => ports::run(args),
+        Command::Check(args) => check::run(args),
+        Command::Limits(args) => limits::run(args),
     }
 }

@@ -1,11 +1,11 @@
 //! `ohmsight survey`: survey a board, print the result, keep the run in the store.
 
-use super::common::{open_run_link, open_session, print, write_output, Bar, DbArgs, LinkArgs};
+use super::common::{open_run_link, open_session, print, write_output, Bar, DbArgs, Keeper, LinkArgs};
 use super::Failure;
 use ohmsight::advice::{advise, AdviceOptions};
 use ohmsight::render::{html::survey_html, survey_json, text::survey_text};
 use ohmsight::run::{resume_with, survey_with, RunEvent, SurveyOptions};
-use ohmsight::store::{PinSummary, Store, StoreError};
+use ohmsight::store::PinSummary;
 use ohmsight::{RunRecord, SurveyReport};
 use std::path::PathBuf;
 
@@ -73,38 +73,6 @@ fn positive_volts(text: &str) -> Result<f64, String> {
     }
 }
 
-/// Writes a run to the store as it happens; after the first failure it writes nothing more
-/// and keeps the error for the end.
-pub(super) struct Keeper {
-    pub store: Box<dyn Store>,
-    pub run_id: Option<String>,
-    pub error: Option<StoreError>,
-}
-
-impl Keeper {
-    pub fn on(&mut self, event: &RunEvent) {
-        if self.error.is_some() {
-            return;
-        }
-        let done = match (event, &self.run_id) {
-            (RunEvent::Began(record), _) => {
-                self.run_id = Some(record.run.id.clone());
-                self.store.begin_run(record)
-            }
-            (RunEvent::Resumed(record), _) => {
-                self.run_id = Some(record.run.id.clone());
-                Ok(())
-            }
-            (RunEvent::Recorded(e), Some(id)) => self.store.add_experiment(id, e),
-            (RunEvent::PinComplete(ch), Some(id)) => self.store.set_pin_complete(id, *ch, true),
-            _ => Ok(()),
-        };
-        if let Err(e) = done {
-            self.error = Some(e);
-        }
-    }
-}
-
 pub fn run(args: Args) -> Result<(), Failure> {
     let mut keeper = if args.no_store {
         None
@@ -113,7 +81,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
             message: format!("{} (or survey with --no-store to keep nothing)", f.message),
             ..f
         })?;
-        Some(Keeper { store, run_id: None, error: None })
+        Some(Keeper::new(store))
     };
     let resume = match (&args.resume, keeper.as_mut()) {
         (Some(id), Some(k)) => {
@@ -180,7 +148,7 @@ pub(super) fn measure(
         Some(record) if !link.given() => open_run_link(record, link.any_version)?,
         _ => open_session(link)?,
     };
-    let opts = SurveyOptions { any_version: link.any_version, channels, context };
+    let opts = SurveyOptions { any_version: link.any_version, channels, context, ..Default::default() };
     let bar = Bar::new(quiet);
     let mut on_event = |e: &RunEvent| {
         bar.on(e);

@@ -41,12 +41,15 @@ pub struct RunRecord {
 }
 
 /// What kind of run a record is.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 #[non_exhaustive]
 pub enum RunKind {
     /// A commissioning survey of every (or the chosen) pins.
+    #[default]
     Survey,
+    /// A production check: only the experiments a limits file needs, judged against it.
+    Check,
 }
 
 impl RunKind {
@@ -54,6 +57,7 @@ impl RunKind {
     pub fn as_str(&self) -> &'static str {
         match self {
             RunKind::Survey => "survey",
+            RunKind::Check => "check",
         }
     }
 
@@ -61,6 +65,7 @@ impl RunKind {
     pub fn parse(name: &str) -> Option<Self> {
         match name {
             "survey" => Some(RunKind::Survey),
+            "check" => Some(RunKind::Check),
             _ => None,
         }
     }

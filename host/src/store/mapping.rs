@@ -1,7 +1,7 @@
 //! The run record to and from rows, written once for both backends over [`Db`].
 
 use super::backend::{i64_to_u64, insert_rows, read, write, Arg, Db, Val};
-use super::{PinSummary, RunFilter, RunListing, Store, StoreError, MIN_PREFIX};
+use super::{CheckSummary, LimitSummary, PinSummary, RunFilter, RunListing, Store, StoreError, MIN_PREFIX};
 use crate::record::{
     BoardRecord, CellRecord, ChannelRecord, ExperimentRecord, ExperimentSpec, FrontEndRecord, LinkRecord, PinRecord,
     PrechargeRecord, Profile, ProfilePrecharge, Purpose, RunKind, RunMeta, RunRecord, RunStats,
@@ -580,6 +580,23 @@ fn filter_clause(filter: &RunFilter) -> Result<(String, Vec<Arg>), StoreError> {
     Ok((clause, args))
 }
 
+/// The columns of `check_limits`, `run_id` first.
+const CHECK_LIMIT_COLUMNS: &[&str] = &[
+    "run_id",
+    "channel",
+    "ordinal",
+    "label",
+    "limit_name",
+    "outcome",
+    "measured",
+    "measured_low",
+    "measured_high",
+    "limit_low",
+    "limit_high",
+    "expected",
+    "measured_text",
+];
+
 fn f64_args(values: &[Option<f64>]) -> impl Iterator<Item = Arg> + '_ {
     values.iter().map(|v| Arg::Real(*v))
 }
@@ -587,6 +604,91 @@ fn f64_args(values: &[Option<f64>]) -> impl Iterator<Item = Arg> + '_ {
 impl<D: Db> Store for SqlStore<D> {
     fn describe(&self) -> String {
         self.db.describe()
+    }
+
+    fn put_check(&mut self, run_id: &str, check: &CheckSummary) -> Result<(), StoreError> {
+        write(&mut self.db, &format!("storing the check of run {run_id}"), |db| {
+            if !run_exists(db, run_id)? {
+                return Err(unknown_run(db, run_id));
+            }
+            db.execute("DELETE FROM check_limits WHERE run_id = $1", &[Arg::text(run_id)])?;
+            db.execute("DELETE FROM checks WHERE run_id = $1", &[Arg::text(run_id)])?;
+            db.execute(
+                "INSERT INTO checks (run_id, unit_serial, result, limits_name, limits_file, limits_toml) \
+                 VALUES ($1, $2, $3, $4, $5, $6)",
+                &[
+                    Arg::text(run_id),
+                    Arg::text(&check.unit_serial),
+                    Arg::text(&check.result),
+                    Arg::text(&check.limits_name),
+                    Arg::text(&check.limits_file),
+                    Arg::text(&check.limits_toml),
+                ],
+            )?;
+            let rows: Vec<Vec<Arg>> = check
+                .limits
+                .iter()
+                .enumerate()
+                .map(|(i, l)| {
+                    let mut row = vec![
+                        Arg::int(l.channel),
+                        Arg::Int(Some(i as i64)),
+                        Arg::text(&l.label),
+                        Arg::text(&l.limit),
+                        Arg::text(&l.outcome),
+                    ];
+                    row.extend(f64_args(&l.measured));
+                    row.extend(f64_args(&l.limit_range));
+                    row.push(Arg::opt_text(l.expected.as_deref()));
+                    row.push(Arg::text(&l.measured_text));
+                    row
+                })
+                .collect();
+            insert_rows(db, "check_limits", CHECK_LIMIT_COLUMNS, &[Arg::text(run_id)], &rows)
+        })
+    }
+
+    fn load_check(&mut self, id: &str) -> Result<Option<CheckSummary>, StoreError> {
+        read(&mut self.db, &format!("reading the check of run {id}"), |db| {
+            let full = resolve(db, id)?;
+            let rows = db.query(
+                "SELECT unit_serial, result, limits_name, limits_file, limits_toml FROM checks WHERE run_id = $1",
+                &[Arg::text(&full)],
+            )?;
+            let Some(row) = rows.first() else { return Ok(None) };
+            let mut c = Cols::new(&full, "checks", row);
+            let mut check = CheckSummary {
+                unit_serial: c.text()?,
+                result: c.text()?,
+                limits_name: c.text()?,
+                limits_file: c.text()?,
+                limits_toml: c.text()?,
+                limits: Vec::new(),
+            };
+            let rows = db.query(
+                &format!(
+                    "SELECT {} FROM check_limits WHERE run_id = $1 ORDER BY ordinal",
+                    CHECK_LIMIT_COLUMNS[1..].join(", ")
+                ),
+                &[Arg::text(&full)],
+            )?;
+            for row in &rows {
+                let mut c = Cols::new(&full, "check_limits", row);
+                let channel = c.int::<u8>()?;
+                let _ordinal = c.i64()?;
+                check.limits.push(LimitSummary {
+                    channel,
+                    label: c.text()?,
+                    limit: c.text()?,
+                    outcome: c.text()?,
+                    measured: [c.opt_f64()?, c.opt_f64()?, c.opt_f64()?],
+                    limit_range: [c.opt_f64()?, c.opt_f64()?],
+                    expected: c.opt_text()?,
+                    measured_text: c.text()?,
+                });
+            }
+            Ok(Some(check))
+        })
     }
 
     fn begin_run(&mut self, record: &RunRecord) -> Result<(), StoreError> {

@@ -225,6 +225,52 @@ pub trait Store: Send {
     /// run's experiments: cheap enough to call for every run of a production history. `id` as
     /// for [`Store::load_run`].
     fn load_board(&mut self, id: &str) -> Result<crate::record::BoardRecord, StoreError>;
+
+    /// Writes the outcome of a check run (the `checks` and `check_limits` tables); one
+    /// transaction. Writing it again replaces it.
+    fn put_check(&mut self, run_id: &str, check: &CheckSummary) -> Result<(), StoreError>;
+
+    /// The outcome written by [`Store::put_check`] (`None` for a run with none); `id` as for
+    /// [`Store::load_run`].
+    fn load_check(&mut self, id: &str) -> Result<Option<CheckSummary>, StoreError>;
+}
+
+/// The outcome of a check run, as stored.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CheckSummary {
+    /// The unit's serial (`--unit`, else the board's unit id).
+    pub unit_serial: String,
+    /// `pass`, `fail` or `error`.
+    pub result: String,
+    /// The limits file's `name`.
+    pub limits_name: String,
+    /// Its path.
+    pub limits_file: String,
+    /// Its text.
+    pub limits_toml: String,
+    /// Per pin and limit, in report order.
+    pub limits: Vec<LimitSummary>,
+}
+
+/// One pin's one limit, as stored.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LimitSummary {
+    /// Channel.
+    pub channel: u8,
+    /// Its label.
+    pub label: String,
+    /// The limit's key (`source_ohms`, …).
+    pub limit: String,
+    /// `pass`, `fail` or `undecided`.
+    pub outcome: String,
+    /// Measured value, and the low and high end of its 95% interval.
+    pub measured: [Option<f64>; 3],
+    /// The limit's low and high end.
+    pub limit_range: [Option<f64>; 2],
+    /// What a verdict or hum limit expects, in words.
+    pub expected: Option<String>,
+    /// The measurement in words.
+    pub measured_text: String,
 }
 
 impl fmt::Debug for dyn Store {
