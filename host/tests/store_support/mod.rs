@@ -2,25 +2,6 @@
 //! PostgreSQL server — the one `OHMSIGHT_TEST_POSTGRES` names, else a private throwaway server
 //! started once for this test binary and stopped when it exits.
 
-/// `mod NAME { fn sqlite(); fn postgres(); }` running the body `fn NAME(&TestDb)` on each backend.
-#[allow(unused_macros)] // not every test binary that shares this module runs on both backends
-macro_rules! on_both_backends {
-    ($($name:ident),* $(,)?) => {$(
-        mod $name {
-            #[test]
-            fn sqlite() {
-                super::$name(&crate::store_support::sqlite());
-            }
-            #[test]
-            fn postgres() {
-                if let Some(db) = crate::store_support::postgres() {
-                    super::$name(&db);
-                }
-            }
-        }
-    )*};
-}
-
 use ohmsight::store::{self, DbUrl, Store};
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -31,7 +12,7 @@ use std::time::{Duration, Instant};
 
 /// `mod NAME { fn sqlite(); fn postgres(); }` running the body `fn NAME(&TestDb)` on each
 /// backend, for a test binary with `#[macro_use] mod store_support;` (the PostgreSQL half skips,
-/// loudly, where there is no server).
+/// loudly, where there is no server). Not every test binary that shares this module uses it.
 #[allow(unused_macros)]
 macro_rules! on_both_backends {
     ($($name:ident),* $(,)?) => {$(
