@@ -9,7 +9,7 @@
 //! - [`fit_pins`]: the fits, in parallel;
 //! - [`report`]: verdicts, flags and memory per pin ([`crate::judge`]).
 
-use crate::fit::{fit_pin, Fit, FitInput};
+use crate::fit::{fit_pin_for, Fit, FitInput, Goals};
 use crate::judge::{judge_pin, PinReport, SurveyReport};
 use crate::model::{hum_cell_means_lsb, BoardModel, CellObs, Event, EventClock};
 use crate::noise::{analyse as analyse_noise, NoiseSummary, MAINS_HZ};
@@ -233,6 +233,16 @@ fn node_hum(model: &BoardModel, record: &ExperimentRecord, pin: &PinEvidence) ->
 /// Fits every pin that was fully measured and is not at a rail (in parallel: fits are
 /// independent).
 pub fn fit_pins(model: &BoardModel, pins: &[PinEvidence]) -> Vec<Option<Fit>> {
+    fit_pins_for(model, pins, &|_| Goals::FULL)
+}
+
+/// [`fit_pins`] with each pin's intervals as precise as `goals` asks for its channel (a
+/// check's limits, see [`Goals`]).
+pub fn fit_pins_for(
+    model: &BoardModel,
+    pins: &[PinEvidence],
+    goals: &(dyn Fn(u8) -> Goals + Sync),
+) -> Vec<Option<Fit>> {
     std::thread::scope(|scope| {
         let handles: Vec<_> = pins
             .iter()
@@ -242,7 +252,7 @@ pub fn fit_pins(model: &BoardModel, pins: &[PinEvidence]) -> Vec<Option<Fit>> {
                     if pin.rail.is_some() || !pin.complete {
                         return None;
                     }
-                    fit_pin(&FitInput { board: model, events: &pin.events })
+                    fit_pin_for(&FitInput { board: model, events: &pin.events }, &goals(pin.channel))
                 })
             })
             .collect();

@@ -275,6 +275,10 @@ pub struct Limits {
     pub from_runs: Vec<String>,
     /// The K of mean ± K·σ they were proposed with (informational).
     pub sigma: Option<f64>,
+    /// The mains frequency where the units are tested, Hz (50 or 60), when stated: hum is then
+    /// looked for at that frequency alone, which a short noise record settles (one mains
+    /// period tells a 50 Hz wave from a slope; telling 50 from 60 Hz apart takes 100 ms).
+    pub mains_hz: Option<f64>,
     /// Per pin, in file order.
     pub pins: Vec<PinLimits>,
 }
@@ -288,6 +292,8 @@ pub struct ResolvedPin<'a> {
     pub label: String,
     /// Its limits.
     pub limits: &'a PinLimits,
+    /// The file's mains frequency, Hz, when stated.
+    pub mains_hz: Option<f64>,
 }
 
 #[derive(Deserialize)]
@@ -297,6 +303,7 @@ struct FileToml {
     board: Option<Spanned<String>>,
     from_runs: Option<Vec<String>>,
     sigma: Option<Spanned<Real>>,
+    mains_hz: Option<Spanned<Real>>,
     #[serde(default)]
     pin: Vec<Spanned<PinToml>>,
 }
@@ -393,6 +400,16 @@ impl Ctx<'_> {
 pub fn parse(file: &str, text: &str) -> Result<Limits, LimitsError> {
     let cx = Ctx { file, text };
     let f: FileToml = toml::from_str(text).map_err(|e| cx.err(e.span(), e.message().trim().to_string()))?;
+    let mains_hz = match &f.mains_hz {
+        Some(m) if crate::noise::MAINS_HZ.contains(&m.get_ref().0) => Some(m.get_ref().0),
+        Some(m) => {
+            return Err(cx.err(
+                Some(m.span()),
+                format!("mains_hz = {}: mains is 50 or 60 Hz; leave the key out to look for both", m.get_ref().0),
+            ))
+        }
+        None => None,
+    };
     let sigma = match &f.sigma {
         Some(s) => Some(cx.max(s, "sigma", 100.0, "")?),
         None => None,
@@ -468,6 +485,7 @@ pub fn parse(file: &str, text: &str) -> Result<Limits, LimitsError> {
         board: f.board.map(|b| b.into_inner()),
         from_runs: f.from_runs.unwrap_or_default(),
         sigma,
+        mains_hz,
         pins,
     })
 }
@@ -566,7 +584,12 @@ impl Limits {
                     ),
                 ));
             }
-            out.push(ResolvedPin { channel: found.channel, label: found.label.clone(), limits: p });
+            out.push(ResolvedPin {
+                channel: found.channel,
+                label: found.label.clone(),
+                limits: p,
+                mains_hz: self.mains_hz,
+            });
         }
         Ok(out)
     }
@@ -580,6 +603,9 @@ impl Limits {
         }
         if let Some(k) = self.sigma {
             out.push_str(&format!("sigma = {}\n", number(k)));
+        }
+        if let Some(m) = self.mains_hz {
+            out.push_str(&format!("mains_hz = {}\n", number(m)));
         }
         if !self.from_runs.is_empty() {
             let runs: Vec<String> = self.from_runs.iter().map(|r| quote(r)).collect();
@@ -692,6 +718,7 @@ source_ohms = { low = 1e9 }
         l.pins[0].pin.label = Some("a \"quoted\" label\\".into());
         l.from_runs = vec!["01A".into(), "01B".into()];
         l.sigma = Some(4.0);
+        l.mains_hz = Some(60.0);
         let again = parse("l.toml", &l.to_toml()).unwrap();
         let strip = |mut l: Limits| {
             l.pins.iter_mut().for_each(|p| p.line = 0);
@@ -702,7 +729,8 @@ source_ohms = { low = 1e9 }
 
     #[test]
     fn errors_name_line_and_fix() {
-        let cases: [(&str, usize, &str); 8] = [
+        let cases: [(&str, usize, &str); 9] = [
+            ("name = \"x\"\nmains_hz = 55\n[[pin]]\nchannel = 0\nhum = false\n", 2, "50 or 60"),
             ("name = \"x\"\n[[pin]]\nchannel = 0\nsource_ohm = [1, 2]\n", 4, "unknown field"),
             ("name = \"x\"\n[[pin]]\nchannel = 0\nsource_ohms = [52e3, 40e3]\n", 4, "swap"),
             ("name = \"x\"\n[[pin]]\nchannel = 0\nnode_farads = [-1e-12, 5e-12]\n", 4, "impossible"),

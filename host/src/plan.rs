@@ -219,58 +219,47 @@ impl Plan {
     /// decides most limits (fewer repeats, period sweeps up to [`QUICK_LONGEST_PERIOD_NS`]). A
     /// pin whose limits it leaves open gets the full detail afterwards.
     pub fn quick_detail(&self, model: &BoardModel, pin: u8, screen: &ScreenResult) -> Vec<Experiment> {
-        self.detail(model, pin, screen)
-            .into_iter()
-            .map(|exp| match exp {
-                Experiment::PrechargeSweep {
-                    target,
-                    precharges,
-                    precharge_sample,
-                    samples,
-                    rest_ns,
-                    settle_ns,
-                    ..
-                } => Experiment::PrechargeSweep {
-                    target,
-                    precharges,
-                    precharge_sample,
-                    samples,
-                    repeats: 8,
-                    rest_ns,
-                    settle_ns,
-                },
-                Experiment::PeriodSweep {
-                    target,
-                    precharge,
-                    precharge_sample,
-                    sample,
-                    periods_ns,
-                    repeats,
-                    settle_ns,
-                } => {
+        let mut out = self.detail(model, pin, screen);
+        for exp in &mut out {
+            match exp {
+                Experiment::PrechargeSweep { repeats, .. } => *repeats = 8,
+                Experiment::PeriodSweep { periods_ns, repeats, .. } => {
                     let mut short: HVec<u32, { ohmsight_protocol::MAX_PERIODS }> = HVec::new();
                     for p in periods_ns.iter().map(|&p| p.min(QUICK_LONGEST_PERIOD_NS)) {
                         if short.last().is_none_or(|&l| p > l) {
                             let _ = short.push(p);
                         }
                     }
-                    Experiment::PeriodSweep {
-                        target,
-                        precharge,
-                        precharge_sample,
-                        sample,
-                        periods_ns: short,
-                        repeats: (repeats / 4).max(4),
-                        settle_ns,
-                    }
+                    *periods_ns = short;
+                    *repeats = (*repeats / 4).max(4);
                 }
-                other => other,
-            })
-            .collect()
+                _ => {}
+            }
+        }
+        out
+    }
+
+    /// A check's second pass at a pin whose limits the first left open: the survey's
+    /// [`Plan::detail`] with a third of its period-sweep repeats (at least 4; the long droop
+    /// runs keep theirs). The long periods are what the first pass lacks (they show an open
+    /// node, or a source behind a large one); the first pass's cells are fitted with these, so
+    /// few repeats are needed.
+    pub fn check_detail(&self, model: &BoardModel, pin: u8, screen: &ScreenResult) -> Vec<Experiment> {
+        let mut out = self.detail(model, pin, screen);
+        for exp in &mut out {
+            if let Experiment::PeriodSweep { repeats, .. } = exp {
+                if *repeats < 64 {
+                    *repeats = (*repeats / 3).max(4);
+                }
+            }
+        }
+        out
     }
 
     /// A check's short noise record: [`QUICK_NOISE_COUNT`] readings at the survey's 4 kHz
-    /// (three 60 Hz periods, two and a half of 50 Hz), after a short rest.
+    /// (three 60 Hz periods, two and a half of 50 Hz), after a short rest. (The survey's
+    /// noise analysis, which the fit's hum model rests on, looks at both mains frequencies;
+    /// a shorter record leaves it unsure of the hum and widens every interval.)
     pub fn quick_noise(&self, pin: u8) -> Experiment {
         Experiment::NoiseRecord {
             target: pin,

@@ -5,8 +5,9 @@
 //! draws its progress bar from them and the store commits each experiment as it comes, so a
 //! crash or an unplugged cable loses at most the experiment in flight.
 
-use crate::analyse::{board_model, fit_pins, judge_pins, pin_evidence, report, PinEvidence};
+use crate::analyse::{board_model, fit_pins, fit_pins_for, judge_pins, pin_evidence, report, PinEvidence};
 use crate::fit::Fit;
+use crate::fit::Goals;
 use crate::judge::{memory_planned, SurveyReport};
 use crate::link::Link;
 use crate::model::{BoardModel, CellObs};
@@ -550,7 +551,7 @@ fn close<L: Link>(
 }
 
 /// What a check needs measured on one pin.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub struct PinNeeds {
     /// The channel.
     pub channel: u8,
@@ -558,6 +559,8 @@ pub struct PinNeeds {
     pub fit: bool,
     /// A noise record (noise, hum).
     pub noise: bool,
+    /// How precise the fit's intervals must be (the values the pin's limits turn on).
+    pub goals: Goals,
 }
 
 /// A production check: only what `needs` asks of each pin, in two passes.
@@ -637,7 +640,8 @@ pub fn check_with<L: Link>(
     let analysing = Instant::now();
     let model = runner.model.clone();
     let evidence = pin_evidence(&runner.record, &model);
-    let mut fits = fit_pins(&model, &evidence);
+    let goals = |ch: u8| wanted.iter().find(|w| w.channel == ch).map_or(Goals::FULL, |w| w.goals);
+    let mut fits = fit_pins_for(&model, &evidence, &goals);
     let mut analysis_seconds = analysing.elapsed().as_secs_f64();
     // Pass 2: the survey's own experiments where a decision is still open.
     if fault.is_none() {
@@ -647,7 +651,7 @@ pub fn check_with<L: Link>(
         analysis_seconds += analysing.elapsed().as_secs_f64();
         for need in &again {
             let Some(Some(sc)) = screens.get(&need.channel) else { continue };
-            let exps: Vec<Experiment> = if need.fit { plan.detail(&model, need.channel, sc) } else { Vec::new() };
+            let exps: Vec<Experiment> = if need.fit { plan.check_detail(&model, need.channel, sc) } else { Vec::new() };
             runner.plan_more(exps.len() as i64 + i64::from(need.noise));
             let pass = exps
                 .into_iter()
@@ -666,7 +670,7 @@ pub fn check_with<L: Link>(
             let analysing = Instant::now();
             let evidence = pin_evidence(&runner.record, &model);
             let refit: Vec<bool> = evidence.iter().map(|e| again.iter().any(|a| a.channel == e.channel)).collect();
-            fits = refit_some(&model, &evidence, fits, &refit);
+            fits = refit_some(&model, &evidence, fits, &refit, &goals);
             analysis_seconds += analysing.elapsed().as_secs_f64();
         }
     }
@@ -679,9 +683,15 @@ pub fn check_with<L: Link>(
 }
 
 /// Fits again the pins marked in `which` (in parallel), keeping the other fits.
-fn refit_some(model: &BoardModel, pins: &[PinEvidence], fits: Vec<Option<Fit>>, which: &[bool]) -> Vec<Option<Fit>> {
+fn refit_some(
+    model: &BoardModel,
+    pins: &[PinEvidence],
+    fits: Vec<Option<Fit>>,
+    which: &[bool],
+    goals: &(dyn Fn(u8) -> Goals + Sync),
+) -> Vec<Option<Fit>> {
     let chosen: Vec<PinEvidence> = pins.iter().zip(which).filter(|(_, w)| **w).map(|(p, _)| p.clone()).collect();
-    let mut new = fit_pins(model, &chosen).into_iter();
+    let mut new = fit_pins_for(model, &chosen, goals).into_iter();
     fits.into_iter().zip(which).map(|(old, w)| if *w { new.next().flatten() } else { old }).collect()
 }
 

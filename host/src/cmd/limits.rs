@@ -187,7 +187,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
             .and_then(|ivs| proposed(&ivs, k));
         if !rail {
             let noise = shared(&reports, ch, "noise", |s, r| {
-                pin_noise(s, r).map(|n| Interval {
+                pin_noise(s, r, None).map(|n| Interval {
                     estimate: Some(n.rms_lsb[0]),
                     low: Some(n.rms_lsb[1]),
                     high: Some(n.rms_lsb[2]),
@@ -195,7 +195,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
             })?;
             l.noise_lsb_max = noise.as_deref().and_then(|ivs| proposed(ivs, k)).and_then(|r| r.high);
             let hum = shared(&reports, ch, "hum", |s, r| {
-                pin_noise(s, r).map(|n| Interval {
+                pin_noise(s, r, None).map(|n| Interval {
                     estimate: Some(n.hum_lsb[0]),
                     low: Some(n.hum_lsb[1]),
                     high: Some(n.hum_lsb[2]),
@@ -230,6 +230,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
         board: Some(first.record.board.name.clone()),
         from_runs: reports.iter().map(|(id, _)| id.clone()).collect(),
         sigma: Some(k),
+        mains_hz: None,
         pins,
     };
     let text = format!(

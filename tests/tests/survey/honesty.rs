@@ -176,3 +176,48 @@ fn advice_and_scan_plan_tell_one_story() {
         }
     }
 }
+
+/// A production check's fits stop refining an interval end once no limit can change side
+/// ([`ohmsight::fit::Goals`]). What they report must hold what the survey's full search
+/// reports: an end as far out or farther, a side the survey leaves open left open. On this
+/// board's hard cases (a hidden node, hum, open pins behind 100 nF) and for limits that cut
+/// through the intervals, they must do so with fewer model evaluations.
+#[test]
+fn a_checks_quicker_intervals_hold_the_surveys() {
+    use ohmsight::analyse::{board_model, pin_evidence};
+    use ohmsight::fit::{fit_pin_for, FitInput, Goals};
+    let r = board();
+    let model = board_model(&r.record);
+    let (mut quick_evals, mut full_evals) = (0, 0);
+    for ev in pin_evidence(&r.record, &model).iter().filter(|e| e.rail.is_none()) {
+        let Some(full) = pin(r, ev.channel).fit.clone() else { continue };
+        // Limits at ±20% of the survey's estimate (or of its bound): they cut near the ends.
+        let centre = full.source_ohms.estimate.or(full.source_ohms.low).or(full.source_ohms.high).unwrap_or(1e4);
+        let goals =
+            Goals { decide_only: true, source_ohms: [Some(centre / 1.2), Some(centre * 1.2)], node_farads: [None; 2] };
+        let quick = fit_pin_for(&FitInput { board: &model, events: &ev.events }, &goals).expect("fits");
+        let (q, f) = (quick.source_ohms, full.source_ohms);
+        let why = format!("ch{}: quick {} against the survey's {}", ev.channel, show(&q), show(&f));
+        // Within 3% (the survey's bisection stops within a tenth of a Wald width).
+        match (q.low, f.low) {
+            (Some(ql), Some(fl)) => assert!(ql <= fl * 1.03, "{why}"),
+            (Some(_), None) => panic!("a side the survey leaves open is closed: {why}"),
+            _ => {}
+        }
+        match (q.high, f.high) {
+            (Some(qh), Some(fh)) => assert!(qh >= fh / 1.03, "{why}"),
+            (Some(_), None) if quick.assumes_node_below.is_none() => {
+                panic!("a side the survey leaves open is closed: {why}")
+            }
+            _ => {}
+        }
+        assert!(
+            quick.node_farads.low.is_none() && quick.node_farads.high.is_none(),
+            "no node limit, no node claim: {why}"
+        );
+        quick_evals += quick.evaluations;
+        full_evals += full.evaluations;
+    }
+    println!("model evaluations: {quick_evals} for the check's fits, {full_evals} for the survey's");
+    assert!(quick_evals * 2 < full_evals, "{quick_evals} against {full_evals}");
+}
