@@ -345,16 +345,27 @@ pub fn judge(pins: &[ResolvedPin<'_>], report: &SurveyReport) -> Vec<PinCheck> {
                             limit_low: None,
                             limit_high: None,
                             expected: Some(want.as_str().into()),
-                            measured_text: verdict.as_str().into(),
+                            measured_text: match r.and_then(|r| r.source_assumes_node_below) {
+                                Some(c) => format!("{} (if C < {})", verdict.as_str(), units::farads(c)),
+                                None => verdict.as_str().into(),
+                            },
                             limit_text: want.as_str().into(),
                         }
                     }
-                    LimitKind::SourceOhms => number(
-                        kind,
-                        r.filter(|r| r.verdict != Verdict::Unknown).map(|r| r.source_ohms),
-                        l.source_ohms.unwrap_or(Range { low: None, high: None }),
-                        units::ohms,
-                    ),
+                    LimitKind::SourceOhms => {
+                        let mut res = number(
+                            kind,
+                            r.filter(|r| r.verdict != Verdict::Unknown).map(|r| r.source_ohms),
+                            l.source_ohms.unwrap_or(Range { low: None, high: None }),
+                            units::ohms,
+                        );
+                        // A stiff pin's bound holds only for a node below the stated size: the
+                        // readings could not show the node. Say so wherever the result is read.
+                        if let Some(c) = r.and_then(|r| r.source_assumes_node_below) {
+                            res.measured_text.push_str(&format!(" if C < {}", units::farads(c)));
+                        }
+                        res
+                    }
                     LimitKind::SourceVolts => number(
                         kind,
                         r.and_then(|r| volts_interval(r, report.model.vref_volts)),
@@ -549,8 +560,23 @@ impl CheckReport {
         for p in &self.pins {
             let failing: Vec<String> =
                 p.limits.iter().filter(|l| l.outcome != Outcome::Pass).map(LimitResult::sentence).collect();
+            let assumed = self
+                .survey
+                .pins
+                .iter()
+                .find(|r| r.channel == p.channel)
+                .and_then(|r| r.source_assumes_node_below)
+                .filter(|_| p.limits.iter().any(|l| matches!(l.kind, LimitKind::Verdict | LimitKind::SourceOhms)));
             let detail = if failing.is_empty() {
-                format!("{} limit{}", p.limits.len(), if p.limits.len() == 1 { "" } else { "s" })
+                format!(
+                    "{} limit{}{}",
+                    p.limits.len(),
+                    if p.limits.len() == 1 { "" } else { "s" },
+                    assumed.map_or(String::new(), |c| format!(
+                        " (a stiff source: shown for a node below {}, which the readings cannot size)",
+                        units::farads(c)
+                    ))
+                )
             } else {
                 failing.join("; ")
             };

@@ -239,3 +239,37 @@ fn a_board_that_never_answers_is_no_verdict_exit_3_and_stays_stored() {
         libc::close(slave);
     }
 }
+
+/// A stiff buffer (100 Ω behind 10 pF) settles within the shortest sample time, so its readings
+/// bound the source only for a node below a stated size: a check that passes on that bound
+/// says so on the pin's line and in the JSON, and a `mains_hz` file is accepted.
+#[test]
+fn a_pass_on_a_stiff_sources_bound_states_its_assumption() {
+    let dir = temp_dir("stiff");
+    let db = dir.join("runs.db").display().to_string();
+    let sc = dir.join("buffer.toml");
+    std::fs::write(
+        &sc,
+        "name = \"buffered reference\"\nseed = 3\n[[pin]]\nchannel = 0\nlabel = \"buffer\"\nvolts = 0.3\nohms = 100\nnode_farads = 10e-12\n",
+    )
+    .unwrap();
+    let limits = dir.join("limits.toml");
+    std::fs::write(
+        &limits,
+        "name = \"buffer\"\nmains_hz = 50\n[[pin]]\nchannel = 0\nverdict = \"driven\"\nsource_ohms = { high = 5e3 }\nhum = false\n",
+    )
+    .unwrap();
+    let out = ohmsight(&db).args(["check", "--scenario"]).arg(&sc).arg("--limits").arg(&limits).output().unwrap();
+    assert_eq!(out.status.code(), Some(0), "{}{}", stdout(&out), stderr(&out));
+    let line = stdout(&out).lines().find(|l| l.starts_with("ch0")).unwrap_or_default().to_string();
+    assert!(line.contains("PASS") && line.contains("node below 2.00 µF"), "{line}");
+    let out =
+        ohmsight(&db).args(["check", "--json", "--scenario"]).arg(&sc).arg("--limits").arg(&limits).output().unwrap();
+    let doc: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let pin_limits = doc["pins"][0]["limits"].as_array().unwrap();
+    for key in ["verdict", "source_ohms"] {
+        let l = pin_limits.iter().find(|l| l["limit"] == key).unwrap();
+        assert_eq!(l["outcome"], "pass", "{l}");
+        assert!(l["measured_text"].as_str().unwrap().contains("if C < 2.00 µF"), "{l}");
+    }
+}

@@ -40,7 +40,7 @@ pub struct Args {
     /// Stored runs of golden units (ids or unique prefixes), at least two.
     #[arg(long = "from", value_name = "RUN_ID", num_args = 1.., required = true)]
     from: Vec<String>,
-    /// K in mean ± K·σ.
+    /// K in mean ± (K·σ + the runs' own largest 95% half-width).
     #[arg(long, value_name = "K", default_value_t = 4.0, value_parser = positive)]
     sigma: f64,
     /// Write the limits file here instead of stdout.
