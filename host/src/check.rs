@@ -318,8 +318,15 @@ pub fn pin_noise(report: &SurveyReport, r: &PinReport, mains_hz: Option<f64>) ->
             crate::record::ExperimentSpec::NoiseRecord { period_ns, .. } => Some(period_ns),
             _ => None,
         })?;
-    let mains = mains_hz.map_or(crate::noise::MAINS_HZ.to_vec(), |m| vec![m]);
-    record_noise(&r.noise_codes, f64::from(period_ns) * 1e-9, &mains)
+    let known;
+    let mains: &[f64] = match mains_hz {
+        Some(hz) => {
+            known = [hz];
+            &known
+        }
+        None => &crate::noise::MAINS_HZ,
+    };
+    record_noise(&r.noise_codes, f64::from(period_ns) * 1e-9, mains)
 }
 
 /// Judges each resolved pin against its limits on the measured report.

@@ -174,8 +174,6 @@ struct Problem<'a> {
     prior_sigma: [f64; N_THETA],
     scratch: RefCell<Vec<f64>>,
     evaluations: RefCell<usize>,
-    /// Levenberg–Marquardt's convergence tolerance.
-    tol: f64,
     /// A check's fit ([`Goals::decide_only`]): a profile point already inside the threshold
     /// from its warm start is not searched further.
     decide: bool,
@@ -224,7 +222,6 @@ impl<'a> Problem<'a> {
             prior_sigma,
             scratch: RefCell::new(Vec::new()),
             evaluations: RefCell::new(0),
-            tol: LM_TOL,
             decide: false,
             stalled: std::cell::Cell::new(false),
             patience: LM_PATIENCE,
@@ -351,8 +348,8 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
 }
 
 fn minimize(p: Problem<'_>) -> Problem<'_> {
-    let (tol, patience) = (p.tol, p.patience);
-    let (p, report) = LevenbergMarquardt::new().with_patience(patience).with_tol(tol).minimize(p);
+    let tol = if p.decide { LM_TOL_DECIDE } else { LM_TOL };
+    let (p, report) = LevenbergMarquardt::new().with_patience(p.patience).with_tol(tol).minimize(p);
     if report.termination == levenberg_marquardt::TerminationReason::LostPatience {
         p.stalled.set(true);
     }
@@ -396,7 +393,6 @@ pub fn fit_pin<'a>(input: &'a FitInput<'a>) -> Option<Fit> {
 /// nothing to fit.
 pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
     let mut p = Problem::new(input);
-    p.tol = if goals.decide_only { LM_TOL_DECIDE } else { LM_TOL };
     p.decide = goals.decide_only;
     if p.obs.len() < 4 {
         return None;
@@ -755,14 +751,12 @@ fn profile_edge<'a>(
     // Bisect to a tenth of the Wald width (at least 1% in the log).
     let tol = if sigma.is_finite() { (0.1 * sigma).clamp(0.01, 0.05) } else { 0.02 };
     let mut result = None;
-    let decided = |inside: f64, out: f64| points.map(|pts| !pts.iter().any(|&x| (x - inside) * (x - out) < 0.0));
+    // With decision points: whether none lies between the last value inside and the first
+    // outside, so that no bisection step could move one of them to the other side.
+    let decided =
+        |inside: f64, out: f64| points.is_some_and(|pts| !pts.iter().any(|&x| (x - inside) * (x - out) < 0.0));
     if let Some(mut out) = outside {
-        if decided(inside, out) == Some(true) {
-            p.free = saved_free;
-            p.theta = theta;
-            return (p, Some(out));
-        }
-        while (out - inside).abs() > tol {
+        while (out - inside).abs() > tol && !decided(inside, out) {
             let mid = (inside + out) / 2.0;
             let (q, obj, t) = profile_at(p, i, mid, warm, threshold);
             p = q;
@@ -771,9 +765,6 @@ fn profile_edge<'a>(
                 warm = t;
             } else {
                 out = mid;
-            }
-            if decided(inside, out) == Some(true) {
-                break;
             }
         }
         result = Some(if points.is_some() { out } else { (inside + out) / 2.0 });

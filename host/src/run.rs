@@ -6,8 +6,7 @@
 //! crash or an unplugged cable loses at most the experiment in flight.
 
 use crate::analyse::{board_model, fit_pins, fit_pins_for, judge_pins, pin_evidence, report, PinEvidence};
-use crate::fit::Fit;
-use crate::fit::Goals;
+use crate::fit::{Fit, Goals};
 use crate::judge::{memory_planned, SurveyReport};
 use crate::link::Link;
 use crate::model::{BoardModel, CellObs};

@@ -156,17 +156,17 @@ fn bench_check(sc: &Scenario, surveyed: &ohmsight::SurveyReport) -> Result<()> {
 /// its last fit spent, to show where a check's time goes.
 fn breakdown(report: &ohmsight::SurveyReport) -> Result<()> {
     let record = &report.record;
+    let secs = |e: &ohmsight::record::ExperimentRecord| e.end_ps.saturating_sub(e.start_ps) as f64 * 1e-12;
     println!("  per pin          board s  conversions  experiments  evaluations");
     for pin in &report.pins {
         let exps: Vec<_> = record.experiments.iter().filter(|e| e.pin == Some(pin.channel)).collect();
-        let board: f64 = exps.iter().map(|e| e.end_ps.saturating_sub(e.start_ps) as f64 * 1e-12).sum();
+        let board: f64 = exps.iter().map(|e| secs(e)).sum();
         let conv: u64 = exps.iter().map(|e| u64::from(e.conversions)).sum();
         let evals = pin.fit.as_ref().map_or(0, |f| f.evaluations);
         println!("    ch{:<2}           {board:>7.3}  {conv:>11}  {:>11}  {evals:>11}", pin.channel, exps.len());
         if std::env::var_os("BENCH_DETAIL").is_some() {
             for e in &exps {
-                let secs = e.end_ps.saturating_sub(e.start_ps) as f64 * 1e-12;
-                println!("        {:?} {secs:.4} s {} conv  {:?}", e.purpose, e.conversions, e.experiment);
+                println!("        {:?} {:.4} s {} conv  {:?}", e.purpose, secs(e), e.conversions, e.experiment);
             }
         }
     }
