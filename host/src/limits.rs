@@ -275,9 +275,9 @@ pub struct Limits {
     pub from_runs: Vec<String>,
     /// The K of mean ± K·σ they were proposed with (informational).
     pub sigma: Option<f64>,
-    /// The mains frequency where the units are tested, Hz (50 or 60), when stated: hum is then
-    /// looked for at that frequency alone, which a short noise record settles (one mains
-    /// period tells a 50 Hz wave from a slope; telling 50 from 60 Hz apart takes 100 ms).
+    /// The mains frequency where the units are tested, Hz (50 or 60), when stated: one mains
+    /// at a time, so each line is fitted alone ([`crate::check::record_noise_for`]), which a
+    /// short noise record settles (telling 50 from 60 Hz apart in one fit takes 100 ms).
     pub mains_hz: Option<f64>,
     /// Per pin, in file order.
     pub pins: Vec<PinLimits>,

@@ -21,9 +21,9 @@ where a verdict, source resistance or voltage, node capacitance or settling time
 a 50 ms noise record where noise or hum is. A limit whose 95% interval still straddles its
 edge gets the survey's long settling experiments (or its long noise record, for a noise or hum
 limit) on that pin, once. Intervals are searched only as far as the limits need: each end is
-reported at a value shown to lie outside the interval, so it holds the survey's. Name the
-mains where the units are tested (mains_hz = 50 or 60 in the limits file) and hum is judged
-at that frequency alone, which the short record settles.
+reported at a value shown to lie outside the interval, so it holds the survey's. With
+mains_hz = 50 or 60 in the limits file (one mains frequency at a time), each mains line is
+fitted alone and the larger judged, which the short record settles.
 
 A limit passes only when the measurement's whole 95% interval lies inside it and fails when
 the interval lies wholly outside; an interval that still straddles the edge is `undecided`,
