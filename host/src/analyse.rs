@@ -52,6 +52,9 @@ pub struct PinEvidence {
     pub noise: Option<NoiseSummary>,
     /// The memory test.
     pub swap: Option<Swap>,
+    /// The loading burst, where one ran (after the memory test: nothing the fit replays
+    /// follows it).
+    pub burst: Option<crate::burst::Burst>,
     /// Conversions spent on the pin (runs without records included).
     pub conversions: u64,
     /// The survey steps with at least one experiment on the pin.
@@ -85,9 +88,11 @@ fn cell_spans_s(model: &BoardModel, exp: &Experiment) -> Vec<f64> {
     let Ok(steps) = Steps::new(exp, model.timing()) else { return Vec::new() };
     let total = steps.nominal_ps() as f64 * 1e-12;
     match exp {
-        Experiment::PeriodSweep { periods_ns, repeats, .. } => {
+        Experiment::PeriodSweep { periods_ns, repeats, precharge_sample, sample, .. } => {
             // Each block runs `repeats` pairs, one per period (or back to back).
-            let pair_s = |p: u32| f64::from(p).max(1.0) * 1e-9;
+            let timing = model.timing();
+            let busy_s = (timing.busy_ps(*precharge_sample) + timing.busy_ps(*sample)) as f64 * 1e-12;
+            let pair_s = |p: u32| (f64::from(p) * 1e-9).max(busy_s);
             periods_ns.iter().map(|&p| f64::from(*repeats) * pair_s(p)).collect()
         }
         _ => vec![total; usize::from(steps.cells())],
@@ -111,6 +116,7 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 noise_codes: Vec::new(),
                 noise: None,
                 swap: None,
+                burst: None,
                 conversions: 0,
                 purposes: Vec::new(),
             };
@@ -137,6 +143,13 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                     hum_at_steps: None,
                 };
                 end_ps = Some(e.end_ps.max(e.start_ps));
+                if e.purpose == Purpose::Load {
+                    if e.received {
+                        ev.burst =
+                            Some(crate::burst::Burst { event, cells, hum_lsb: None, coherent_var_lsb2: Vec::new() });
+                    }
+                    continue;
+                }
                 if e.purpose == Purpose::Memory {
                     ev.memory_events.push(event);
                 } else {
@@ -176,6 +189,11 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 for event in &mut ev.memory_events {
                     event.set_hum(model, hum.clone());
                 }
+                if let Some(b) = ev.burst.as_mut() {
+                    b.event.set_hum(model, hum.clone());
+                    b.hum_lsb = hum_cell_means_lsb(model, &b.event);
+                    b.coherent_var_lsb2 = vec![var; b.cells.len()];
+                }
                 // The order swap compares cells read at different moments of the hum: take the
                 // hum out of them before they are compared.
                 let swap_hum = ev.memory_events.last().and_then(|e| hum_cell_means_lsb(model, e));
@@ -196,6 +214,9 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 };
                 for event in &mut ev.events {
                     event.coherent_var_lsb2 = cell_spans_s(model, &event.experiment).into_iter().map(hum_var).collect();
+                }
+                if let Some(b) = ev.burst.as_mut() {
+                    b.coherent_var_lsb2 = cell_spans_s(model, &b.event.experiment).into_iter().map(hum_var).collect();
                 }
             }
             ev

@@ -56,8 +56,8 @@ pub fn more_wanted(pins: &[ResolvedPin<'_>], first: &SurveyReport) -> Vec<PinNee
         .iter()
         .filter_map(|pc| {
             let r = first.pins.iter().find(|r| r.channel == pc.channel)?;
-            // (The memory test is no part of a check.)
-            if r.not_measured.iter().any(|w| *w != "memory") || r.verdict == Verdict::AtRail {
+            // (The memory test and the loading burst are no part of a check.)
+            if r.not_measured.iter().any(|w| !matches!(*w, "memory" | "load")) || r.verdict == Verdict::AtRail {
                 return None;
             }
             let open = |kinds: &[LimitKind]| {

@@ -112,7 +112,7 @@ pub struct PinReport {
     /// Hardware channel.
     pub channel: u8,
     /// What the survey set out to measure on this pin and did not (a run cut short): `screen`,
-    /// `detail`, `noise`, `memory`. Nothing is claimed about what is listed here.
+    /// `detail`, `noise`, `memory`, `load`. Nothing is claimed about what is listed here.
     pub not_measured: Vec<&'static str>,
     /// Label from the board.
     pub label: String,
@@ -143,6 +143,8 @@ pub struct PinReport {
     pub noise_codes: Vec<u16>,
     /// Memory of the previous channel.
     pub memory: Option<Memory>,
+    /// What the loading burst showed of a stiff pin's bound, where one ran.
+    pub load: Option<crate::burst::LoadTest>,
     /// The fit, where one was made.
     pub fit: Option<Fit>,
     /// Conversions spent on this pin.
@@ -200,6 +202,11 @@ pub fn judge_pin(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>, run_co
     } else if !run_complete && memory_planned(&r) {
         r.not_measured.push("memory");
     }
+    if let Some(burst) = pin.burst.as_ref().filter(|_| pin.complete) {
+        load_test(model, burst, &mut r);
+    } else if pin.complete && !run_complete && load_planned(&r) {
+        r.not_measured.push("load");
+    }
     r.conversions = pin.conversions;
     r.events = pin.events.iter().chain(&pin.memory_events).cloned().collect();
     r.noise_codes = pin.noise_codes.clone();
@@ -212,6 +219,44 @@ pub fn judge_pin(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>, run_co
 /// without a fit).
 pub fn memory_planned(r: &PinReport) -> bool {
     r.verdict != Verdict::AtRail || r.fit.is_some()
+}
+
+/// Whether a judged pin gets a loading burst: a stiff pin whose source bound assumes a node
+/// below some size ([`crate::burst`]).
+pub fn load_planned(r: &PinReport) -> bool {
+    matches!(r.verdict, Verdict::Driven | Verdict::AtRail) && r.source_assumes_node_below.is_some() && r.fit.is_some()
+}
+
+/// Puts a stiff pin's bound to its loading burst: a drift that no network within the bound's
+/// assumption shows makes the pin `unknown` (an open pin behind a large node, or a large source
+/// behind it); otherwise the burst's reach is added to the reason.
+fn load_test(model: &BoardModel, burst: &crate::burst::Burst, r: &mut PinReport) {
+    if !load_planned(r) {
+        return;
+    }
+    let (Some(assumed), Some(high), Some(fit)) = (r.source_assumes_node_below, r.source_ohms.high, r.fit.as_ref())
+    else {
+        return;
+    };
+    let Some(t) = crate::burst::assess(model, burst, &fit.params, high, assumed) else { return };
+    let words = crate::burst::describe(&t, high, assumed);
+    if t.refuted {
+        r.verdict = Verdict::Unknown;
+        r.source_ohms = Interval { estimate: None, low: None, high: None };
+        r.node_farads = Interval { estimate: None, low: None, high: None };
+        r.source_assumes_node_below = None;
+        r.source_volts = None;
+        r.min_sample_index = None;
+        r.min_sample_ns = None;
+        r.flags.retain(|f| *f != Flag::UnderSettled);
+        r.reason = Some(words);
+    } else {
+        r.reason = Some(match r.reason.take() {
+            Some(before) => format!("{before}; {words}"),
+            None => words,
+        });
+    }
+    r.load = Some(t);
 }
 
 /// The memory of the previous channel from an order swap's cells
@@ -255,6 +300,7 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         noise: None,
         noise_codes: Vec::new(),
         memory: None,
+        load: None,
         fit: None,
         conversions: 0,
         events: Vec::new(),

@@ -9,7 +9,7 @@
 //! | record | [`record`] | the typed, versioned run record and its JSON documents |
 //! | model and fit | [`model`], [`fit`], [`noise`] | the sampling network's forward model, the fit, noise records |
 //! | analyse | [`analyse`] | a record's pins rebuilt, fitted and judged (live and `refit` alike) |
-//! | judge | [`judge`] | verdicts, flags, settling, memory |
+//! | judge | [`judge`], [`burst`] | verdicts, flags, settling, memory; a stiff pin's bound put to the test |
 //! | advise | [`advice`], [`loading`] | sample times, fixes, the scan plan; instrument loading |
 //! | render | [`render`] | text, JSON, HTML |
 //! | compare | [`compare`] | what changed on a unit between two analysed runs, and what it likely means |
@@ -20,6 +20,7 @@
 //! [`simulate`] and [`ports`] (serial tools), [`output`] (writing the files a user names), [`units`].
 pub mod advice;
 pub mod analyse;
+pub mod burst;
 pub mod check;
 pub mod compare;
 pub mod faulty;

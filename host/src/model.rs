@@ -190,6 +190,21 @@ pub struct Event {
 }
 
 impl Event {
+    /// An experiment on `target` whose cells a prediction should give, with no clock or hum,
+    /// after `gap_before_ps` of rest.
+    pub fn replay(experiment: Experiment, target: u8, gap_before_ps: u64) -> Self {
+        Event {
+            experiment,
+            target,
+            gap_before_ps,
+            cells: Some(Vec::new()),
+            coherent_var_lsb2: Vec::new(),
+            clock: None,
+            hum: None,
+            hum_at_steps: None,
+        }
+    }
+
     /// Sets the hum the node carries during this event (needs its clock).
     pub fn set_hum(&mut self, board: &BoardModel, hum: std::sync::Arc<Hum>) {
         let Some(clock) = self.clock else { return };

@@ -7,7 +7,7 @@
 
 use crate::analyse::{board_model, fit_pins, fit_pins_for, judge_pins, pin_evidence, report, PinEvidence};
 use crate::fit::{Fit, Goals};
-use crate::judge::{memory_planned, SurveyReport};
+use crate::judge::{load_planned, memory_planned, SurveyReport};
 use crate::link::Link;
 use crate::model::{BoardModel, CellObs};
 use crate::plan::{burst_droop, Plan, PlanError, ScreenResult, Screened};
@@ -481,7 +481,8 @@ fn measure<L: Link>(
         }
     }
 
-    // 4. Fit every pin; 5. verdicts, then the memory test where a pin has a verdict to test.
+    // 4. Fit every pin; 5. verdicts, then the memory test where a pin has a verdict to test;
+    // 6. the loading burst where a stiff pin's bound rests on an assumed node size.
     (runner.on_event)(&RunEvent::Fitting);
     let analysing = Instant::now();
     let model = runner.model.clone();
@@ -490,17 +491,22 @@ fn measure<L: Link>(
     let judged = judge_pins(&model, &evidence, &fits, true);
     let mut analysis_seconds = analysing.elapsed().as_secs_f64();
     if fault.is_none() {
-        let wanted: Vec<_> = judged
-            .iter()
-            .zip(&evidence)
-            .filter(|(r, ev)| ev.complete && memory_planned(r) && ev.swap.is_none())
-            .map(|(r, _)| r)
-            .collect();
-        runner.plan_more(wanted.len() as i64);
-        for r in wanted {
+        // Per pin, the burst after the memory test: the burst moves a large open node, and
+        // nothing the fit replays comes after it.
+        let mut todo: Vec<(Purpose, u8, Experiment)> = Vec::new();
+        for (r, ev) in judged.iter().zip(&evidence).filter(|(_, ev)| ev.complete) {
             let level = r.source_volts.map(|v| volts_to_lsb(v, model.vref_volts, model.bits)).unwrap_or(0.0);
-            let exp = plan.memory(&model, r.channel, r.min_sample_index, level);
-            if let Err(e) = runner.run(Purpose::Memory, Some(r.channel), exp) {
+            if memory_planned(r) && ev.swap.is_none() {
+                todo.push((Purpose::Memory, r.channel, plan.memory(&model, r.channel, r.min_sample_index, level)));
+            }
+            if load_planned(r) && ev.burst.is_none() {
+                let far = plan.far_from(&model, level);
+                todo.push((Purpose::Load, r.channel, crate::burst::experiment(plan, &model, r.channel, far)));
+            }
+        }
+        runner.plan_more(todo.len() as i64);
+        for (purpose, channel, exp) in todo {
+            if let Err(e) = runner.run(purpose, Some(channel), exp) {
                 fault = Some(e.to_string());
                 break;
             }

@@ -388,6 +388,8 @@ pub enum Purpose {
     Noise,
     /// The order swap that measures the memory of the previous channel.
     Memory,
+    /// The loading burst that tests a stiff pin's bound ([`crate::burst`]).
+    Load,
 }
 
 impl Purpose {
@@ -399,12 +401,13 @@ impl Purpose {
             Purpose::Detail => "detail",
             Purpose::Noise => "noise",
             Purpose::Memory => "memory",
+            Purpose::Load => "load",
         }
     }
 
     /// The purpose of a stored name.
     pub fn parse(name: &str) -> Option<Self> {
-        [Purpose::PrechargeLevel, Purpose::Screen, Purpose::Detail, Purpose::Noise, Purpose::Memory]
+        [Purpose::PrechargeLevel, Purpose::Screen, Purpose::Detail, Purpose::Noise, Purpose::Memory, Purpose::Load]
             .into_iter()
             .find(|p| p.as_str() == name)
     }
@@ -716,7 +719,7 @@ impl ExperimentRecord {
     pub fn fitted(&self) -> bool {
         self.received
             && !matches!(self.experiment, ExperimentSpec::OrderSwap { .. } | ExperimentSpec::NoiseRecord { .. })
-            && self.purpose != Purpose::Memory
+            && !matches!(self.purpose, Purpose::Memory | Purpose::Load)
     }
 }
 

@@ -149,6 +149,24 @@ pub struct MemoryDoc {
     pub coefficient: f64,
 }
 
+/// What a loading burst showed (see the survey's `load` purpose).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct LoadDoc {
+    /// Conversions of the burst.
+    pub conversions: u64,
+    /// Drift toward the precharge from the middle third of the burst to the last, LSB.
+    pub drift_lsb: f64,
+    /// Its standard error, LSB.
+    pub drift_se_lsb: f64,
+    /// The most drift a network within the bound's assumption shows, LSB.
+    pub allowed_lsb: f64,
+    /// Whether the drift refutes the stiff bound (the pin is then `unknown`).
+    pub refuted: bool,
+    /// Refuted: the node of an open pin that drifts as this one did, F; otherwise the largest
+    /// open node the burst would have missed, F.
+    pub open_node_farads: Option<f64>,
+}
+
 /// How well the model fitted.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct FitDoc {
@@ -194,6 +212,9 @@ pub struct Pin {
     pub hum_lsb: Option<HumDoc>,
     /// Memory of the previous channel.
     pub memory: Option<MemoryDoc>,
+    /// The loading burst that tested a stiff pin's bound, where one ran.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub load: Option<LoadDoc>,
     /// The fit's quality.
     pub fit: Option<FitDoc>,
     /// Conversions spent on the pin.
@@ -203,7 +224,7 @@ pub struct Pin {
     /// Every planned experiment before the memory test was measured.
     pub complete: bool,
     /// What the survey set out to measure on this pin and did not (`screen`, `detail`,
-    /// `noise`, `memory`): nothing is claimed about these.
+    /// `noise`, `memory`, `load`): nothing is claimed about these.
     #[serde(default)]
     pub not_measured: Vec<String>,
     /// Every experiment run on this pin, in order.
@@ -287,6 +308,14 @@ fn pin_doc(p: &PinReport, advice: &BoardAdvice, record: &RunRecord) -> Pin {
             shift_lsb: m.shift_lsb,
             shift_se_lsb: m.shift_se_lsb,
             coefficient: m.coefficient,
+        }),
+        load: p.load.as_ref().map(|t| LoadDoc {
+            conversions: t.conversions,
+            drift_lsb: t.drift_lsb,
+            drift_se_lsb: t.se_lsb,
+            allowed_lsb: t.allowed_lsb,
+            refuted: t.refuted,
+            open_node_farads: t.open_farads,
         }),
         fit: p.fit.as_ref().map(|f| FitDoc {
             chi2: f.chi2,

@@ -1194,16 +1194,7 @@ mod tests {
     }
 
     fn event(exp: Experiment) -> Event {
-        Event {
-            experiment: exp,
-            target: 3,
-            gap_before_ps: 1_000_000_000,
-            cells: Some(Vec::new()),
-            coherent_var_lsb2: Vec::new(),
-            clock: None,
-            hum: None,
-            hum_at_steps: None,
-        }
+        Event::replay(exp, 3, 1_000_000_000)
     }
 
     #[test]

@@ -34,7 +34,7 @@ pub fn source_text(p: &PinReport) -> String {
 pub fn min_sample_cell(p: &PinReport) -> String {
     match p.min_sample_ns {
         Some(ns) => units::ns(ns),
-        None if p.not_measured.iter().any(|w| *w != "memory") => "not measured".into(),
+        None if p.not_measured.iter().any(|w| !matches!(*w, "memory" | "load")) => "not measured".into(),
         None if p.verdict == Verdict::Unknown => "—".into(),
         None => "none settles".into(),
     }
