@@ -122,7 +122,7 @@ pub struct PinFacts {
 impl PinFacts {
     /// The facts of a judged pin of `report`.
     pub fn of(report: &SurveyReport, p: &PinReport) -> PinFacts {
-        let none = Interval { estimate: None, low: None, high: None };
+        let none = Interval::NONE;
         let lsb = report.model.lsb_volts();
         let source_volts = match (p.verdict, &p.fit, p.source_volts) {
             (Verdict::Driven | Verdict::AtRail, Some(fit), Some(_)) => {
@@ -193,7 +193,7 @@ fn at_least(iv: Interval, half: f64) -> Interval {
     }
 }
 
-const NO_INTERVAL: Interval = Interval { estimate: None, low: None, high: None };
+const NO_INTERVAL: Interval = Interval::NONE;
 
 /// One side of a change: a value with its 95% interval, and the pin's verdict.
 #[derive(Debug, Clone, PartialEq, Serialize)]

@@ -83,6 +83,11 @@ pub struct Interval {
     pub high: Option<f64>,
 }
 
+impl Interval {
+    /// No estimate and no bound: no claim.
+    pub const NONE: Interval = Interval { estimate: None, low: None, high: None };
+}
+
 /// What a fit's intervals must settle. A survey wants each end of each interval to a tenth of
 /// its width ([`Goals::FULL`]); a production check wants only to know on which side of its
 /// limits each end lies. With `decide_only`, the profile search for an end stops as soon as no
@@ -490,7 +495,7 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
     let (mut p, mut node_farads) = if node_wanted || source_ohms.high.is_none() {
         interval_log(p, theta, LN_CN, s_cn, birge2, &starts, cn_points.as_deref())
     } else {
-        (p, Interval { estimate: None, low: None, high: None })
+        (p, Interval::NONE)
     };
     // A stiff node with nothing to show its size: a large source behind a capacitor larger than
     // the conversions could move explains the readings as well. Bound the source for a node
@@ -521,7 +526,7 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
         p.patience = LM_PATIENCE;
     }
     if !node_wanted {
-        node_farads = Interval { estimate: None, low: None, high: None };
+        node_farads = Interval::NONE;
     }
     let s_vs = var(VS).sqrt();
     let source_volts =

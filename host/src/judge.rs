@@ -186,9 +186,7 @@ pub fn judge_pin(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>, run_co
         r.reason = Some("not surveyed: the survey was cut short before this pin was done".into());
         // No claim on what was not measured: a settling time found from a partial history
         // would be a guess.
-        r.min_sample_index = None;
-        r.min_sample_ns = None;
-        r.flags.retain(|f| *f != Flag::UnderSettled);
+        withdraw_settling(&mut r);
         let has = |purpose| pin.purposes.contains(&purpose);
         use crate::record::Purpose;
         r.not_measured = [(Purpose::Screen, "screen"), (Purpose::Detail, "detail"), (Purpose::Noise, "noise")]
@@ -202,7 +200,8 @@ pub fn judge_pin(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>, run_co
     } else if !run_complete && memory_planned(&r) {
         r.not_measured.push("memory");
     }
-    if let Some(burst) = pin.burst.as_ref().filter(|_| pin.complete) {
+    // (A pin cut short is `unknown` above, and an unknown pin gets no load test.)
+    if let Some(burst) = &pin.burst {
         load_test(model, burst, &mut r);
     } else if pin.complete && !run_complete && load_planned(&r) {
         r.not_measured.push("load");
@@ -213,6 +212,14 @@ pub fn judge_pin(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>, run_co
     r.flags.sort();
     r.flags.dedup();
     r
+}
+
+/// Takes back the pin's settling claims (minimum sample time, under-settled): the evidence for
+/// them is incomplete or refuted.
+fn withdraw_settling(r: &mut PinReport) {
+    r.min_sample_index = None;
+    r.min_sample_ns = None;
+    r.flags.retain(|f| *f != Flag::UnderSettled);
 }
 
 /// Whether the survey tests this pin's memory: a pin with a verdict to test (not a rail read
@@ -242,13 +249,11 @@ fn load_test(model: &BoardModel, burst: &crate::burst::Burst, r: &mut PinReport)
     let words = crate::burst::describe(&t, high, assumed);
     if t.refuted {
         r.verdict = Verdict::Unknown;
-        r.source_ohms = Interval { estimate: None, low: None, high: None };
-        r.node_farads = Interval { estimate: None, low: None, high: None };
+        r.source_ohms = Interval::NONE;
+        r.node_farads = Interval::NONE;
         r.source_assumes_node_below = None;
         r.source_volts = None;
-        r.min_sample_index = None;
-        r.min_sample_ns = None;
-        r.flags.retain(|f| *f != Flag::UnderSettled);
+        withdraw_settling(r);
         r.reason = Some(words);
     } else {
         r.reason = Some(match r.reason.take() {
@@ -282,7 +287,7 @@ fn memory(model: &BoardModel, previous: u8, sample: u8, cells: &[CellObs], r: &m
 
 /// Verdict, intervals, settling and noise flags of one pin from its fit and noise record.
 fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
-    let none = Interval { estimate: None, low: None, high: None };
+    let none = Interval::NONE;
     let mut r = PinReport {
         channel: pin.channel,
         not_measured: Vec::new(),
@@ -381,7 +386,7 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         r.source_volts = Some(vs.clamp(0.0, model.vref_volts));
         // Readings clipped at the end of the scale show how fast the node settles, not how much
         // charge it holds: no claim on the node.
-        r.node_farads = Interval { estimate: None, low: None, high: None };
+        r.node_farads = Interval::NONE;
     } else {
         r.verdict = Verdict::Driven;
         r.source_volts = Some(vs);
@@ -389,7 +394,7 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         // the readings show the charge sharing with the hold capacitor too little to size the
         // node, and a fit's node interval there rests on the model's small print. No claim.
         if rs.low.is_none() {
-            r.node_farads = Interval { estimate: None, low: None, high: None };
+            r.node_farads = Interval::NONE;
         }
     }
     if chi2_dof > POOR_FIT_CHI2_PER_DOF && r.reason.is_none() {

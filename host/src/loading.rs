@@ -568,7 +568,7 @@ mod tests {
     fn a_bound_gives_the_worst_case_and_a_rail_without_resistance_no_answer() {
         // "Rs < 1.15 kΩ" at 0.8 V under a 10 MΩ probe: shift at the bound −0.8·1150/10001150
         // = −91.99 µV = −0.1142 LSB < ½ LSB, so trustworthy for any Rs under the bound.
-        let none = Interval { estimate: None, low: None, high: None };
+        let none = Interval::NONE;
         let l = loading(
             &pin(0.8, Interval { estimate: None, low: None, high: Some(1150.0) }, none),
             &preset("probe-10x").unwrap(),
