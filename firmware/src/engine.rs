@@ -271,7 +271,7 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
             Err(k) => return Ok(Err(k)),
         };
         let (tested, precharges) = steps.channels();
-        if !tested.iter().flatten().all(|&c| self.has_channel(c)) || !precharges.iter().all(|&c| self.has_channel(c)) {
+        if !tested.iter().all(|&c| self.has_channel(c)) || !precharges.iter().all(|&c| self.has_channel(c)) {
             return Ok(Err(ErrorKind::BadChannel));
         }
         if !self.precharges_declared(exp, precharges) {
@@ -536,6 +536,47 @@ pub(crate) mod tests {
         ));
         // 100 gaps of 10 µs − (1 µs + 0.5 µs) busy.
         assert_eq!(e.delay.0, 100 * 8_500);
+    }
+
+    fn scan(precharge: u8) -> Experiment {
+        Experiment::ScanRecord {
+            targets: Vec::from_slice(&[1, 0]).unwrap(),
+            precharge,
+            precharge_sample: 1,
+            sample: 0,
+            period_ns: 10_000,
+            count: 30,
+            settle_ns: 0,
+        }
+    }
+
+    #[test]
+    fn a_scan_record_reads_every_target_after_the_precharge_and_streams_all_codes() {
+        let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
+        let mut out = StdVec::new();
+        e.feed(&frame(&Request::Run { seq: 3, experiment: scan(9) }), &mut out).unwrap();
+        let r = responses(&out);
+        let mut codes = StdVec::new();
+        for resp in &r[..r.len() - 1] {
+            let Response::Samples { run: 1, offset, codes: c } = resp else { panic!("{resp:?}") };
+            assert_eq!(usize::from(*offset), codes.len());
+            codes.extend_from_slice(c);
+        }
+        assert_eq!(codes.len(), 60, "30 rounds of 2 targets");
+        assert!(matches!(
+            r.last(),
+            Some(Response::Done(RunReport { seq: 3, run: 1, conversions: 120, chunks: 2, .. }))
+        ));
+        assert_eq!(e.fe.log[..4], [(9, 1), (1, 0), (9, 1), (0, 0)]);
+        assert_eq!(e.fe.log.len(), 120);
+        // Per round: 10 µs − 2 × ((1 + 0.5) + (0.1 + 0.5)) µs busy = 5.8 µs idle.
+        assert_eq!(e.delay.0, 30 * 5_800);
+        // A pin is no precharge source: a scan behind one is refused before anything converts.
+        let mut e = Engine::new(Fake { log: StdVec::new() }, NoDelay(0), board());
+        let mut out = StdVec::new();
+        e.feed(&frame(&Request::Run { seq: 4, experiment: scan(0) }), &mut out).unwrap();
+        assert_eq!(responses(&out), [Response::Error { seq: 4, kind: ErrorKind::NotAllowed }]);
+        assert!(e.fe.log.is_empty());
     }
 
     fn burst(precharge: u8) -> Experiment {

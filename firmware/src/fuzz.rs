@@ -189,12 +189,22 @@ mod tests {
             settle_ns: 1000,
         };
         let noise = Experiment::NoiseRecord { target: 0, sample: 1, period_ns: 10_000, count: 100, settle_ns: 0 };
+        let scan = Experiment::ScanRecord {
+            targets: heapless::Vec::from_slice(&[1, 0]).unwrap_or_default(),
+            precharge: 9,
+            precharge_sample: 1,
+            sample: 0,
+            period_ns: 10_000,
+            count: 40,
+            settle_ns: 0,
+        };
         let [SimPart::Board(mut head), pin] = SimPart::largest_for_tests() else { unreachable!() };
         head.pins = 1;
         vec![
             vec![Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 }],
             vec![Request::Run { seq: 3, experiment: burst }],
             vec![Request::Run { seq: 4, experiment: noise }],
+            vec![Request::Run { seq: 7, experiment: scan }],
             vec![Request::Simulate { seq: 5, part: SimPart::Board(head) }, Request::Simulate { seq: 6, part: pin }],
         ]
     }

@@ -61,6 +61,51 @@ pub struct PinEvidence {
     pub purposes: Vec<Purpose>,
 }
 
+/// One pin's readings in a noise record or a scan record.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PinRaw {
+    /// The readings after the lead-in, in order.
+    pub codes: Vec<u16>,
+    /// Time between readings, ns.
+    pub period_ns: u32,
+    /// Index of the first of them among the record's raw codes.
+    pub first: usize,
+    /// Step between them among the record's raw codes (the scan's number of targets).
+    pub stride: usize,
+}
+
+/// The readings of `channel` in `e` when `e` is its noise record or a scan record that reads it.
+pub fn pin_raw(e: &ExperimentRecord, channel: u8) -> Option<PinRaw> {
+    let (first, stride, period_ns) = match &e.experiment {
+        ExperimentSpec::NoiseRecord { period_ns, .. } if e.pin == Some(channel) => (RAW_LEAD_IN, 1, *period_ns),
+        ExperimentSpec::ScanRecord { targets, period_ns, .. } => {
+            let k = targets.iter().position(|&t| t == channel)?;
+            (crate::plan::scan_lead_in(*period_ns) * targets.len() + k, targets.len(), *period_ns)
+        }
+        _ => return None,
+    };
+    let codes = e.samples.iter().skip(first).step_by(stride).copied().collect();
+    Some(PinRaw { codes, period_ns, first, stride })
+}
+
+/// Whether `e` converts `channel` as a pin under test: the pin's own experiments, and the scan
+/// records that read it among others.
+fn on_pin(e: &ExperimentRecord, channel: u8) -> bool {
+    e.pin == Some(channel)
+        || matches!(&e.experiment, ExperimentSpec::ScanRecord { targets, .. } if targets.contains(&channel))
+}
+
+/// The last noise reading of `channel` the record holds (its own noise record, or a scan
+/// record that read it), with the experiment it came from.
+pub fn last_noise(record: &RunRecord, channel: u8) -> Option<(&ExperimentRecord, PinRaw)> {
+    record
+        .experiments
+        .iter()
+        .rev()
+        .filter(|e| e.purpose == Purpose::Noise && e.received)
+        .find_map(|e| Some((e, pin_raw(e, channel)?)))
+}
+
 /// Mean level of a raw record after its lead-in, LSB.
 fn raw_mean(samples: &[u16]) -> Option<f64> {
     let codes = &samples[RAW_LEAD_IN.min(samples.len())..];
@@ -124,10 +169,15 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
             // records of included: their conversions acted on the node too.
             let mut end_ps: Option<u64> = None;
             let mut noise_record: Option<&ExperimentRecord> = None;
-            for e in record.experiments.iter().filter(|e| e.pin == Some(pin.channel)) {
+            for e in record.experiments.iter().filter(|e| on_pin(e, pin.channel)) {
                 let Some(exp) = e.experiment.to_experiment() else { continue };
                 let cells: Vec<CellObs> = e.cells.iter().map(|c| CellObs::from_aggregate(&c.aggregate())).collect();
-                ev.conversions += u64::from(e.conversions);
+                // A scan's conversions are shared among the pins it reads.
+                let sharing = match &e.experiment {
+                    ExperimentSpec::ScanRecord { targets, .. } => targets.len().max(1) as u64,
+                    _ => 1,
+                };
+                ev.conversions += u64::from(e.conversions) / sharing;
                 if !ev.purposes.contains(&e.purpose) {
                     ev.purposes.push(e.purpose);
                 }
@@ -163,10 +213,12 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                         ev.rail = screen_rail(model, &cells);
                         ev.screen = cells;
                     }
-                    (Purpose::Noise, ExperimentSpec::NoiseRecord { period_ns, .. }) => {
-                        ev.noise_codes = e.samples[RAW_LEAD_IN.min(e.samples.len())..].to_vec();
-                        ev.noise = analyse_noise(&ev.noise_codes, f64::from(*period_ns) * 1e-9);
-                        noise_record = Some(e);
+                    (Purpose::Noise, ExperimentSpec::NoiseRecord { .. } | ExperimentSpec::ScanRecord { .. }) => {
+                        if let Some(raw) = pin_raw(e, pin.channel) {
+                            ev.noise = analyse_noise(&raw.codes, f64::from(raw.period_ns) * 1e-9);
+                            ev.noise_codes = raw.codes;
+                            noise_record = Some(e);
+                        }
                     }
                     (Purpose::Memory, ExperimentSpec::OrderSwap { a, sample, .. }) => {
                         ev.swap = Some(Swap { previous: *a, sample: *sample, cells });
@@ -175,7 +227,7 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 }
             }
             let waveform = HUM_WAVEFORM.load(std::sync::atomic::Ordering::Relaxed);
-            if let Some(hum) = noise_record.filter(|_| waveform).and_then(|e| node_hum(model, e, &ev)) {
+            if let Some(hum) = noise_record.filter(|_| waveform).and_then(|e| node_hum(model, e, pin.channel, &ev)) {
                 // Hum measured on the board's clock is a known waveform: the model carries it,
                 // and only what is uncertain about it weighs on the cells.
                 let amplitude_lsb = hum.amplitude_volts() / model.lsb_volts();
@@ -235,7 +287,12 @@ pub const HUM_MODEL_SHARE: f64 = 0.005;
 
 /// The mains hum of a pin's node from its noise record, on the board's clock, where the record
 /// shows hum and every experiment of the pin has a clock.
-fn node_hum(model: &BoardModel, record: &ExperimentRecord, pin: &PinEvidence) -> Option<crate::model::Hum> {
+fn node_hum(
+    model: &BoardModel,
+    record: &ExperimentRecord,
+    channel: u8,
+    pin: &PinEvidence,
+) -> Option<crate::model::Hum> {
     let noise = pin.noise.as_ref()?;
     let mains: Vec<f64> =
         MAINS_HZ.iter().zip(crate::noise::hum_present(noise)).filter(|(_, on)| *on).map(|(f, _)| *f).collect();
@@ -244,7 +301,9 @@ fn node_hum(model: &BoardModel, record: &ExperimentRecord, pin: &PinEvidence) ->
     }
     let exp = record.experiment.to_experiment()?;
     let clock = EventClock::of(model, &exp, record.start_ps, record.end_ps)?;
-    let times: Vec<f64> = crate::model::raw_sample_times(model, &exp, &clock).into_iter().skip(RAW_LEAD_IN).collect();
+    let raw = pin_raw(record, channel)?;
+    let times: Vec<f64> =
+        crate::model::raw_sample_times(model, &exp, &clock).into_iter().skip(raw.first).step_by(raw.stride).collect();
     let codes: Vec<f64> = pin.noise_codes.iter().map(|&c| f64::from(c)).collect();
     let mid = times.get(times.len() / 2).copied()?;
     let span = pin.events.iter().filter_map(|e| e.clock).map(|c| (mid - c.start_s).abs()).fold(0.0, f64::max);

@@ -239,7 +239,7 @@ fn lsb(v: f64) -> String {
 
 /// Judges a number measurement with interval `iv` against `range`.
 fn number(kind: LimitKind, iv: Option<Interval>, range: Range, fmt: fn(f64) -> String) -> LimitResult {
-    let iv = iv.unwrap_or(Interval { estimate: None, low: None, high: None });
+    let iv = iv.unwrap_or(Interval::NONE);
     let measured = iv.estimate.is_some() || iv.low.is_some() || iv.high.is_some();
     let outcome = if measured {
         range.decide(iv.low.unwrap_or(f64::NEG_INFINITY), iv.high.unwrap_or(f64::INFINITY))
@@ -308,17 +308,8 @@ pub fn min_sample_interval(report: &SurveyReport, r: &PinReport) -> Option<Inter
 /// The noise statistics of a pin's last noise record, hum looked for at `mains_hz` (both 50
 /// and 60 Hz when `None`).
 pub fn pin_noise(report: &SurveyReport, r: &PinReport, mains_hz: Option<f64>) -> Option<RecordNoise> {
-    let period_ns = report
-        .record
-        .experiments
-        .iter()
-        .rev()
-        .find(|e| e.pin == Some(r.channel) && e.purpose == crate::record::Purpose::Noise && e.received)
-        .and_then(|e| match e.experiment {
-            crate::record::ExperimentSpec::NoiseRecord { period_ns, .. } => Some(period_ns),
-            _ => None,
-        })?;
-    record_noise_for(&r.noise_codes, f64::from(period_ns) * 1e-9, mains_hz)
+    let (_, raw) = crate::analyse::last_noise(&report.record, r.channel)?;
+    record_noise_for(&raw.codes, f64::from(raw.period_ns) * 1e-9, mains_hz)
 }
 
 /// [`record_noise`] as a check judges it. Without a stated mains, both lines are fitted

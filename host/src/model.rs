@@ -411,7 +411,10 @@ pub fn predict_with_spread(
     let mut sums: Vec<(f64, f64, u32)> = Vec::new();
     // With hum, the node's state is carried relative to the hum waveform (exact for the open
     // phases, whose map is linear); a sample, microseconds long, sees the hum as a constant.
-    for ev in events {
+    // Events after the last one whose cells are wanted change no prediction: not replayed (a
+    // check's noise readings of many pins, last in a pin's history, are most of its steps).
+    let wanted = events.iter().rposition(|e| e.cells.is_some()).map_or(0, |i| i + 1);
+    for ev in &events[..wanted] {
         let Ok(steps) = Steps::new(&ev.experiment, timing) else {
             continue;
         };

@@ -13,7 +13,7 @@
 
 use crate::model::{BoardModel, CellObs};
 use heapless::Vec as HVec;
-use ohmsight_protocol::{Experiment, FrontEnd};
+use ohmsight_protocol::{Experiment, FrontEnd, MAX_CHANNELS, MAX_RAW_SAMPLES};
 
 /// Longest period of a period sweep, ns.
 const LONGEST_PERIOD_NS: u32 = 20_000_000;
@@ -25,13 +25,20 @@ const NOISE_SETTLE_NS: u32 = 100_000_000;
 const NOISE_COUNT: u16 = 1024;
 /// Longest period of a check's first-pass period sweep, ns.
 pub const QUICK_LONGEST_PERIOD_NS: u32 = 1_000_000;
-/// Readings of a check's short noise record (the lead-in included).
+/// Readings at 4 kHz whose span a check's short noise reading covers (the lead-in included).
 pub const QUICK_NOISE_COUNT: u16 = 208;
 /// Idle time before a check's short noise record, ns.
 const QUICK_NOISE_SETTLE_NS: u32 = 2_000_000;
 /// Readings at the start of a raw record that are left out of its analysis (the node's
 /// response to the conversion before the record).
 pub const RAW_LEAD_IN: usize = 8;
+
+/// Rounds at the start of a scan record whose readings are left out of its analysis: as long as
+/// the lead-in of a noise record ([`RAW_LEAD_IN`] readings at [`NOISE_PERIOD_NS`]), at least one.
+pub fn scan_lead_in(period_ns: u32) -> usize {
+    let lead_ns = RAW_LEAD_IN as u64 * u64::from(NOISE_PERIOD_NS);
+    (lead_ns.div_ceil(u64::from(period_ns.max(1))) as usize).max(1)
+}
 
 /// Why a board cannot be surveyed.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -92,6 +99,14 @@ pub struct ScreenResult {
     pub burst_droop: f64,
     /// The precharge farther from the pin's level.
     pub far: u8,
+}
+
+impl ScreenResult {
+    /// The pin's level as the screen's longest sample time read it (both precharges), LSB.
+    pub fn level_lsb(&self) -> Option<f64> {
+        let long = self.cells.get(4..6)?;
+        Some((long[0].mean + long[1].mean) / 2.0)
+    }
 }
 
 impl Plan {
@@ -241,11 +256,13 @@ impl Plan {
 
     /// A check's second pass at a pin whose limits the first left open: the survey's
     /// [`Plan::detail`] with a third of its period-sweep repeats (at least 4; the long droop
-    /// runs keep theirs). The long periods are what the first pass lacks (they show an open
-    /// node, or a source behind a large one); the first pass's cells are fitted with these, so
-    /// few repeats are needed.
+    /// runs keep theirs), and its long periods from the farther precharge only. The long
+    /// periods are what the first pass lacks (they show an open node, or a source behind a
+    /// large one), and the farther precharge moves the node most; the first pass's cells, from
+    /// both precharges, are fitted with these, so few repeats are needed.
     pub fn check_detail(&self, model: &BoardModel, pin: u8, screen: &ScreenResult) -> Vec<Experiment> {
         let mut out = self.detail(model, pin, screen);
+        out.retain(|exp| !matches!(exp, Experiment::PeriodSweep { precharge, repeats, .. } if *repeats < 64 && *precharge != screen.far));
         for exp in &mut out {
             if let Experiment::PeriodSweep { repeats, .. } = exp {
                 if *repeats < 64 {
@@ -256,18 +273,35 @@ impl Plan {
         out
     }
 
-    /// A check's short noise record: [`QUICK_NOISE_COUNT`] readings at the survey's 4 kHz
-    /// (three 60 Hz periods, two and a half of 50 Hz), after a short rest. (The survey's
-    /// noise analysis, which the fit's hum model rests on, looks at both mains frequencies;
-    /// a shorter record leaves it unsure of the hum and widens every interval.)
-    pub fn quick_noise(&self, pin: u8) -> Experiment {
-        Experiment::NoiseRecord {
-            target: pin,
-            sample: self.longest,
-            period_ns: NOISE_PERIOD_NS,
-            count: QUICK_NOISE_COUNT,
-            settle_ns: QUICK_NOISE_SETTLE_NS,
-        }
+    /// A check's short noise records of many pins at once: scan records of [`QUICK_NOISE_COUNT`]
+    /// rounds at the survey's 4 kHz (52 ms: three 60 Hz periods, two and a half of 50 Hz), as
+    /// many pins in each as the board's raw buffer holds. A pin gets as many readings over as
+    /// long a span as in a record of its own: the survey's noise analysis, which the fit's hum
+    /// model rests on, looks at both mains frequencies and becomes unsure of the hum on a
+    /// shorter span or on fewer readings (64 readings per pin left "no hum" undecided on 3 of
+    /// 16 quiet pins). `pins` are (channel, level in LSB). Each reading follows a conversion of
+    /// the precharge nearer the pins' median level, so no pin's reading carries another pin's
+    /// level, noise or hum on the hold capacitor.
+    pub fn quick_scans(&self, model: &BoardModel, pins: &[(u8, f64)]) -> Vec<Experiment> {
+        let per_scan = (usize::from(MAX_RAW_SAMPLES) / usize::from(QUICK_NOISE_COUNT)).clamp(1, MAX_CHANNELS);
+        pins.chunks(per_scan)
+            .map(|group| {
+                let mut levels: Vec<f64> = group.iter().map(|g| g.1).collect();
+                levels.sort_by(f64::total_cmp);
+                let median = levels[levels.len() / 2];
+                // The precharge not farther from the median: the smaller kick to most pins.
+                let precharge = if self.far_from(model, median) == self.lo { self.hi } else { self.lo };
+                Experiment::ScanRecord {
+                    targets: group.iter().map(|g| g.0).collect(),
+                    precharge,
+                    precharge_sample: self.longest,
+                    sample: self.longest,
+                    period_ns: NOISE_PERIOD_NS,
+                    count: QUICK_NOISE_COUNT,
+                    settle_ns: QUICK_NOISE_SETTLE_NS,
+                }
+            })
+            .collect()
     }
 
     /// The noise record, after the node has had time to recover from the experiments before it.

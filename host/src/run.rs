@@ -573,7 +573,8 @@ pub struct PinNeeds {
 /// `needs` is given the board as it described itself and names the pins and what each needs
 /// (an `Err` is bad input: the limits do not fit this board). The first pass runs each pin's
 /// screen, a short set of settling experiments ([`Plan::quick_detail`]) where a fit is needed
-/// and a short noise record ([`Plan::quick_noise`]) where noise or hum is. `more` then sees
+/// and then the short noise records of every pin where noise or hum is, read many pins at once
+/// ([`Plan::quick_scans`]). `more` then sees
 /// the analysis and names the pins whose decisions are still open; they get the survey's full
 /// settling experiments and noise record, and are fitted again on all their evidence.
 pub fn check_with<L: Link>(
@@ -610,9 +611,10 @@ pub fn check_with<L: Link>(
     let model = board_model(&record);
     let mut runner = Runner { session, model, record, on_event, planned: 0, calls: HashMap::new(), clock_offset_ps: 0 };
     let mut fault = runner.precharge_levels(plan.precharge_levels().to_vec(), 2 * wanted.len() as i64);
-    // Pass 1: screen, short settling experiments, short noise record.
+    // Pass 1: screen and short settling experiments pin by pin, then the short noise records
+    // of every pin that needs one, many pins at once (scan records).
     let mut screens: HashMap<u8, Option<ScreenResult>> = HashMap::new();
-    for (i, need) in runner.record.pins.clone().iter().enumerate() {
+    for need in runner.record.pins.clone() {
         if fault.is_some() {
             break;
         }
@@ -622,12 +624,9 @@ pub fn check_with<L: Link>(
                 let model = runner.model.clone();
                 let exps: Vec<Experiment> =
                     if need.fit { plan.quick_detail(&model, need.channel, sc) } else { Vec::new() };
-                runner.plan_more(exps.len() as i64 + i64::from(need.noise));
+                runner.plan_more(exps.len() as i64);
                 for exp in exps {
                     runner.run(Purpose::Detail, Some(need.channel), exp)?;
-                }
-                if need.noise {
-                    runner.run(Purpose::Noise, Some(need.channel), plan.quick_noise(need.channel))?;
                 }
             }
             Ok(screen)
@@ -635,10 +634,30 @@ pub fn check_with<L: Link>(
         match pass {
             Ok(screen) => {
                 screens.insert(need.channel, screen);
-                runner.record.pins[i].complete = true;
-                (runner.on_event)(&RunEvent::PinComplete(need.channel));
             }
             Err(e) => fault = Some(e.to_string()),
+        }
+    }
+    if fault.is_none() {
+        let noisy: Vec<(u8, f64)> = wanted
+            .iter()
+            .filter(|w| w.noise)
+            .filter_map(|w| Some((w.channel, screens.get(&w.channel)?.as_ref()?.level_lsb()?)))
+            .collect();
+        let scans = plan.quick_scans(&runner.model, &noisy);
+        runner.plan_more(scans.len() as i64);
+        if let Err(e) = scans.into_iter().try_for_each(|exp| runner.run(Purpose::Noise, None, exp).map(|_| ())) {
+            fault = Some(e.to_string());
+        }
+    }
+    if fault.is_none() {
+        // A pin is complete once its screen, settling experiments and noise reading are in.
+        for i in 0..runner.record.pins.len() {
+            let ch = runner.record.pins[i].channel;
+            if screens.contains_key(&ch) {
+                runner.record.pins[i].complete = true;
+                (runner.on_event)(&RunEvent::PinComplete(ch));
+            }
         }
     }
     (runner.on_event)(&RunEvent::Fitting);

@@ -36,5 +36,6 @@ pub use sequence::{Step, StepRecord, Steps, Timing};
 /// simulated board), [`Response::SimLoaded`] and [`ErrorKind::BadSetup`]; 3 gave every
 /// request a `seq` its answer echoes, made [`Response::Done`] a [`RunReport`] (the board's run
 /// number, clock and conversions), tagged data chunks with the run number, and added
-/// [`Request::Resend`], [`Request::Runs`], [`Response::Runs`] and [`ErrorKind::Gone`].
-pub const PROTOCOL_VERSION: u16 = 3;
+/// [`Request::Resend`], [`Request::Runs`], [`Response::Runs`] and [`ErrorKind::Gone`]; 4 added
+/// [`Experiment::ScanRecord`] (the noise records of many pins at once).
+pub const PROTOCOL_VERSION: u16 = 4;

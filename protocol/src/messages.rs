@@ -589,6 +589,28 @@ pub enum Experiment {
         /// Idle time before the first conversion, ns.
         settle_ns: u32,
     },
+    /// `count` rounds, one started every `period_ns` (back to back when a round takes longer):
+    /// each round reads every channel of `targets` once, in order, each right after a
+    /// conversion of `precharge`, so what the hold capacitor brings to a target is the same
+    /// known level every time, never another target's reading. Raw code `r * targets.len() + k`
+    /// is round `r`'s reading of `targets[k]` (protocol 4): the noise records of many pins in
+    /// the time of one.
+    ScanRecord {
+        /// Channels read in each round, in order.
+        targets: Vec<u8, MAX_CHANNELS>,
+        /// Precharge channel converted before each target.
+        precharge: u8,
+        /// Sample index of the precharge conversions.
+        precharge_sample: u8,
+        /// Sample index of the target conversions.
+        sample: u8,
+        /// Round period, ns.
+        period_ns: u32,
+        /// Number of rounds (`count * targets.len()` ≤ [`MAX_RAW_SAMPLES`]).
+        count: u16,
+        /// Idle time before the first conversion, ns.
+        settle_ns: u32,
+    },
 }
 
 impl Experiment {
@@ -600,24 +622,28 @@ impl Experiment {
             Experiment::RepeatBurst { .. } => "repeat burst",
             Experiment::PeriodSweep { .. } => "period sweep",
             Experiment::NoiseRecord { .. } => "noise record",
+            Experiment::ScanRecord { .. } => "scan record",
         }
     }
 
-    /// Number of aggregate cells its answer holds (0 for a noise record).
+    /// Number of aggregate cells its answer holds (0 for a noise or scan record).
     pub fn cells(&self) -> u16 {
         match self {
             Experiment::PrechargeSweep { precharges, samples, .. } => (precharges.len() * samples.len()) as u16,
             Experiment::OrderSwap { .. } => 4,
             Experiment::RepeatBurst { length, .. } => u16::from(*length),
             Experiment::PeriodSweep { periods_ns, .. } => periods_ns.len() as u16,
-            Experiment::NoiseRecord { .. } => 0,
+            Experiment::NoiseRecord { .. } | Experiment::ScanRecord { .. } => 0,
         }
     }
 
-    /// Number of raw codes its answer holds (0 unless a noise record).
+    /// Number of raw codes its answer holds (0 unless a noise or scan record; saturates).
     pub fn raw_samples(&self) -> u16 {
         match self {
             Experiment::NoiseRecord { count, .. } => *count,
+            Experiment::ScanRecord { targets, count, .. } => {
+                u16::try_from(usize::from(*count) * targets.len()).unwrap_or(u16::MAX)
+            }
             _ => 0,
         }
     }

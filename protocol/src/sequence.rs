@@ -4,7 +4,8 @@
 //! the host fit simulates the same [`Steps`] on the model. Integer arithmetic only.
 
 use crate::messages::{
-    ErrorKind, Experiment, MAX_BURST, MAX_CELLS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_RUN_PS, MAX_WAIT_NS,
+    ErrorKind, Experiment, MAX_BURST, MAX_CELLS, MAX_CHANNELS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_RUN_PS,
+    MAX_WAIT_NS,
 };
 
 /// The board timing the sequence needs.
@@ -149,6 +150,23 @@ impl<'a> Steps<'a> {
                 gap_ns[0] = Timing::gap_ns(*period_ns, timing.busy_ps(*sample));
                 u64::from(*count)
             }
+            Experiment::ScanRecord { targets, precharge_sample, sample, period_ns, count, settle_ns, .. } => {
+                if *count == 0 || targets.is_empty() {
+                    return Err(ErrorKind::Empty);
+                }
+                if !sample_ok(*precharge_sample) || !sample_ok(*sample) {
+                    return Err(ErrorKind::BadSampleIndex);
+                }
+                let codes = u64::from(*count) * targets.len() as u64;
+                if codes > u64::from(MAX_RAW_SAMPLES) {
+                    return Err(ErrorKind::TooLarge);
+                }
+                check_wait(*period_ns)?;
+                check_wait(*settle_ns)?;
+                let pair = timing.busy_ps(*precharge_sample) + timing.busy_ps(*sample);
+                gap_ns[0] = Timing::gap_ns(*period_ns, pair * targets.len() as u64);
+                2 * codes
+            }
         };
         if len > u64::from(MAX_CONVERSIONS) {
             return Err(ErrorKind::TooLarge);
@@ -178,29 +196,32 @@ impl<'a> Steps<'a> {
             | Experiment::OrderSwap { settle_ns, .. }
             | Experiment::RepeatBurst { settle_ns, .. }
             | Experiment::PeriodSweep { settle_ns, .. }
-            | Experiment::NoiseRecord { settle_ns, .. } => settle_ns,
+            | Experiment::NoiseRecord { settle_ns, .. }
+            | Experiment::ScanRecord { settle_ns, .. } => settle_ns,
         }
     }
 
-    /// Number of aggregate cells (0 for a noise record).
+    /// Number of aggregate cells (0 for a noise or scan record).
     pub fn cells(&self) -> u16 {
         self.exp.cells()
     }
 
-    /// Number of raw samples (0 unless a noise record).
+    /// Number of raw samples (0 unless a noise or scan record).
     pub fn raw_samples(&self) -> u16 {
         self.exp.raw_samples()
     }
 
     /// Channels the experiment converts: (channels under test, channels used as precharge).
-    pub fn channels(&self) -> ([Option<u8>; 2], &'a [u8]) {
+    pub fn channels(&self) -> (heapless::Vec<u8, MAX_CHANNELS>, &'a [u8]) {
+        let one = |c: u8| heapless::Vec::from_slice(&[c]).unwrap_or_default();
         match self.exp {
-            Experiment::PrechargeSweep { target, precharges, .. } => ([Some(*target), None], precharges.as_slice()),
-            Experiment::OrderSwap { a, b, .. } => ([Some(*a), Some(*b)], &[]),
+            Experiment::PrechargeSweep { target, precharges, .. } => (one(*target), precharges.as_slice()),
+            Experiment::OrderSwap { a, b, .. } => (heapless::Vec::from_slice(&[*a, *b]).unwrap_or_default(), &[]),
             Experiment::RepeatBurst { target, precharge, .. } | Experiment::PeriodSweep { target, precharge, .. } => {
-                ([Some(*target), None], core::slice::from_ref(precharge))
+                (one(*target), core::slice::from_ref(precharge))
             }
-            Experiment::NoiseRecord { target, .. } => ([Some(*target), None], &[]),
+            Experiment::NoiseRecord { target, .. } => (one(*target), &[]),
+            Experiment::ScanRecord { targets, precharge, .. } => (targets.clone(), core::slice::from_ref(precharge)),
         }
     }
 
@@ -285,6 +306,21 @@ impl<'a> Steps<'a> {
                 wait_after_ns: self.gap_ns[0],
                 record: StepRecord::Raw(i as u16),
             },
+            Experiment::ScanRecord { targets, precharge, precharge_sample, sample, .. } => {
+                let n = targets.len() as u32;
+                let (round, j) = (i / (2 * n), i % (2 * n));
+                let k = j / 2;
+                if j.is_multiple_of(2) {
+                    Step { channel: *precharge, sample: *precharge_sample, wait_after_ns: 0, record: StepRecord::None }
+                } else {
+                    Step {
+                        channel: targets[k as usize],
+                        sample: *sample,
+                        wait_after_ns: if k == n - 1 { self.gap_ns[0] } else { 0 },
+                        record: StepRecord::Raw((round * n + k) as u16),
+                    }
+                }
+            }
         }
     }
 
@@ -341,6 +377,54 @@ mod tests {
         assert_eq!(s.step(1).wait_after_ns, 0);
         assert_eq!(s.step(7), Step { channel: 1, sample: 0, wait_after_ns: 6_700, record: StepRecord::Cell(1) });
         assert_eq!(s.nominal_ps(), 6 * 3_300_000 + 3 * 6_700_000);
+    }
+
+    #[test]
+    fn scan_record_reads_each_target_after_the_precharge_once_per_round_then_waits() {
+        let exp = Experiment::ScanRecord {
+            targets: Vec::from_slice(&[4, 1, 7]).unwrap(),
+            precharge: 16,
+            precharge_sample: 0,
+            sample: 1,
+            period_ns: 10_000,
+            count: 3,
+            settle_ns: 0,
+        };
+        let s = Steps::new(&exp, T).unwrap();
+        assert_eq!((s.len(), s.raw_samples(), s.cells()), (18, 9, 0));
+        let v: std::vec::Vec<_> = s.iter().collect();
+        let order: std::vec::Vec<u8> = v.iter().map(|x| x.channel).collect();
+        assert_eq!(order, [16, 4, 16, 1, 16, 7].repeat(3));
+        let raw: std::vec::Vec<StepRecord> = v.iter().skip(1).step_by(2).map(|x| x.record).collect();
+        assert_eq!(raw, (0..9).map(StepRecord::Raw).collect::<std::vec::Vec<_>>(), "round by round, target by target");
+        assert!(v.iter().step_by(2).all(|x| x.record == StepRecord::None && x.sample == 0));
+        // A round is 3 × ((0.1 + 0.6) + (0.5 + 0.6)) µs = 5.4 µs busy: the rest of the 10 µs
+        // period follows its last reading.
+        assert_eq!(v[3].wait_after_ns, 0);
+        assert_eq!(v[5].wait_after_ns, 4_600);
+        assert_eq!(s.nominal_ps(), 3 * 10_000_000);
+        assert_eq!(s.channels().1, [16]);
+        // Every code of every round must fit the board's raw buffer.
+        let big = Experiment::ScanRecord {
+            targets: Vec::from_slice(&[0, 1]).unwrap(),
+            precharge: 16,
+            precharge_sample: 0,
+            sample: 0,
+            period_ns: 1,
+            count: MAX_RAW_SAMPLES / 2 + 1,
+            settle_ns: 0,
+        };
+        assert_eq!(Steps::new(&big, T).unwrap_err(), ErrorKind::TooLarge);
+        let none = Experiment::ScanRecord {
+            targets: Vec::new(),
+            precharge: 16,
+            precharge_sample: 0,
+            sample: 0,
+            period_ns: 1,
+            count: 4,
+            settle_ns: 0,
+        };
+        assert_eq!(Steps::new(&none, T).unwrap_err(), ErrorKind::Empty);
     }
 
     #[test]

@@ -159,6 +159,15 @@ fn seeds(scenario: &Scenario) -> Vec<Vec<Request>> {
             settle_ns: 0,
         },
         Experiment::NoiseRecord { target, sample: 0, period_ns: 10_000, count: 60, settle_ns: 0 },
+        Experiment::ScanRecord {
+            targets: heapless::Vec::from_slice(&[target, other]).unwrap_or_default(),
+            precharge,
+            precharge_sample: 0,
+            sample: 1,
+            period_ns: 20_000,
+            count: 30,
+            settle_ns: 0,
+        },
     ];
     let mut seeds = vec![
         vec![Request::Hello { protocol: PROTOCOL_VERSION, seq: 1 }],

@@ -209,6 +209,7 @@ impl Bar {
         match event {
             RunEvent::Planned { total } => self.0.set_length(*total),
             RunEvent::Starting { pin: Some(ch), what } => self.0.set_message(format!("ch{ch} {what}")),
+            RunEvent::Starting { pin: None, what: "scan record" } => self.0.set_message("noise, many pins at once"),
             RunEvent::Starting { pin: None, .. } => self.0.set_message("precharge sources"),
             RunEvent::Recorded(_) => self.0.inc(1),
             RunEvent::Fitting => self.0.set_message("fitting"),

@@ -499,6 +499,23 @@ pub enum ExperimentSpec {
         /// Idle before the first conversion, ns.
         settle_ns: u32,
     },
+    /// See [`Experiment::ScanRecord`].
+    ScanRecord {
+        /// Channels read in each round, in order.
+        targets: Vec<u8>,
+        /// Precharge channel converted before each target.
+        precharge: u8,
+        /// Sample index of the precharge conversions.
+        precharge_sample: u8,
+        /// Sample index of the target conversions.
+        sample: u8,
+        /// Round period, ns.
+        period_ns: u32,
+        /// Number of rounds.
+        count: u16,
+        /// Idle before the first conversion, ns.
+        settle_ns: u32,
+    },
 }
 
 fn hvec<T: Copy, const N: usize>(items: &[T]) -> Option<heapless::Vec<T, N>> {
@@ -514,6 +531,7 @@ impl ExperimentSpec {
             ExperimentSpec::RepeatBurst { .. } => "repeat-burst",
             ExperimentSpec::PeriodSweep { .. } => "period-sweep",
             ExperimentSpec::NoiseRecord { .. } => "noise-record",
+            ExperimentSpec::ScanRecord { .. } => "scan-record",
         }
     }
 
@@ -584,6 +602,23 @@ impl ExperimentSpec {
             ExperimentSpec::NoiseRecord { target, sample, period_ns, count, settle_ns } => {
                 Experiment::NoiseRecord { target, sample, period_ns, count, settle_ns }
             }
+            ExperimentSpec::ScanRecord {
+                targets,
+                precharge,
+                precharge_sample,
+                sample,
+                period_ns,
+                count,
+                settle_ns,
+            } => Experiment::ScanRecord {
+                targets: hvec(&targets)?,
+                precharge,
+                precharge_sample,
+                sample,
+                period_ns,
+                count,
+                settle_ns,
+            },
         })
     }
 }
@@ -643,6 +678,17 @@ impl From<&Experiment> for ExperimentSpec {
             }
             Experiment::NoiseRecord { target, sample, period_ns, count, settle_ns } => {
                 ExperimentSpec::NoiseRecord { target, sample, period_ns, count, settle_ns }
+            }
+            Experiment::ScanRecord { targets, precharge, precharge_sample, sample, period_ns, count, settle_ns } => {
+                ExperimentSpec::ScanRecord {
+                    targets: targets.to_vec(),
+                    precharge,
+                    precharge_sample,
+                    sample,
+                    period_ns,
+                    count,
+                    settle_ns,
+                }
             }
         }
     }
@@ -718,7 +764,12 @@ impl ExperimentRecord {
     /// analysed on their own).
     pub fn fitted(&self) -> bool {
         self.received
-            && !matches!(self.experiment, ExperimentSpec::OrderSwap { .. } | ExperimentSpec::NoiseRecord { .. })
+            && !matches!(
+                self.experiment,
+                ExperimentSpec::OrderSwap { .. }
+                    | ExperimentSpec::NoiseRecord { .. }
+                    | ExperimentSpec::ScanRecord { .. }
+            )
             && !matches!(self.purpose, Purpose::Memory | Purpose::Load)
     }
 }
@@ -878,6 +929,15 @@ mod tests {
             },
             Experiment::largest_for_tests(),
             Experiment::NoiseRecord { target: 5, sample: 7, period_ns: 250_000, count: 1024, settle_ns: 100_000_000 },
+            Experiment::ScanRecord {
+                targets: heapless::Vec::from_slice(&[3, 0, 9]).unwrap(),
+                precharge: 16,
+                precharge_sample: 7,
+                sample: 7,
+                period_ns: 406_000,
+                count: 128,
+                settle_ns: 2_000_000,
+            },
         ];
         for e in exps {
             let spec = ExperimentSpec::from(&e);
