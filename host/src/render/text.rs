@@ -6,16 +6,27 @@ use crate::judge::{PinReport, SurveyReport, Verdict};
 use crate::model::BoardModel;
 use crate::units;
 
-/// `47.2 kΩ (44.1–50.6 kΩ)`, `< 1.60 kΩ`, `> 2.30 GΩ` or `—`.
+/// `47.2 kΩ (44.1–50.6 kΩ)`, `44.1–50.6 kΩ`, `< 1.60 kΩ`, `> 2.30 GΩ` or `—`.
 pub fn interval_text(iv: &Interval, fmt: fn(f64) -> String) -> String {
     match (iv.estimate, iv.low, iv.high) {
-        (Some(e), Some(l), Some(h)) => {
-            format!("{} ({}–{})", fmt(e), fmt(l).trim_end_matches(char::is_alphabetic).trim_end(), fmt(h))
-        }
+        (Some(e), Some(l), Some(h)) => format!("{} ({})", fmt(e), range_text(l, h, fmt)),
+        (None, Some(l), Some(h)) => range_text(l, h, fmt),
         (_, None, Some(h)) => format!("< {}", fmt(h)),
         (_, Some(l), None) => format!("> {}", fmt(l)),
         (Some(e), None, None) => fmt(e),
         _ => "—".into(),
+    }
+}
+
+/// `44.1–50.6 kΩ`; the low end keeps its unit where the ends differ in prefix: `999 kΩ–1.05 MΩ`.
+fn range_text(low: f64, high: f64, fmt: fn(f64) -> String) -> String {
+    let (l, h) = (fmt(low), fmt(high));
+    let unit = |s: &str| s.rsplit_once(' ').map(|(_, u)| u.to_string()).unwrap_or_default();
+    if unit(&l) == unit(&h) {
+        let number = l.rsplit_once(' ').map_or(l.as_str(), |(n, _)| n);
+        format!("{number}–{h}")
+    } else {
+        format!("{l}–{h}")
     }
 }
 
@@ -283,4 +294,28 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
         out += &format!("  left out: ch{} {}\n", l.channel, l.reason);
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn iv(estimate: Option<f64>, low: Option<f64>, high: Option<f64>) -> Interval {
+        Interval { estimate, low, high }
+    }
+
+    #[test]
+    fn an_interval_reads_as_its_ends_with_each_ones_unit() {
+        assert_eq!(interval_text(&iv(Some(47.2e3), Some(44.1e3), Some(50.6e3)), units::ohms), "47.2 kΩ (44.1–50.6 kΩ)");
+        // Ends in different decades keep their own prefixes: "(999–1.05 MΩ)" would read as 999 Ω.
+        assert_eq!(
+            interval_text(&iv(Some(1.02e6), Some(999e3), Some(1.05e6)), units::ohms),
+            "1.02 MΩ (999 kΩ–1.05 MΩ)"
+        );
+        // A two-sided interval without a best value (a bound under an assumption) still shows both ends.
+        assert_eq!(interval_text(&iv(None, Some(80.0), Some(2.52e3)), units::ohms), "80.0 Ω–2.52 kΩ");
+        assert_eq!(interval_text(&iv(None, None, Some(1.6e3)), units::ohms), "< 1.60 kΩ");
+        assert_eq!(interval_text(&iv(None, Some(2.3e9), None), units::ohms), "> 2.30 GΩ");
+        assert_eq!(interval_text(&Interval::NONE, units::ohms), "—");
+    }
 }
