@@ -64,6 +64,9 @@ pub fn model_floor_lsb(b: &BoardModel) -> f64 {
 /// ADC input filters, which stay well below it; no source).
 pub const STIFF_NODE_FARADS: f64 = 2e-6;
 
+/// Intervals of the coarse scan of the other log-parameter at each profile point.
+const PROFILE_SCAN: u8 = 16;
+
 /// Widest ratio high/low of a 95% interval still reported as an estimate.
 pub const BOUND_RATIO: f64 = 3.0;
 
@@ -628,31 +631,46 @@ fn interval_log<'a>(
     let threshold = p.objective(&theta) + CHI2_95_1DOF * birge2;
     let (p, low) = profile_edge(p, theta, i, lo_b, threshold, sigma, points);
     let (p, high) = profile_edge(p, theta, i, hi_b, threshold, sigma, points);
-    let (p, low) = beyond_edge(p, i, low, -1.0, threshold, grid);
-    let (p, high) = beyond_edge(p, i, high, 1.0, threshold, grid);
+    let edge = Edge { i, threshold, sigma, points };
+    let (p, low) = beyond_edge(p, &edge, low, lo_b, grid, 2);
+    let (p, high) = beyond_edge(p, &edge, high, hi_b, grid, 2);
     let estimate = (low.is_some() && high.is_some()).then(|| theta[i].exp());
     (p, Interval { estimate, low: low.map(f64::exp), high: high.map(f64::exp) })
 }
 
-/// An edge of a profile interval, or `None` when another valley lies beyond it: the best grid
-/// points past the edge (by at least a third of an e-fold, inside the current bounds) are
-/// profiled, and one within the threshold opens that side.
+/// What an edge search of parameter `i` works to: the objective's threshold, the Wald width
+/// and the decision points (see [`profile_edge`]).
+struct Edge<'e> {
+    i: usize,
+    threshold: f64,
+    sigma: f64,
+    points: Option<&'e [f64]>,
+}
+
+/// An edge of a profile interval, checked for another valley beyond it: the best grid point
+/// past the edge (by at least a tenth of an e-fold, inside the current bounds) and probes a
+/// decade and three decades past it are profiled. One within the threshold is a second valley
+/// (a small source behind a modest node beside a large one behind a stiff node): the edge
+/// search goes on from there toward `limit`, and the side opens (`None`) once `depth` valleys
+/// have been crossed.
 fn beyond_edge<'a>(
     mut p: Problem<'a>,
-    i: usize,
-    edge: Option<f64>,
-    dir: f64,
-    threshold: f64,
+    edge: &Edge<'_>,
+    found: Option<f64>,
+    limit: f64,
     grid: &[(f64, [f64; N_THETA])],
+    depth: u8,
 ) -> (Problem<'a>, Option<f64>) {
-    let Some(e) = edge else { return (p, None) };
+    let Some(e) = found else { return (p, None) };
+    let i = edge.i;
+    let dir = (limit - e).signum();
     let inside = |t: &[f64; N_THETA]| {
         [LN_RS, LN_CN].iter().all(|&k| t[k] >= p.bounds[k].0 - 1e-9 && t[k] <= p.bounds[k].1 + 1e-9)
     };
     // The best grid point past the edge, then probes a decade and three decades past it (the
     // profile's own scan of the other parameter finds the valley there, if there is one).
     let mut past: Vec<[f64; N_THETA]> =
-        grid.iter().filter(|(_, t)| dir * (t[i] - e) > 0.33 && inside(t)).take(1).map(|(_, t)| *t).collect();
+        grid.iter().filter(|(_, t)| dir * (t[i] - e) > 0.1 && inside(t)).take(1).map(|(_, t)| *t).collect();
     let (lo, hi) = p.bounds[i];
     for k in [1.0, 3.0] {
         let x = e + dir * k * std::f64::consts::LN_10;
@@ -665,17 +683,24 @@ fn beyond_edge<'a>(
     }
     let saved_free = p.free.clone();
     p.free.retain(|&f| f != i);
-    let mut open = false;
+    let mut valley = None;
     for t in past {
-        let (q, obj, _) = profile_at(p, i, t[i], t, threshold);
+        let (q, obj, at) = profile_at(p, i, t[i], t, edge.threshold);
         p = q;
-        if obj <= threshold {
-            open = true;
+        if obj <= edge.threshold {
+            valley = Some(at);
             break;
         }
     }
     p.free = saved_free;
-    (p, if open { None } else { Some(e) })
+    match valley {
+        None => (p, Some(e)),
+        Some(_) if depth == 0 => (p, None),
+        Some(at) => {
+            let (p, next) = profile_edge(p, at, i, limit, edge.threshold, edge.sigma, edge.points);
+            beyond_edge(p, edge, next, limit, grid, depth - 1)
+        }
+    }
 }
 
 /// The profile objective at θᵢ = x: the other free parameters re-optimized, from `warm` and
@@ -700,15 +725,29 @@ fn profile_at<'a>(
     }
     let other = if i == LN_RS { LN_CN } else { LN_RS };
     let (lo, hi) = p.bounds[other];
-    let scan = (0..=16)
+    let scan: Vec<(f64, [f64; N_THETA])> = (0..=PROFILE_SCAN)
         .map(|k| {
             let mut t = t0;
-            t[other] = lo + (hi - lo) * f64::from(k) / 16.0;
+            t[other] = lo + (hi - lo) * f64::from(k) / f64::from(PROFILE_SCAN);
             (p.objective(&t), t)
         })
-        .min_by(|a, b| a.0.total_cmp(&b.0));
-    if let Some((_, t)) = scan {
-        p = consider(p, t, &mut best);
+        .collect();
+    // The two deepest valleys of the scan: a small source behind a modest node and a large one
+    // behind a stiff node can both explain a pin, and the deeper one on a coarse scan is not
+    // always the deeper one at its floor.
+    let mut valleys: Vec<&(f64, [f64; N_THETA])> = (0..scan.len())
+        .filter(|&k| {
+            let o = scan[k].0;
+            (k == 0 || o <= scan[k - 1].0) && (k + 1 == scan.len() || o <= scan[k + 1].0)
+        })
+        .map(|k| &scan[k])
+        .collect();
+    valleys.sort_by(|a, b| a.0.total_cmp(&b.0));
+    for &(_, t) in valleys.iter().take(2) {
+        p = consider(p, *t, &mut best);
+        if p.decide && best.is_some_and(|(obj, _)| obj <= threshold) {
+            break;
+        }
     }
     let (mut obj, t) = best.unwrap_or((f64::INFINITY, t0));
     // A check's stalled search may not have reached the floor: not shown to be outside.

@@ -406,6 +406,9 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
     if matches!(r.verdict, Verdict::Driven | Verdict::AtRail) {
         if let (Some(c), Some(h)) = (fit.assumes_node_below, rs.high) {
             r.source_assumes_node_below = Some(c);
+            // The node's size is what the readings could not show: whatever bound the open fit
+            // gives it rests on a source the data do not bound. No claim on the node.
+            r.node_farads = Interval::NONE;
             r.reason = Some(format!(
                 "a stiff node: the source is below {} unless the node holds more than {}, which the survey's conversions could not move",
                 crate::units::ohms(h),
