@@ -11,7 +11,7 @@
 //! and `Cn` as it should, instead of being silently assumed away: behind a large node a leak
 //! moves the node as slowly as a gigohm source does, and only the leak's bound tells them apart.
 
-use crate::model::{predict, predict_with_spread, BoardModel, CellObs, Event, PinParams};
+use crate::model::{predict_replay, BoardModel, CellObs, Event, PinParams, Replay};
 use levenberg_marquardt::{LeastSquaresProblem, LevenbergMarquardt};
 use nalgebra::{DMatrix, DVector, Dyn, VecStorage};
 use std::cell::RefCell;
@@ -174,6 +174,8 @@ pub struct FitInput<'a> {
 
 struct Problem<'a> {
     input: &'a FitInput<'a>,
+    /// The pin's history with its steps worked out once.
+    replay: Replay<'a>,
     cells: Vec<(CellObs, f64)>,
     obs: Vec<(f64, f64)>, // (mean, standard error)
     theta: [f64; N_THETA],
@@ -222,6 +224,7 @@ impl<'a> Problem<'a> {
         let free = (0..N_THETA).filter(|&i| i < LN_CH || prior_sigma[i] > 0.0).collect();
         Self {
             input,
+            replay: Replay::new(b, input.events),
             cells,
             obs,
             theta: [0.0; N_THETA],
@@ -241,7 +244,7 @@ impl<'a> Problem<'a> {
     fn reweight(&mut self, t: &[f64; N_THETA]) {
         let floor = self.input.board.variance_floor_lsb2();
         let (mut mean, mut spread) = (Vec::new(), Vec::new());
-        predict_with_spread(self.input.board, &self.params_of(t), self.input.events, &mut mean, Some(&mut spread));
+        predict_replay(self.input.board, &self.params_of(t), &self.replay, &mut mean, Some(&mut spread));
         let model_floor = model_floor_lsb(self.input.board);
         for ((o, (c, k)), s) in self.obs.iter_mut().zip(&self.cells).zip(&spread) {
             o.1 = cell_se((c.variance - s).max(floor), c.count, *k, model_floor);
@@ -271,7 +274,7 @@ impl<'a> Problem<'a> {
     /// Residuals at θ: data, then priors.
     fn residuals_at(&self, t: &[f64; N_THETA], out: &mut Vec<f64>) {
         let mut pred = self.scratch.borrow_mut();
-        predict(self.input.board, &self.params_of(t), self.input.events, &mut pred);
+        predict_replay(self.input.board, &self.params_of(t), &self.replay, &mut pred, None);
         *self.evaluations.borrow_mut() += 1;
         out.clear();
         out.extend(self.obs.iter().zip(pred.iter()).map(|(&(m, se), &p)| (p - m) / se));
@@ -305,21 +308,31 @@ impl<'a> Problem<'a> {
         }
     }
 
-    /// Central-difference Jacobian over the free parameters.
+    /// Jacobian over the free parameters: central differences in a survey's fit; forward
+    /// differences in a check's, which asks only on which side of a limit an end lies (one
+    /// model evaluation per parameter instead of two, and the check's fits are its host time).
     fn jacobian_at(&self, t: &[f64; N_THETA]) -> DMatrix<f64> {
         let m = self.obs.len() + self.free.iter().filter(|&&i| i >= LN_CH).count();
         let mut j = DMatrix::zeros(m, self.free.len());
         let (mut up, mut dn) = (Vec::new(), Vec::new());
+        if self.decide {
+            self.residuals_at(t, &mut dn);
+        }
         for (col, &i) in self.free.iter().enumerate() {
             let h = Self::step(i, self.input.board.vref_volts);
             let mut tp = *t;
-            let mut tm = *t;
             tp[i] += h;
-            tm[i] -= h;
             self.residuals_at(&tp, &mut up);
-            self.residuals_at(&tm, &mut dn);
+            let width = if self.decide {
+                h
+            } else {
+                let mut tm = *t;
+                tm[i] -= h;
+                self.residuals_at(&tm, &mut dn);
+                2.0 * h
+            };
             for row in 0..m {
-                j[(row, col)] = (up[row] - dn[row]) / (2.0 * h);
+                j[(row, col)] = (up[row] - dn[row]) / width;
             }
         }
         j

@@ -339,40 +339,178 @@ pub fn raw_sample_times(board: &BoardModel, exp: &Experiment, clock: &EventClock
 /// averaged over the noise, gives `x − Σ (−1)^{k+1} sin(2πkx) e^{−2π²k²σ²}/(πk)`; near a rail
 /// the clamped sum `Σ P(code ≥ k)` is evaluated directly.
 pub fn expected_code(x: f64, sigma: f64, max_code: f64) -> f64 {
-    let sigma = sigma.max(0.05);
-    let reach = 6.0 * sigma + 1.0;
-    if x > reach && x < max_code - reach {
-        let mut e = x;
+    Quantizer::new(sigma, max_code).expected_code(x)
+}
+
+/// [`expected_code`] for one noise level, its series' damping factors worked out once: a fit
+/// evaluates it for every conversion of a pin's history, thousands of times per evaluation.
+#[derive(Debug, Clone, Copy)]
+pub struct Quantizer {
+    sigma: f64,
+    max_code: f64,
+    /// `(−1)^{k+1} e^{−2π²k²σ²}/(πk)` for k = 1…4, zero where negligible.
+    terms: [f64; 4],
+}
+
+impl Quantizer {
+    /// The quantizer of a converter with Gaussian noise `sigma` LSB (at least 0.05) and codes
+    /// up to `max_code`.
+    pub fn new(sigma: f64, max_code: f64) -> Quantizer {
+        let sigma = sigma.max(0.05);
         let two_pi_sq_s2 = 2.0 * std::f64::consts::PI.powi(2) * sigma * sigma;
-        for k in 1..=4 {
-            let kf = f64::from(k);
+        let mut terms = [0.0; 4];
+        for (i, t) in terms.iter_mut().enumerate() {
+            let kf = (i + 1) as f64;
             let damp = (-two_pi_sq_s2 * kf * kf).exp();
             if damp < 1e-12 {
                 break;
             }
-            let sign = if k % 2 == 1 { 1.0 } else { -1.0 };
-            e -= sign * (2.0 * std::f64::consts::PI * kf * x).sin() * damp / (std::f64::consts::PI * kf);
+            let sign = if i % 2 == 0 { 1.0 } else { -1.0 };
+            *t = sign * damp / (std::f64::consts::PI * kf);
         }
-        return e;
+        Quantizer { sigma, max_code, terms }
     }
-    // Near a rail: E = Σ_{k=1}^{max} P(code ≥ k) = Σ Q((k − ½ − x)/σ).
-    let q = |k: f64| 0.5 * libm::erfc((k - 0.5 - x) / (sigma * std::f64::consts::SQRT_2));
-    if x <= reach {
-        let top = (x + 8.0 * sigma + 2.0).min(max_code).max(1.0) as i64;
-        (1..=top).map(|k| q(k as f64)).sum()
-    } else {
-        // E = max − Σ_{k=0}^{max−1} P(code ≤ k)
-        let low = (x - 8.0 * sigma - 2.0).max(0.0) as i64;
-        let p_le = |k: f64| 1.0 - q(k + 1.0);
-        // Terms below `low` are P(code ≤ k) ≈ 0.
-        max_code - (low..max_code as i64).map(|k| p_le(k as f64)).sum::<f64>()
+
+    /// The mean code for an input of `x` LSB.
+    pub fn expected_code(&self, x: f64) -> f64 {
+        let (sigma, max_code) = (self.sigma, self.max_code);
+        let reach = 6.0 * sigma + 1.0;
+        if x > reach && x < max_code - reach {
+            // sin(2πkx) for k = 1…4 from one sine and cosine by the angle-addition formulas.
+            let (s1, c1) = sin_cos_turns(x);
+            let (mut sk, mut ck) = (s1, c1);
+            let mut e = x;
+            for (i, &t) in self.terms.iter().enumerate() {
+                if t == 0.0 {
+                    break;
+                }
+                if i > 0 {
+                    (sk, ck) = (sk * c1 + ck * s1, ck * c1 - sk * s1);
+                }
+                e -= t * sk;
+            }
+            return e;
+        }
+        // Near a rail: E = Σ_{k=1}^{max} P(code ≥ k) = Σ Q((k − ½ − x)/σ). Terms more than
+        // 6σ below the input are 1 and those more than 6σ above it 0 (to 1e-9 each): only
+        // the window between needs the error function.
+        let q = |k: f64| 0.5 * libm::erfc((k - 0.5 - x) / (sigma * std::f64::consts::SQRT_2));
+        let first = (x + 0.5 - 6.0 * sigma).ceil().max(1.0);
+        let last = (x + 0.5 + 6.0 * sigma).floor().min(max_code);
+        if first > max_code {
+            return max_code;
+        }
+        let ones = first - 1.0;
+        ones + (first as i64..=last as i64).map(|k| q(k as f64)).sum::<f64>()
     }
+}
+
+/// A pin's history with each experiment's conversions worked out once: the steps depend on
+/// the experiment and the board's timing only, and a fit replays the same history for every
+/// one of its thousands of model evaluations. Events after the last one whose cells are
+/// wanted change no prediction and are left out (a check's noise readings of many pins, last
+/// in a pin's history, are most of its steps).
+#[derive(Debug, Clone)]
+pub struct Replay<'e> {
+    events: Vec<ReplayEvent<'e>>,
+    /// The distinct idle times after a conversion, ps, the firmware's overhead (a fitted
+    /// parameter) not included: each is worked out once per evaluation.
+    idle_ps: Vec<u64>,
+}
+
+#[derive(Debug, Clone)]
+struct ReplayEvent<'e> {
+    event: &'e Event,
+    settle_ns: u32,
+    cells: u16,
+    /// Each step, the index of its idle time in [`Replay::idle_ps`], and the level of the
+    /// precharge source it converts (when it is not the target), V.
+    steps: Vec<(Step, u32, f64)>,
+}
+
+impl<'e> Replay<'e> {
+    /// The replay of `events` on `board` (events whose experiment the board's timing cannot
+    /// run are skipped, as the board would refuse them).
+    pub fn new(board: &BoardModel, events: &'e [Event]) -> Replay<'e> {
+        let timing = board.timing();
+        let wanted = events.iter().rposition(|e| e.cells.is_some()).map_or(0, |i| i + 1);
+        let mut idle_ps: Vec<u64> = Vec::new();
+        let mut index: BTreeMap<u64, u32> = BTreeMap::new();
+        let events = events[..wanted]
+            .iter()
+            .filter_map(|event| {
+                let steps = Steps::new(&event.experiment, timing).ok()?;
+                let (settle_ns, cells) = (steps.settle_ns(), steps.cells());
+                let steps = steps
+                    .iter()
+                    .map(|step| {
+                        // After the sample: the conversion and the wait; a precharge source's
+                        // sample is idle time for the pin too.
+                        let mut ps = u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000;
+                        if step.channel != event.target {
+                            ps += u64::from(board.sample_ps[usize::from(step.sample)]);
+                        }
+                        let i = *index.entry(ps).or_insert_with(|| {
+                            idle_ps.push(ps);
+                            (idle_ps.len() - 1) as u32
+                        });
+                        let level = board.precharge_volts.get(&step.channel).copied().unwrap_or(board.vref_volts / 2.0);
+                        (step, i, level)
+                    })
+                    .collect();
+                Some(ReplayEvent { event, settle_ns, cells, steps })
+            })
+            .collect();
+        Replay { events, idle_ps }
+    }
+}
+
+/// `(sin 2πu, cos 2πu)`, to about 1e-11: the quantizer's series needs it once per modelled
+/// conversion, where the C library's `sincos` was two fifths of a fit's time. `u` is reduced to
+/// [−¼, ¼] turn by symmetry and the Taylor series of sine taken to the 15th power there
+/// (remainder below (π/2)¹⁷/17! ≈ 6e-12), evaluated by Estrin's scheme (short dependency
+/// chains: the two polynomials run side by side). For |u| < 2⁵⁰.
+fn sin_cos_turns(u: f64) -> (f64, f64) {
+    // Round to nearest without a library call: adding 1.5·2⁵² leaves no fraction bits.
+    const ROUND: f64 = 6_755_399_441_055_744.0;
+    let nearest = |x: f64| (x + ROUND) - ROUND;
+    // sin 2πv for v in [−½, ½].
+    let sin_half_turn = |v: f64| {
+        let v = if v > 0.25 {
+            0.5 - v
+        } else if v < -0.25 {
+            -0.5 - v
+        } else {
+            v
+        };
+        let z = 2.0 * std::f64::consts::PI * v;
+        // z·(1 − y/3! + y²/5! − … − y⁷/15!), y = z².
+        const C: [f64; 8] = [
+            1.0,
+            -1.0 / 6.0,
+            1.0 / 120.0,
+            -1.0 / 5_040.0,
+            1.0 / 362_880.0,
+            -1.0 / 39_916_800.0,
+            1.0 / 6_227_020_800.0,
+            -1.0 / 1_307_674_368_000.0,
+        ];
+        let y = z * z;
+        let y2 = y * y;
+        let y4 = y2 * y2;
+        let low = (C[0] + C[1] * y) + y2 * (C[2] + C[3] * y);
+        let high = (C[4] + C[5] * y) + y2 * (C[6] + C[7] * y);
+        z * (low + y4 * high)
+    };
+    let v = u - nearest(u);
+    let w = v + 0.25;
+    (sin_half_turn(v), sin_half_turn(w - nearest(w)))
 }
 
 /// Simulates a pin's whole history and returns the predicted mean code of every observed
 /// cell, in order (events without observations are simulated but contribute nothing).
 pub fn predict(board: &BoardModel, p: &PinParams, events: &[Event], out: &mut Vec<f64>) {
-    predict_with_spread(board, p, events, out, None);
+    predict_replay(board, p, &Replay::new(board, events), out, None);
 }
 
 /// Like [`predict`], and also the variance of the predicted codes within each cell (the
@@ -381,6 +519,17 @@ pub fn predict_with_spread(
     board: &BoardModel,
     p: &PinParams,
     events: &[Event],
+    out: &mut Vec<f64>,
+    spread: Option<&mut Vec<f64>>,
+) {
+    predict_replay(board, p, &Replay::new(board, events), out, spread);
+}
+
+/// [`predict_with_spread`] of a history whose steps are already worked out.
+pub fn predict_replay(
+    board: &BoardModel,
+    p: &PinParams,
+    replay: &Replay<'_>,
     out: &mut Vec<f64>,
     mut spread: Option<&mut Vec<f64>>,
 ) {
@@ -392,39 +541,23 @@ pub fn predict_with_spread(
     let sampling: Vec<Sampling> = (0..board.sample_ps.len()).map(|i| net.sampling(board.sample_s(i))).collect();
     let hold_tau = p.switch_ohms * p.hold_farads;
     let precharge_keep: Vec<f64> = (0..board.sample_ps.len()).map(|i| (-board.sample_s(i) / hold_tau).exp()).collect();
-    let mut opens: Vec<(u64, Open)> = Vec::with_capacity(32);
-    let mut open = |ps: u64| -> Open {
-        if let Some((_, o)) = opens.iter().find(|(d, _)| *d == ps) {
-            return *o;
-        }
-        let o = net.open(ps as f64 * 1e-12);
-        if opens.len() < 64 {
-            opens.push((ps, o));
-        }
-        o
-    };
-    let sigma = board.noise_lsb;
-    let max_code = board.max_code();
-    let timing = board.timing();
     let overhead_ps = (p.overhead_s * 1e12).round().max(0.0) as u64;
+    let open = |ps: u64| -> Open { net.open(ps as f64 * 1e-12) };
+    let idle: Vec<Open> = replay.idle_ps.iter().map(|&ps| open(ps + overhead_ps)).collect();
+    let quantizer = Quantizer::new(board.noise_lsb, board.max_code());
+    let mut last = (f64::NAN, 0.0);
     let mut s = State { node_volts: p.source_volts, hold_volts: board.vref_volts / 2.0 };
     let mut sums: Vec<(f64, f64, u32)> = Vec::new();
     // With hum, the node's state is carried relative to the hum waveform (exact for the open
     // phases, whose map is linear); a sample, microseconds long, sees the hum as a constant.
-    // Events after the last one whose cells are wanted change no prediction: not replayed (a
-    // check's noise readings of many pins, last in a pin's history, are most of its steps).
-    let wanted = events.iter().rposition(|e| e.cells.is_some()).map_or(0, |i| i + 1);
-    for ev in &events[..wanted] {
-        let Ok(steps) = Steps::new(&ev.experiment, timing) else {
-            continue;
-        };
+    for r in &replay.events {
+        let ev = r.event;
         let hum = ev.hum_at_steps.as_deref();
-        s = open(ev.gap_before_ps + u64::from(steps.settle_ns()) * 1000).apply(s);
+        s = open(ev.gap_before_ps + u64::from(r.settle_ns) * 1000).apply(s);
         sums.clear();
-        sums.resize(usize::from(steps.cells()), (0.0, 0.0, 0));
-        for (k, step) in steps.iter().enumerate() {
-            let busy_after_sample = u64::from(board.conversion_ps) + u64::from(step.wait_after_ns) * 1000 + overhead_ps;
-            let sample_ps = u64::from(board.sample_ps[usize::from(step.sample)]);
+        sums.resize(usize::from(r.cells), (0.0, 0.0, 0));
+        for (k, &(step, idle_index, level)) in r.steps.iter().enumerate() {
+            let after = &idle[idle_index as usize];
             if step.channel == ev.target {
                 match hum.and_then(|h| h.get(k)) {
                     Some(&v) => {
@@ -437,17 +570,23 @@ pub fn predict_with_spread(
                 if let StepRecord::Cell(c) = step.record {
                     let x = volts_to_lsb(s.hold_volts, board.vref_volts, board.bits);
                     let cell = &mut sums[usize::from(c)];
-                    let e = expected_code(x, sigma, max_code);
+                    // A settled node reads the same input over and over: the same answer.
+                    let e = if x == last.0 {
+                        last.1
+                    } else {
+                        let e = quantizer.expected_code(x);
+                        last = (x, e);
+                        e
+                    };
                     cell.0 += e;
                     cell.1 += e * e;
                     cell.2 += 1;
                 }
-                s = open(busy_after_sample).apply(s);
+                s = after.apply(s);
             } else {
-                let level = board.precharge_volts.get(&step.channel).copied().unwrap_or(board.vref_volts / 2.0);
                 let keep = precharge_keep[usize::from(step.sample)];
                 s.hold_volts = level + (s.hold_volts - level) * keep;
-                s = open(sample_ps + busy_after_sample).apply(s);
+                s = after.apply(s);
             }
         }
         if ev.cells.is_some() {
@@ -552,6 +691,25 @@ mod tests {
                 means[k]
             );
         }
+    }
+
+    #[test]
+    fn the_quantizers_sine_matches_the_libraries() {
+        // Against the C library's sin and cos over many turns, both signs, and the quarter
+        // points where the reduction folds.
+        let mut worst: f64 = 0.0;
+        for k in -40_000..=40_000 {
+            let u = f64::from(k) * 0.000_731 + 0.125 * f64::from(k % 9);
+            let (s, c) = sin_cos_turns(u);
+            let (rs, rc) = (2.0 * std::f64::consts::PI * u).sin_cos();
+            worst = worst.max((s - rs).abs()).max((c - rc).abs());
+        }
+        for u in [0.0, 0.25, 0.5, 0.75, -0.25, -0.5, 1000.25, 4095.5] {
+            let (s, c) = sin_cos_turns(u);
+            let (rs, rc) = (2.0 * std::f64::consts::PI * u).sin_cos();
+            worst = worst.max((s - rs).abs()).max((c - rc).abs());
+        }
+        assert!(worst < 1e-10, "worst difference {worst:e}");
     }
 
     #[test]
