@@ -80,7 +80,8 @@ pub fn pin_raw(e: &ExperimentRecord, channel: u8) -> Option<PinRaw> {
         ExperimentSpec::NoiseRecord { period_ns, .. } if e.pin == Some(channel) => (RAW_LEAD_IN, 1, *period_ns),
         ExperimentSpec::ScanRecord { targets, period_ns, .. } => {
             let k = targets.iter().position(|&t| t == channel)?;
-            (crate::plan::scan_lead_in(*period_ns) * targets.len() + k, targets.len(), *period_ns)
+            let n = e.experiment.pins_sharing();
+            (crate::plan::scan_lead_in(*period_ns) * n + k, n, *period_ns)
         }
         _ => return None,
     };
@@ -91,8 +92,7 @@ pub fn pin_raw(e: &ExperimentRecord, channel: u8) -> Option<PinRaw> {
 /// Whether `e` converts `channel` as a pin under test: the pin's own experiments, and the scan
 /// records that read it among others.
 fn on_pin(e: &ExperimentRecord, channel: u8) -> bool {
-    e.pin == Some(channel)
-        || matches!(&e.experiment, ExperimentSpec::ScanRecord { targets, .. } if targets.contains(&channel))
+    e.pin == Some(channel) || e.experiment.scan_targets().is_some_and(|t| t.contains(&channel))
 }
 
 /// The last noise reading of `channel` the record holds (its own noise record, or a scan
@@ -173,11 +173,7 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 let Some(exp) = e.experiment.to_experiment() else { continue };
                 let cells: Vec<CellObs> = e.cells.iter().map(|c| CellObs::from_aggregate(&c.aggregate())).collect();
                 // A scan's conversions are shared among the pins it reads.
-                let sharing = match &e.experiment {
-                    ExperimentSpec::ScanRecord { targets, .. } => targets.len().max(1) as u64,
-                    _ => 1,
-                };
-                ev.conversions += u64::from(e.conversions) / sharing;
+                ev.conversions += u64::from(e.conversions) / e.experiment.pins_sharing() as u64;
                 if !ev.purposes.contains(&e.purpose) {
                     ev.purposes.push(e.purpose);
                 }

@@ -191,7 +191,7 @@ impl Plan {
             // Stiff on every timescale so far: hundreds of back-to-back pairs push the node
             // toward the switched-capacitor equilibrium Rs/(Rs + P/Ch), which bounds Rs even if
             // a large capacitor hides it from single conversions.
-            return vec![period_sweep(pin, screen.far, longest, 0, &[0, 0, 0], 256)];
+            return vec![period_sweep(pin, screen.far, longest, 0, &[0, 0, 0], DROOP_RUN_REPEATS)];
         }
         let all: Vec<u8> = (0..self.n_samples).collect();
         let mut out = vec![
@@ -225,7 +225,14 @@ impl Plan {
             // The source cannot keep up with back-to-back conversions: hundreds of them at the
             // shortest periods drive the node toward the switched-capacitor equilibrium
             // Rs/(Rs + P/Ch), which measures Rs even behind a large capacitor.
-            out.push(period_sweep(pin, screen.far, longest, longest, &periods[..3.min(periods.len())], 256));
+            out.push(period_sweep(
+                pin,
+                screen.far,
+                longest,
+                longest,
+                &periods[..3.min(periods.len())],
+                DROOP_RUN_REPEATS,
+            ));
         }
         out
     }
@@ -262,10 +269,10 @@ impl Plan {
     /// both precharges, are fitted with these, so few repeats are needed.
     pub fn check_detail(&self, model: &BoardModel, pin: u8, screen: &ScreenResult) -> Vec<Experiment> {
         let mut out = self.detail(model, pin, screen);
-        out.retain(|exp| !matches!(exp, Experiment::PeriodSweep { precharge, repeats, .. } if *repeats < 64 && *precharge != screen.far));
+        out.retain(|exp| !matches!(exp, Experiment::PeriodSweep { precharge, repeats, .. } if !is_droop_run(*repeats) && *precharge != screen.far));
         for exp in &mut out {
             if let Experiment::PeriodSweep { repeats, .. } = exp {
-                if *repeats < 64 {
+                if !is_droop_run(*repeats) {
                     *repeats = (*repeats / 3).max(4);
                 }
             }
@@ -336,6 +343,16 @@ pub fn screen_rail(model: &BoardModel, cells: &[CellObs]) -> Option<f64> {
     } else {
         None
     }
+}
+
+/// Repeats of a droop run: hundreds of back-to-back conversions that push a node toward its
+/// switched-capacitor equilibrium (the detail's settling sweeps have a dozen).
+const DROOP_RUN_REPEATS: u16 = 256;
+
+/// Whether a period sweep of `repeats` is a droop run, whose length is its point: a check
+/// shortens or drops the other sweeps, never these.
+fn is_droop_run(repeats: u16) -> bool {
+    repeats >= DROOP_RUN_REPEATS / 4
 }
 
 /// Drift between the first and the last cell of a back-to-back run, LSB.

@@ -535,6 +535,19 @@ impl ExperimentSpec {
         }
     }
 
+    /// The pins a scan record reads, in round order; `None` for an experiment on one pin.
+    pub fn scan_targets(&self) -> Option<&[u8]> {
+        match self {
+            ExperimentSpec::ScanRecord { targets, .. } => Some(targets),
+            _ => None,
+        }
+    }
+
+    /// How many pins share this experiment's conversions (a scan's targets; otherwise one).
+    pub fn pins_sharing(&self) -> usize {
+        self.scan_targets().map_or(1, |t| t.len().max(1))
+    }
+
     /// The wire form, or `None` when a list is longer than the protocol allows.
     pub fn to_experiment(&self) -> Option<Experiment> {
         Some(match self.clone() {
