@@ -62,10 +62,19 @@ pub struct LoadTest {
     pub allowed_lsb: f64,
     /// The drift exceeds what the assumption allows by more than [`Z_REFUTE`] standard errors.
     pub refuted: bool,
-    /// Refuted: the node capacitance of an open pin that drifts as this one did, F. Not
-    /// refuted: the largest open node the burst would have missed, F (`None`: none found below
-    /// a farad).
+    /// Refuted or moved ([`LoadTest::moved`]): the node capacitance of an open pin that
+    /// drifts as this one did, F. Otherwise: the smallest open node the burst would have
+    /// missed, F (`None`: none found below a farad).
     pub open_farads: Option<f64>,
+}
+
+impl LoadTest {
+    /// Whether the node moved under the burst by more than [`Z_REFUTE`] standard errors: within
+    /// the bound's assumption or not, an open pin behind a node of about
+    /// [`LoadTest::open_farads`] moves the same way, and the bound cannot say "driven".
+    pub fn moved(&self) -> bool {
+        self.drift_lsb > Z_REFUTE * self.se_lsb
+    }
 }
 
 /// The burst's evidence: its event (cells, clock, hum) and the hum each cell carries, LSB.
@@ -151,7 +160,8 @@ pub fn assess(
         .fold(0.0, f64::max);
     let refuted = observed - allowed > Z_REFUTE * se;
     let open_drift = |cn: f64| drift(&predicted(model, &burst.event, &with(f64::INFINITY, cn)), toward).unwrap_or(0.0);
-    let target = if refuted { observed } else { allowed + Z_REFUTE * se };
+    let moved = observed > Z_REFUTE * se;
+    let target = if refuted || moved { observed } else { allowed + Z_REFUTE * se };
     let open_farads = open_node_for(open_drift, target);
     let conversions = 2 * u64::from(*repeats) * periods_ns.len() as u64;
     Some(LoadTest { conversions, drift_lsb: observed, se_lsb: se, allowed_lsb: allowed, refuted, open_farads })
@@ -201,6 +211,16 @@ pub fn describe(t: &LoadTest, source_high: f64, assumed_farads: f64) -> String {
             lsb(t.allowed_lsb),
             t.open_farads.map(|c| format!(" behind about {}", farads(c))).unwrap_or_default(),
         )
+    } else if t.moved() {
+        format!(
+            "a burst of {} conversions moved it {} LSB (±{}) toward the precharge: a source below {} behind less than {}, or an open pin{}; the survey's conversions cannot tell them apart",
+            t.conversions,
+            lsb(t.drift_lsb),
+            lsb(t.se_lsb),
+            crate::units::ohms(source_high),
+            farads(assumed_farads),
+            t.open_farads.map(|c| format!(" behind about {}", farads(c))).unwrap_or_default(),
+        )
     } else {
         format!(
             "a burst of {} conversions moved it {} LSB (±{}): not an open pin{}",
@@ -218,6 +238,27 @@ pub fn describe(t: &LoadTest, source_high: f64, assumed_farads: f64) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_node_that_moved_under_the_burst_is_not_called_driven_even_within_the_bound() {
+        // The grid's case: an open pin behind 4.7 µF whose stiff-node bound was 13.2 MΩ, wide
+        // enough that a source within it drifts up to 80 LSB, while the pin drifted 3.72 ± 0.11.
+        let t = LoadTest {
+            conversions: 9960,
+            drift_lsb: 3.72,
+            se_lsb: 0.11,
+            allowed_lsb: 79.6,
+            refuted: false,
+            open_farads: Some(4.7e-6),
+        };
+        assert!(t.moved());
+        let words = describe(&t, 13.2e6, 2e-6);
+        assert!(words.contains("or an open pin behind about 4.70 µF"), "{words}");
+        // Within four standard errors of no drift: a stiff source, not moved.
+        let still = LoadTest { drift_lsb: 0.3, se_lsb: 0.1, open_farads: Some(42.7e-6), ..t };
+        assert!(!still.moved());
+        assert!(describe(&still, 1.2e3, 2e-6).contains("not an open pin unless its node holds more than 42.7 µF"));
+    }
     use crate::model::Event;
     use ohmsight_protocol::{FrontEnd, Precharge};
 

@@ -247,7 +247,7 @@ fn load_test(model: &BoardModel, burst: &crate::burst::Burst, r: &mut PinReport)
     };
     let Some(t) = crate::burst::assess(model, burst, &fit.params, high, assumed) else { return };
     let words = crate::burst::describe(&t, high, assumed);
-    if t.refuted {
+    if t.refuted || t.moved() {
         r.verdict = Verdict::Unknown;
         r.source_ohms = Interval::NONE;
         r.node_farads = Interval::NONE;

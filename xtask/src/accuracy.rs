@@ -104,6 +104,9 @@ struct Case {
 #[derive(Debug, Clone)]
 struct Outcome {
     case: Case,
+    /// The simulated board's scenario seed and the pin's channel on it: where to look again.
+    scenario_seed: u64,
+    channel: u8,
     verdict: Verdict,
     source_ohms: Interval,
     /// The source-resistance bound holds only for a node below this, F.
@@ -319,7 +322,7 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
     let r = survey(&mut session, &SurveyOptions::default()).context("survey")?;
     let prior = prior_information(&r.model);
     let mut out = Vec::new();
-    for (case, p) in cases.iter().zip(&r.pins) {
+    for (ch, (case, p)) in cases.iter().zip(&r.pins).enumerate() {
         let fisher = match (case.truth, &p.fit) {
             (Truth::Driven { volts, ohms }, Some(_)) => {
                 let truth = PinParams {
@@ -337,6 +340,8 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
         };
         out.push(Outcome {
             case: *case,
+            scenario_seed: seed,
+            channel: ch as u8,
             verdict: p.verdict,
             source_ohms: p.source_ohms,
             assumes_node_below: p.source_assumes_node_below,
@@ -874,8 +879,10 @@ fn case_text(o: &Outcome) -> String {
     };
     let hum = o.case.hum.map_or(String::new(), |(v, hz)| format!(", hum {:.0} mV {hz:.0} Hz", v * 1e3));
     format!(
-        "{} board, {truth}, Cn {}{hum}: {} Rs {}{} Cn {}",
+        "{} board (seed {} ch{}), {truth}, Cn {}{hum}: {} Rs {}{} Cn {}",
         BOARD_NAMES[o.case.board],
+        o.scenario_seed,
+        o.channel,
         units::farads(o.case.node_farads),
         o.verdict.as_str(),
         ohmsight::render::text::interval_text(&o.source_ohms, units::ohms),

@@ -242,8 +242,9 @@ fn an_open_pin_behind_microfarads_is_not_called_driven_and_a_stiff_source_still_
         assert!(matches!(p.verdict, Verdict::Floating | Verdict::Unknown), "{}", about(p));
         assert!(p.source_ohms.high.is_none(), "no upper bound on an open pin: {}", about(p));
         assert!(!misses(&p.node_farads, c), "{}", about(p));
-        // Where the burst decided it, the open node it names is the filter, within 25%.
-        if let Some(t) = p.load.as_ref().filter(|t| t.refuted) {
+        // Where the burst decided it (or moved it), the open node it names is the filter,
+        // within 25%.
+        if let Some(t) = p.load.as_ref().filter(|t| t.refuted || t.moved()) {
             let named = t.open_farads.unwrap_or(f64::NAN);
             assert!((named / c - 1.0).abs() < 0.25, "{} names {named:e}", about(p));
         }
