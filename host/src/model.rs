@@ -513,19 +513,9 @@ pub fn predict(board: &BoardModel, p: &PinParams, events: &[Event], out: &mut Ve
     predict_replay(board, p, &Replay::new(board, events), out, None);
 }
 
-/// Like [`predict`], and also the variance of the predicted codes within each cell (the
-/// deterministic spread: a cell whose readings drift over its repeats is not noisier for it).
-pub fn predict_with_spread(
-    board: &BoardModel,
-    p: &PinParams,
-    events: &[Event],
-    out: &mut Vec<f64>,
-    spread: Option<&mut Vec<f64>>,
-) {
-    predict_replay(board, p, &Replay::new(board, events), out, spread);
-}
-
-/// [`predict_with_spread`] of a history whose steps are already worked out.
+/// Like [`predict`], for a history whose steps are already worked out, and with `spread` also
+/// the variance of the predicted codes within each cell (the deterministic spread: a cell
+/// whose readings drift over its repeats is not noisier for it).
 pub fn predict_replay(
     board: &BoardModel,
     p: &PinParams,
