@@ -191,6 +191,10 @@ struct Problem<'a> {
     stalled: std::cell::Cell<bool>,
     /// Levenberg–Marquardt's patience.
     patience: usize,
+    /// The lowest objective any minimization has reached since this was last cleared, and
+    /// where: an interval search that finds a deeper valley than the fit's optimum shows the
+    /// optimum was a local one.
+    lowest: std::cell::Cell<Option<(f64, [f64; N_THETA])>>,
 }
 
 impl<'a> Problem<'a> {
@@ -236,6 +240,7 @@ impl<'a> Problem<'a> {
             decide: false,
             stalled: std::cell::Cell::new(false),
             patience: LM_PATIENCE,
+            lowest: std::cell::Cell::new(None),
         }
     }
 
@@ -473,12 +478,44 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
             p = consider(p, t0, &mut best);
         }
     }
-    // Re-weight with the model's own within-cell spread at the optimum, and polish.
-    let (_, t1) = best?;
-    p.reweight(&t1);
-    best = None;
-    p = consider(p, t1, &mut best);
-    let (_, theta) = best?;
+    // Re-weight with the model's own within-cell spread at the optimum, and polish; then the
+    // intervals. Their profiles search far from the optimum, and where one finds a deeper valley
+    // the optimum was a local one and its intervals would be drawn around the wrong point
+    // (behind a 10 µF node the valleys are narrow in both logs): start again from the deeper
+    // point.
+    let (_, mut t1) = best?;
+    let mut restarts = 0;
+    loop {
+        p.reweight(&t1);
+        best = None;
+        p = consider(p, t1, &mut best);
+        let (_, theta) = best?;
+        p.lowest.set(None);
+        let (q, fit) = conclude(p, theta, &starts, goals);
+        p = q;
+        match p.lowest.get() {
+            Some((obj, t)) if restarts < MAX_RESTARTS && obj < p.objective(&theta) - DEEPER_VALLEY => {
+                t1 = t;
+                restarts += 1;
+            }
+            _ => return fit,
+        }
+    }
+}
+
+/// How much deeper than the fit's optimum (in χ²) a valley found by an interval search must be
+/// for the fit to start again from it, and how many times it may.
+const DEEPER_VALLEY: f64 = 0.5;
+const MAX_RESTARTS: usize = 2;
+
+/// The intervals, bounds and assumptions of a fit whose optimum is `theta`.
+fn conclude<'a>(
+    mut p: Problem<'a>,
+    theta: [f64; N_THETA],
+    starts: &[(f64, [f64; N_THETA])],
+    goals: &Goals,
+) -> (Problem<'a>, Option<Fit>) {
+    let b = p.input.board;
     p.theta = theta;
     let chi2 = p.chi2_data(&theta);
     let dof = p.obs.len().saturating_sub(3);
@@ -492,7 +529,7 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
     let sigma_ln_rs = var(LN_RS).sqrt();
     let (s_rs, s_cn) = (var(LN_RS).sqrt(), var(LN_CN).sqrt());
     let (rs_points, cn_points) = (goals.points(LN_RS, b), goals.points(LN_CN, b));
-    let (p, mut source_ohms) = interval_log(p, theta, LN_RS, s_rs, birge2, &starts, rs_points.as_deref());
+    let (p, mut source_ohms) = interval_log(p, theta, LN_RS, s_rs, birge2, starts, rs_points.as_deref());
     // An interval spanning more than a factor of BOUND_RATIO is a bound, not a measurement:
     // below the switch resistance the data say "at most", far above it "at least".
     if let (Some(e), Some(l), Some(h)) = (source_ohms.estimate, source_ohms.low, source_ohms.high) {
@@ -509,7 +546,7 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
     // is open too.
     let node_wanted = cn_points.as_ref().is_none_or(|pts| !pts.is_empty());
     let (mut p, mut node_farads) = if node_wanted || source_ohms.high.is_none() {
-        interval_log(p, theta, LN_CN, s_cn, birge2, &starts, cn_points.as_deref())
+        interval_log(p, theta, LN_CN, s_cn, birge2, starts, cn_points.as_deref())
     } else {
         (p, Interval::NONE)
     };
@@ -528,7 +565,7 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
         let t0 = p.clamp(theta);
         p = consider(p, t0, &mut restricted);
         if let Some((_, t)) = restricted {
-            let (q, iv) = interval_log(p, t, LN_RS, s_rs, birge2, &starts, rs_points.as_deref());
+            let (q, iv) = interval_log(p, t, LN_RS, s_rs, birge2, starts, rs_points.as_deref());
             p = q;
             if let Some(h) = iv.high {
                 source_ohms = Interval { estimate: None, low: source_ohms.low, high: Some(h) };
@@ -548,7 +585,7 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
     let source_volts =
         Interval { estimate: Some(theta[VS]), low: Some(theta[VS] - Z95 * s_vs), high: Some(theta[VS] + Z95 * s_vs) };
     let evaluations = *p.evaluations.borrow();
-    Some(Fit {
+    let fit = Some(Fit {
         params: p.params_of(&reported),
         theta: reported,
         chi2,
@@ -559,7 +596,8 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
         assumes_node_below,
         sigma_ln_rs,
         evaluations,
-    })
+    });
+    (p, fit)
 }
 
 /// Standard error of a cell mean: noise over the count, slow interference that the cell's
@@ -576,6 +614,9 @@ fn consider<'a>(mut p: Problem<'a>, t0: [f64; N_THETA], best: &mut Option<(f64, 
     let obj = p.objective(&p.theta);
     if best.is_none_or(|(o, _)| obj < o) {
         *best = Some((obj, p.theta));
+    }
+    if p.lowest.get().is_none_or(|(o, _)| obj < o) {
+        p.lowest.set(Some((obj, p.theta)));
     }
     p
 }
@@ -831,12 +872,27 @@ fn profile_edge<'a>(
     (p, result)
 }
 
+/// The profile objective of log-parameter `i` ([`LN_RS`] or [`LN_CN`]) at `ln_x`, the other
+/// parameters re-optimized from `start` and a coarse scan: for studies that look for a second
+/// valley the interval search missed.
+pub fn profile_objective(input: &FitInput<'_>, i: usize, ln_x: f64, start: &PinParams) -> f64 {
+    let mut p = Problem::new(input);
+    let t = theta_of(input.board, start);
+    p.reweight(&t);
+    p.free.retain(|&f| f != i);
+    let (_, obj, _) = profile_at(p, i, ln_x, t, f64::INFINITY);
+    obj
+}
+
 /// The fit's objective (data χ² plus prior penalties) at given parameters: for tests and
 /// studies that compare the optimum with the truth.
 pub fn objective_at(input: &FitInput<'_>, p: &PinParams) -> f64 {
-    let prob = Problem::new(input);
-    let b = input.board;
-    let t = [
+    Problem::new(input).objective(&theta_of(input.board, p))
+}
+
+/// The fit's parameter vector for given parameters (the inverse of `Problem::params_of`).
+fn theta_of(b: &BoardModel, p: &PinParams) -> [f64; N_THETA] {
+    [
         p.source_ohms.ln(),
         p.node_farads.ln(),
         p.source_volts,
@@ -844,6 +900,5 @@ pub fn objective_at(input: &FitInput<'_>, p: &PinParams) -> f64 {
         (p.switch_ohms / b.switch_ohms).ln(),
         (p.overhead_s * 1e6).max(1e-4 * OVERHEAD_PRIOR_US).ln(),
         p.leak_amps * 1e12,
-    ];
-    prob.objective(&t)
+    ]
 }

@@ -983,6 +983,10 @@ fn hum_report(all: &[Outcome]) -> usize {
                 one_k.len(),
                 rest.len()
             );
+            let short = one_k.iter().filter(|o| !low_ok(o)).chain(rest.iter().filter(|o| !close(o)));
+            for o in short {
+                println!("        {}", case_text(o));
+            }
         }
     }
     println!(

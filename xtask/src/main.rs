@@ -254,7 +254,11 @@ fn study(args: &[String]) -> Result<()> {
         let r = survey(&mut session, &SurveyOptions::default())?;
         let p = &r.pins[0];
         let rs = p.source_ohms;
-        let ok = rs.low.is_none_or(|l| l <= ohms) && rs.high.is_none_or(|h| h >= ohms);
+        let cn = p.node_farads;
+        let ok = rs.low.is_none_or(|l| l <= ohms)
+            && rs.high.is_none_or(|h| h >= ohms)
+            && cn.low.is_none_or(|l| l <= farads)
+            && cn.high.is_none_or(|h| h >= farads);
         inside += usize::from(ok);
         let fit = p.fit.as_ref();
         if let (Some(f), Some(e)) = (fit, rs.estimate) {
@@ -274,6 +278,24 @@ fn study(args: &[String]) -> Result<()> {
             let at_fit = ohmsight::fit::objective_at(&input, &f.params);
             let at_truth = ohmsight::fit::objective_at(&input, &truth);
             println!("  objective at fit {at_fit:.1}, at truth {at_truth:.1}, cells {}", f.dof + 3);
+            if std::env::var_os("STUDY_PROFILE").is_some() {
+                let prof = |i: usize, x: f64| ohmsight::fit::profile_objective(&input, i, x.ln(), &f.params);
+                let base = prof(ohmsight::fit::LN_CN, f.params.node_farads);
+                let mut line = format!("  Cn profile (fit {base:.1}):");
+                let mut c = 1e-10;
+                while c < 2e-3 {
+                    line += &format!(" {}:{:.1}", units::farads(c), prof(ohmsight::fit::LN_CN, c) - base);
+                    c *= 10f64.sqrt();
+                }
+                println!("{line}");
+                let mut line = "  Rs profile:".to_string();
+                let mut r = 10.0;
+                while r < 2e12 {
+                    line += &format!(" {}:{:.1}", units::ohms(r), prof(ohmsight::fit::LN_RS, r) - base);
+                    r *= 10f64.sqrt();
+                }
+                println!("{line}");
+            }
         }
         println!(
             "seed {seed}: {:8} Rs {:28} Cn {:28} Vs {:?}  chi2/dof {:.2}  σlnRs {:.3}  δ {:.0} ns Ch {:+.1}% Rm {:+.1}% (true {:+.1}% {:+.1}%) {}",
@@ -291,7 +313,7 @@ fn study(args: &[String]) -> Result<()> {
             if ok { "" } else { "  <-- truth outside" }
         );
     }
-    println!("truth inside the 95% interval: {inside}/{seeds}");
+    println!("truth inside both 95% intervals (Rs and Cn): {inside}/{seeds}");
     if !zs.is_empty() {
         let rms = (zs.iter().map(|z| z * z).sum::<f64>() / zs.len() as f64).sqrt();
         let mean = zs.iter().sum::<f64>() / zs.len() as f64;
