@@ -254,11 +254,7 @@ fn study(args: &[String]) -> Result<()> {
         let r = survey(&mut session, &SurveyOptions::default())?;
         let p = &r.pins[0];
         let rs = p.source_ohms;
-        let cn = p.node_farads;
-        let ok = rs.low.is_none_or(|l| l <= ohms)
-            && rs.high.is_none_or(|h| h >= ohms)
-            && cn.low.is_none_or(|l| l <= farads)
-            && cn.high.is_none_or(|h| h >= farads);
+        let ok = ohmsight_tests::covers(&rs, ohms) && ohmsight_tests::covers(&p.node_farads, farads);
         inside += usize::from(ok);
         let fit = p.fit.as_ref();
         if let (Some(f), Some(e)) = (fit, rs.estimate) {
@@ -279,22 +275,23 @@ fn study(args: &[String]) -> Result<()> {
             let at_truth = ohmsight::fit::objective_at(&input, &truth);
             println!("  objective at fit {at_fit:.1}, at truth {at_truth:.1}, cells {}", f.dof + 3);
             if std::env::var_os("STUDY_PROFILE").is_some() {
-                let prof = |i: usize, x: f64| ohmsight::fit::profile_objective(&input, i, x.ln(), &f.params);
-                let base = prof(ohmsight::fit::LN_CN, f.params.node_farads);
-                let mut line = format!("  Cn profile (fit {base:.1}):");
-                let mut c = 1e-10;
-                while c < 2e-3 {
-                    line += &format!(" {}:{:.1}", units::farads(c), prof(ohmsight::fit::LN_CN, c) - base);
-                    c *= 10f64.sqrt();
+                use ohmsight::fit::{profile_objective, LN_CN, LN_RS};
+                let prof = |i: usize, x: f64| profile_objective(&input, i, x.ln(), &f.params);
+                let base = prof(LN_CN, f.params.node_farads);
+                println!("  profiles, χ² above the fit's {base:.1}, half-decade steps:");
+                // (name, parameter, first and last value, its units)
+                type Row = (&'static str, usize, f64, f64, fn(f64) -> String);
+                let rows: [Row; 2] =
+                    [("Cn", LN_CN, 1e-10, 2e-3, units::farads), ("Rs", LN_RS, 10.0, 2e12, units::ohms)];
+                for (name, i, first, last, unit) in rows {
+                    let mut line = format!("  {name}:");
+                    let mut x = first;
+                    while x < last {
+                        line += &format!(" {}:{:.1}", unit(x), prof(i, x) - base);
+                        x *= 10f64.sqrt();
+                    }
+                    println!("{line}");
                 }
-                println!("{line}");
-                let mut line = "  Rs profile:".to_string();
-                let mut r = 10.0;
-                while r < 2e12 {
-                    line += &format!(" {}:{:.1}", units::ohms(r), prof(ohmsight::fit::LN_RS, r) - base);
-                    r *= 10f64.sqrt();
-                }
-                println!("{line}");
             }
         }
         println!(
