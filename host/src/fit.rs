@@ -191,10 +191,6 @@ struct Problem<'a> {
     stalled: std::cell::Cell<bool>,
     /// Levenberg–Marquardt's patience.
     patience: usize,
-    /// The lowest objective any minimization has reached since this was last cleared, and
-    /// where: an interval search that finds a deeper valley than the fit's optimum shows the
-    /// optimum was a local one.
-    lowest: std::cell::Cell<Option<(f64, [f64; N_THETA])>>,
 }
 
 impl<'a> Problem<'a> {
@@ -240,7 +236,6 @@ impl<'a> Problem<'a> {
             decide: false,
             stalled: std::cell::Cell::new(false),
             patience: LM_PATIENCE,
-            lowest: std::cell::Cell::new(None),
         }
     }
 
@@ -478,44 +473,12 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
             p = consider(p, t0, &mut best);
         }
     }
-    // Re-weight with the model's own within-cell spread at the optimum, and polish; then the
-    // intervals. Their profiles search far from the optimum, and where one finds a deeper valley
-    // the optimum was a local one and its intervals would be drawn around the wrong point
-    // (behind a 10 µF node the valleys are narrow in both logs): start again from the deeper
-    // point.
-    let (_, mut t1) = best?;
-    let mut restarts = 0;
-    loop {
-        p.reweight(&t1);
-        best = None;
-        p = consider(p, t1, &mut best);
-        let (_, theta) = best?;
-        p.lowest.set(None);
-        let (q, fit) = conclude(p, theta, &starts, goals);
-        p = q;
-        match p.lowest.get() {
-            Some((obj, t)) if restarts < MAX_RESTARTS && obj < p.objective(&theta) - DEEPER_VALLEY => {
-                t1 = t;
-                restarts += 1;
-            }
-            _ => return fit,
-        }
-    }
-}
-
-/// How much deeper than the fit's optimum (in χ²) a valley found by an interval search must be
-/// for the fit to start again from it, and how many times it may.
-const DEEPER_VALLEY: f64 = 0.5;
-const MAX_RESTARTS: usize = 2;
-
-/// The intervals, bounds and assumptions of a fit whose optimum is `theta`.
-fn conclude<'a>(
-    mut p: Problem<'a>,
-    theta: [f64; N_THETA],
-    starts: &[(f64, [f64; N_THETA])],
-    goals: &Goals,
-) -> (Problem<'a>, Option<Fit>) {
-    let b = p.input.board;
+    // Re-weight with the model's own within-cell spread at the optimum, and polish.
+    let (_, t1) = best?;
+    p.reweight(&t1);
+    best = None;
+    p = consider(p, t1, &mut best);
+    let (_, theta) = best?;
     p.theta = theta;
     let chi2 = p.chi2_data(&theta);
     let dof = p.obs.len().saturating_sub(3);
@@ -529,7 +492,7 @@ fn conclude<'a>(
     let sigma_ln_rs = var(LN_RS).sqrt();
     let (s_rs, s_cn) = (var(LN_RS).sqrt(), var(LN_CN).sqrt());
     let (rs_points, cn_points) = (goals.points(LN_RS, b), goals.points(LN_CN, b));
-    let (p, mut source_ohms) = interval_log(p, theta, LN_RS, s_rs, birge2, starts, rs_points.as_deref());
+    let (p, mut source_ohms) = interval_log(p, theta, LN_RS, s_rs, birge2, &starts, rs_points.as_deref());
     // An interval spanning more than a factor of BOUND_RATIO is a bound, not a measurement:
     // below the switch resistance the data say "at most", far above it "at least".
     if let (Some(e), Some(l), Some(h)) = (source_ohms.estimate, source_ohms.low, source_ohms.high) {
@@ -546,7 +509,7 @@ fn conclude<'a>(
     // is open too.
     let node_wanted = cn_points.as_ref().is_none_or(|pts| !pts.is_empty());
     let (mut p, mut node_farads) = if node_wanted || source_ohms.high.is_none() {
-        interval_log(p, theta, LN_CN, s_cn, birge2, starts, cn_points.as_deref())
+        interval_log(p, theta, LN_CN, s_cn, birge2, &starts, cn_points.as_deref())
     } else {
         (p, Interval::NONE)
     };
@@ -565,7 +528,7 @@ fn conclude<'a>(
         let t0 = p.clamp(theta);
         p = consider(p, t0, &mut restricted);
         if let Some((_, t)) = restricted {
-            let (q, iv) = interval_log(p, t, LN_RS, s_rs, birge2, starts, rs_points.as_deref());
+            let (q, iv) = interval_log(p, t, LN_RS, s_rs, birge2, &starts, rs_points.as_deref());
             p = q;
             if let Some(h) = iv.high {
                 source_ohms = Interval { estimate: None, low: source_ohms.low, high: Some(h) };
@@ -585,7 +548,7 @@ fn conclude<'a>(
     let source_volts =
         Interval { estimate: Some(theta[VS]), low: Some(theta[VS] - Z95 * s_vs), high: Some(theta[VS] + Z95 * s_vs) };
     let evaluations = *p.evaluations.borrow();
-    let fit = Some(Fit {
+    Some(Fit {
         params: p.params_of(&reported),
         theta: reported,
         chi2,
@@ -596,8 +559,7 @@ fn conclude<'a>(
         assumes_node_below,
         sigma_ln_rs,
         evaluations,
-    });
-    (p, fit)
+    })
 }
 
 /// Standard error of a cell mean: noise over the count, slow interference that the cell's
@@ -614,9 +576,6 @@ fn consider<'a>(mut p: Problem<'a>, t0: [f64; N_THETA], best: &mut Option<(f64, 
     let obj = p.objective(&p.theta);
     if best.is_none_or(|(o, _)| obj < o) {
         *best = Some((obj, p.theta));
-    }
-    if p.lowest.get().is_none_or(|(o, _)| obj < o) {
-        p.lowest.set(Some((obj, p.theta)));
     }
     p
 }
