@@ -7,6 +7,7 @@ mod compare;
 mod history;
 mod limits;
 mod loading;
+mod plan;
 mod ports;
 mod refit;
 mod simulate;
@@ -64,6 +65,14 @@ enum Command {
     /// ½ LSB), over the 95% interval of the source resistance.
     #[command(after_long_help = loading::EXAMPLES)]
     Loading(loading::Args),
+    /// The verified scan plan of a stored survey as source code for your firmware (C or Rust).
+    ///
+    /// From a survey document (the JSON of `survey --json`) or a stored survey's run id: the
+    /// scan order, each pin's sample-time setting and dummy conversions, the idle time after each
+    /// scan and the scan period, with the run, board, unit, worst error and the pins left out in
+    /// the header comment.
+    #[command(after_long_help = plan::EXAMPLES)]
+    Plan(plan::Args),
     /// Serve the simulated board on a pseudo-terminal, so serial tools can talk to it.
     ///
     /// Prints the device path (e.g. /dev/pts/4) alone on the first line of stdout, then answers
@@ -180,6 +189,7 @@ pub fn run(cli: Cli) -> Result<(), Failure> {
         Command::History(args) => history::run(args),
         Command::Compare(args) => compare::run(args),
         Command::Loading(args) => loading::run(args),
+        Command::Plan(args) => plan::run(args),
         Command::Simulate(args) => simulate::run(args),
         Command::Ports(args) => ports::run(args),
         Command::Check(args) => check::run(args),
