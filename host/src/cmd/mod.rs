@@ -4,6 +4,7 @@
 mod check;
 mod common;
 mod compare;
+mod completions;
 mod history;
 mod limits;
 mod loading;
@@ -12,6 +13,8 @@ mod ports;
 mod refit;
 mod simulate;
 mod survey;
+
+pub use completions::{man_pages, MAN_PAGES_ENV};
 
 use clap::{Parser, Subcommand};
 
@@ -92,6 +95,9 @@ enum Command {
     /// Propose a limits file from stored runs of golden units (mean ± K·σ per measurement).
     #[command(after_long_help = limits::EXAMPLES)]
     Limits(limits::Args),
+    /// Print the completion script for a shell (bash, zsh, fish, powershell, elvish).
+    #[command(after_long_help = completions::EXAMPLES)]
+    Completions(completions::Args),
 }
 
 /// What kind of failure ended a command: it decides the exit code.
@@ -194,5 +200,6 @@ pub fn run(cli: Cli) -> Result<(), Failure> {
         Command::Ports(args) => ports::run(args),
         Command::Check(args) => check::run(args),
         Command::Limits(args) => limits::run(args),
+        Command::Completions(args) => completions::run(args),
     }
 }
