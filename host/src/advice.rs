@@ -539,7 +539,7 @@ impl Candidate {
 }
 
 /// The worst error the plan allows, LSB.
-const LIMIT_LSB: f64 = 0.5;
+pub const LIMIT_LSB: f64 = 0.5;
 
 /// A scan plan: tries a few orders (channel order, low source resistance first, ascending
 /// level), and for each lengthens sample times, adds dummy conversions and idle time where a

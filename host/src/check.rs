@@ -234,7 +234,7 @@ fn range_text(r: &Range, fmt: fn(f64) -> String) -> String {
 }
 
 fn lsb(v: f64) -> String {
-    format!("{v:.2} LSB")
+    crate::units::lsb(v)
 }
 
 /// Judges a number measurement with interval `iv` against `range`.
@@ -571,7 +571,7 @@ impl CheckReport {
             "ohmsight check — unit {}, board \"{}\", limits \"{}\" ({})\nrun {} started {}\n\n",
             self.unit, run.board, self.limits.name, self.limits.file, run.id, run.started
         );
-        let width = self.pins.iter().map(|p| p.label.chars().count()).max().unwrap_or(0).max(5);
+        let width = self.pins.iter().map(|p| units::width(&p.label)).max().unwrap_or(0).max(5);
         for p in &self.pins {
             let failing: Vec<String> =
                 p.limits.iter().filter(|l| l.outcome != Outcome::Pass).map(LimitResult::sentence).collect();
@@ -596,12 +596,11 @@ impl CheckReport {
                 failing.join("; ")
             };
             out += &format!(
-                "ch{:<3} {:<width$}  {:<4}  {}\n",
+                "ch{:<3} {}  {:<4}  {}\n",
                 p.channel,
-                p.label,
+                units::pad(&p.label, width),
                 p.result.to_uppercase(),
                 detail,
-                width = width
             );
         }
         let s = &self.survey;

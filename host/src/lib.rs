@@ -10,7 +10,7 @@
 //! | model and fit | [`model`], [`fit`], [`noise`] | the sampling network's forward model, the fit, noise records |
 //! | analyse | [`analyse`] | a record's pins rebuilt, fitted and judged (live and `refit` alike) |
 //! | judge | [`judge`], [`burst`] | verdicts, flags, settling, memory; a stiff pin's bound put to the test |
-//! | advise | [`advice`], [`loading`] | sample times, fixes, the scan plan; instrument loading |
+//! | advise | [`advice`], [`loading`], [`emit`] | sample times, fixes, the scan plan (and as C or Rust source); instrument loading |
 //! | render | [`render`] | text, JSON, HTML |
 //! | compare | [`compare`] | what changed on a unit between two analysed runs, and what it likely means |
 //! | store | [`store`] | SQLite or PostgreSQL, committed experiment by experiment |
@@ -23,6 +23,7 @@ pub mod analyse;
 pub mod burst;
 pub mod check;
 pub mod compare;
+pub mod emit;
 pub mod faulty;
 pub mod fit;
 pub mod judge;

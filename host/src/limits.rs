@@ -400,6 +400,9 @@ impl Ctx<'_> {
 pub fn parse(file: &str, text: &str) -> Result<Limits, LimitsError> {
     let cx = Ctx { file, text };
     let f: FileToml = toml::from_str(text).map_err(|e| cx.err(e.span(), e.message().trim().to_string()))?;
+    if let Some(why) = crate::scenario::control_character("name", f.name.get_ref()) {
+        return Err(cx.err(Some(f.name.span()), why));
+    }
     let mains_hz = match &f.mains_hz {
         Some(m) if crate::noise::MAINS_HZ.contains(&m.get_ref().0) => Some(m.get_ref().0),
         Some(m) => {
@@ -426,6 +429,11 @@ pub fn parse(file: &str, text: &str) -> Result<Limits, LimitsError> {
             Some(c) => return Err(cx.err(Some(c.span()), "channel must be from 0 to 255")),
             None => None,
         };
+        if let Some(l) = &p.label {
+            if let Some(why) = crate::scenario::control_character("label", l.get_ref()) {
+                return Err(cx.err(Some(l.span()), why));
+            }
+        }
         let label = p.label.as_ref().map(|l| l.get_ref().clone());
         if channel.is_none() && label.is_none() {
             return Err(cx.err(Some(sp.span()), "a [[pin]] table needs channel = N or label = \"…\""));
@@ -729,7 +737,11 @@ source_ohms = { low = 1e9 }
 
     #[test]
     fn errors_name_line_and_fix() {
-        let cases: [(&str, usize, &str); 9] = [
+        let cases: [(&str, usize, &str); 12] = [
+            // A control character in a name or label (an ANSI escape, a newline), written as TOML escapes.
+            ("name = \"x\\u001b[2J\"\n[[pin]]\nchannel = 0\nhum = false\n", 1, "U+001B"),
+            ("name = \"x\"\n[[pin]]\nlabel = \"a\\nb\"\nhum = false\n", 3, "U+000A"),
+            ("name = \"x\"\n[[pin]]\nchannel = \"one\"\nhum = false\n", 3, "expected a whole number"),
             ("name = \"x\"\nmains_hz = 55\n[[pin]]\nchannel = 0\nhum = false\n", 2, "50 or 60"),
             ("name = \"x\"\n[[pin]]\nchannel = 0\nsource_ohm = [1, 2]\n", 4, "unknown field"),
             ("name = \"x\"\n[[pin]]\nchannel = 0\nsource_ohms = [52e3, 40e3]\n", 4, "swap"),

@@ -135,13 +135,29 @@ impl SerialLink {
         let port = serialport::new(path, baud)
             .timeout(Duration::from_millis(100))
             .open()
-            .map_err(|e| io::Error::other(format!("cannot open serial port {path}: {e}")))?;
+            .map_err(|e| io::Error::other(format!("cannot open serial port {path}: {}", open_error(path, &e))))?;
         Ok(Self { port, path: path.to_string() })
     }
 
     /// Wraps a port that is already open (a pseudo-terminal pair, a port set up by the caller).
     pub fn from_port(port: Box<dyn serialport::SerialPort>, name: &str) -> Self {
         Self { port, path: name.to_string() }
+    }
+}
+
+/// Why a port did not open, in words that say what was expected: the system's own text for a
+/// device that is not a terminal ("Not a typewriter", ENOTTY) names a 1970s device, not the
+/// problem.
+fn open_error(path: &str, e: &serialport::Error) -> String {
+    const HINT: &str = "give the board's serial device (e.g. /dev/ttyACM0 or COM3; `ohmsight ports` lists them)";
+    match std::fs::metadata(path) {
+        Err(m) if m.kind() == io::ErrorKind::NotFound => format!("no such device; {HINT}"),
+        Ok(m) if m.is_dir() => format!("it is a folder, not a serial device; {HINT}"),
+        Ok(m) if m.is_file() => format!("it is a regular file, not a serial device; {HINT}"),
+        Ok(_) if ["typewriter", "inappropriate ioctl"].iter().any(|t| e.to_string().to_lowercase().contains(t)) => {
+            format!("the device is not a serial port (no terminal settings to set); {HINT}")
+        }
+        _ => e.to_string(),
     }
 }
 

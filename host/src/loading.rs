@@ -13,6 +13,7 @@
 
 use crate::fit::Interval;
 use crate::record::Document;
+use crate::units;
 use serde_json::{json, Value};
 use std::f64::consts::PI;
 
@@ -53,37 +54,9 @@ pub fn preset(name: &str) -> Option<Instrument> {
     })
 }
 
-/// Parses `1M`, `25p`, `10MΩ`, `12pF`, `1e6` with the unit letters `units` allowed at the end.
+/// A positive value with an optional SI prefix and one of `units` ([`crate::units::parse_si`]).
 fn parse_value(text: &str, units: &[&str]) -> Option<f64> {
-    let mut t = text.trim();
-    for u in units {
-        if let Some(s) = t.strip_suffix(u) {
-            t = s.trim_end();
-            break;
-        }
-    }
-    let prefixes = [
-        ('T', 1e12),
-        ('G', 1e9),
-        ('M', 1e6),
-        ('k', 1e3),
-        ('K', 1e3),
-        ('m', 1e-3),
-        ('u', 1e-6),
-        ('µ', 1e-6),
-        ('n', 1e-9),
-        ('p', 1e-12),
-        ('f', 1e-15),
-    ];
-    let (number, scale) = match t.chars().last() {
-        Some(c) if c.is_alphabetic() && c != 'e' && c != 'E' => match prefixes.iter().find(|(p, _)| *p == c) {
-            Some(&(_, s)) => (&t[..t.len() - c.len_utf8()], s),
-            None => return None,
-        },
-        _ => (t, 1.0),
-    };
-    let v: f64 = number.trim().parse().ok()?;
-    (v.is_finite() && v > 0.0).then_some(v * scale)
+    crate::units::parse_si(text, units).filter(|v| *v > 0.0)
 }
 
 /// Parses `--input`: `RESISTANCE,CAPACITANCE`, each a positive number with an optional SI
@@ -98,6 +71,33 @@ pub fn parse_input(text: &str) -> Result<Instrument, String> {
     let input_farads =
         parse_value(c, &["F"]).ok_or_else(|| format!("'{}' is not a positive capacitance; {HOW}", c.trim()))?;
     Ok(Instrument { description: "instrument input".into(), input_ohms, input_farads, typical: false })
+}
+
+/// Input resistances of measuring instruments span about 50 Ω (a scope's terminated input) to
+/// 10^15 Ω (an electrometer); input capacitances about 0.1 pF to 10 nF (common practice, no
+/// source). A value outside is most likely a typing slip: `1m` (milli) for `1M` (mega).
+const PLAUSIBLE_OHMS: (f64, f64) = (50.0, 1e15);
+/// See [`PLAUSIBLE_OHMS`].
+const PLAUSIBLE_FARADS: (f64, f64) = (0.1e-12, 10e-9);
+
+/// Warnings for an instrument whose values no instrument has (each a sentence for stderr):
+/// the answer is still computed, since the user may mean it.
+pub fn implausible(i: &Instrument) -> Vec<String> {
+    let mut out = Vec::new();
+    let check = |v: f64, (lo, hi): (f64, f64), what: &str, unit: &str, out: &mut Vec<String>| {
+        if v < lo || v > hi {
+            out.push(format!(
+                "an instrument input {what} of {} is implausible (instruments have {}–{}); \
+                 check the prefix: m is milli, M is mega, u is micro",
+                units::si(v, unit),
+                units::si(lo, unit),
+                units::si(hi, unit)
+            ));
+        }
+    };
+    check(i.input_ohms, PLAUSIBLE_OHMS, "resistance", "Ω", &mut out);
+    check(i.input_farads, PLAUSIBLE_FARADS, "capacitance", "F", &mut out);
+    out
 }
 
 /// What a survey knows about one pin, as the loading question needs it.
@@ -461,7 +461,7 @@ pub fn loading_text(l: &Loading) -> String {
                     ohms(c.source_ohms),
                     volts(c.node_volts),
                     volts(c.shift_volts),
-                    format!("{:.2} LSB", c.shift_lsb),
+                    units::lsb(c.shift_lsb),
                     si(c.tau_before_s, "s"),
                     si(c.tau_s, "s"),
                     si(c.bandwidth_hz, "Hz"),
@@ -500,6 +500,20 @@ mod tests {
 
     fn iv(e: f64, l: f64, h: f64) -> Interval {
         Interval { estimate: Some(e), low: Some(l), high: Some(h) }
+    }
+
+    #[test]
+    fn implausible_instruments_are_named() {
+        // `1m` read as 1 mΩ: no instrument has that input (the issue's "3.14 THz").
+        let slip = parse_input("1m,25p").unwrap();
+        let w = implausible(&slip);
+        assert_eq!(w.len(), 1, "{w:?}");
+        assert!(w[0].contains("1.00 mΩ") && w[0].contains("M is mega"), "{w:?}");
+        assert_eq!(implausible(&parse_input("1M,25u").unwrap()).len(), 1);
+        for (name, ..) in PRESETS {
+            assert!(implausible(&preset(name).unwrap()).is_empty(), "{name}");
+        }
+        assert!(implausible(&parse_input("50,5p").unwrap()).is_empty());
     }
 
     #[test]

@@ -13,8 +13,11 @@ use clap::Parser;
 use std::process::ExitCode;
 
 fn main() -> ExitCode {
-    let cli = cmd::Cli::parse();
-    match cmd::run(cli) {
+    let outcome = match std::env::var_os(cmd::MAN_PAGES_ENV) {
+        Some(dir) => cmd::man_pages(std::path::Path::new(&dir)),
+        None => cmd::run(cmd::Cli::parse()),
+    };
+    match outcome {
         Ok(()) => ExitCode::SUCCESS,
         Err(failure) => {
             if !failure.message.is_empty() {

@@ -218,16 +218,18 @@ pub fn list(only: &[String]) -> Result<Vec<PortEntry>, String> {
     Ok(out)
 }
 
-/// Opens `path` at `baud` and asks for the ohmsight hello and board description, spending at
-/// most about `wait` on it when the port does not block (see [`probe_all`] for the hard bound).
+/// Opens `path` at `baud` and asks for the ohmsight hello and board description. A silent port
+/// is given `wait` in all (its hello tries share it) before it is called silent; see
+/// [`probe_all`] for the hard bound on a port that blocks.
 pub fn probe(path: &str, baud: u32, wait: Duration) -> Probe {
     let link = match SerialLink::open(path, baud) {
         Ok(l) => l,
         Err(e) => return Probe::Failed(e.to_string()),
     };
     let mut session = Session::new(link);
-    // The hello is tried up to three times, each followed by a short drain.
-    session.timeout = (wait / 4).max(Duration::from_millis(20));
+    // A silent port is asked SILENT_TRIES times, each try waiting its share of `wait`: the whole
+    // wait the user asked for (not less: a board that resets when its port opens needs it).
+    session.timeout = (wait / crate::session::SILENT_TRIES).max(Duration::from_millis(20));
     session.link_bytes_per_s = u64::from(baud / 10).max(1);
     match session.handshake(false) {
         Ok(info) => Probe::Board {
@@ -281,14 +283,11 @@ pub fn table(entries: &[PortEntry], wait: Duration) -> String {
                 [e.path.clone(), e.usb_id().unwrap_or_else(|| "—".into()), e.description(), e.probe.text(wait)]
             }))
             .collect();
-    let widths: Vec<usize> = (0..4).map(|c| rows.iter().map(|r| r[c].chars().count()).max().unwrap_or(0)).collect();
+    let widths: Vec<usize> =
+        (0..4).map(|c| rows.iter().map(|r| crate::units::width(&r[c])).max().unwrap_or(0)).collect();
     let mut out = String::new();
     for (n, row) in rows.iter().enumerate() {
-        let cells: Vec<String> = row
-            .iter()
-            .zip(&widths)
-            .map(|(cell, &w)| format!("{cell}{}", " ".repeat(w - cell.chars().count())))
-            .collect();
+        let cells: Vec<String> = row.iter().zip(&widths).map(|(cell, &w)| crate::units::pad(cell, w)).collect();
         out += cells.join("  ").trim_end();
         out.push('\n');
         if n == 0 {
@@ -408,6 +407,23 @@ mod tests {
         let paths: Vec<&str> = l.iter().map(|e| e.path.as_str()).collect();
         assert_eq!(paths, ["/dev/pts/99", "/dev/pts/98"]);
         assert!(l.iter().all(|e| e.kind == PortKind::Given && e.probe == Probe::Skipped));
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn a_silent_port_is_given_the_whole_wait() {
+        // A pseudo-terminal whose other end never answers.
+        let (_silent, path) = crate::simulate::open_pty().unwrap();
+        for wait_ms in [300, 900] {
+            let wait = Duration::from_millis(wait_ms);
+            let t = Instant::now();
+            let p = probe(&path, 115_200, wait);
+            let took = t.elapsed();
+            assert!(matches!(p, Probe::Silent), "{p:?}");
+            assert!(took >= wait, "gave up after {took:?} of {wait:?}");
+            // Not much more either (generous: the machine may be busy).
+            assert!(took < wait + Duration::from_millis(1500), "{took:?} for {wait:?}");
+        }
     }
 
     #[test]

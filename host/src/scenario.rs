@@ -35,8 +35,31 @@ impl FileError {
             Some((l, c)) => (Some(l), Some(c)),
             None => (None, None),
         };
-        FileError { file: file.to_string(), line, column, message: message.into() }
+        FileError { file: file.to_string(), line, column, message: plain_words(&message.into()) }
     }
+}
+
+/// A parser's message in the words of the file's reader: "expected i64" says what Rust type a
+/// field has, not what to write, so it becomes "expected a whole number".
+pub fn plain_words(message: &str) -> String {
+    const WORDS: [(&str, &str); 15] = [
+        ("expected a boolean", "expected true or false"),
+        ("invalid type: ", "wrong kind of value: "),
+        ("floating point `", "the decimal number `"),
+        ("string \"", "the text \""),
+        ("expected i64", "expected a whole number"),
+        ("expected i32", "expected a whole number"),
+        ("expected i16", "expected a whole number"),
+        ("expected i8", "expected a whole number"),
+        ("expected u64", "expected a whole number from 0 up"),
+        ("expected u32", "expected a whole number from 0 up"),
+        ("expected u16", "expected a whole number from 0 up"),
+        ("expected u8", "expected a whole number from 0 to 255"),
+        ("expected usize", "expected a whole number from 0 up"),
+        ("expected f64", "expected a number"),
+        ("expected f32", "expected a number"),
+    ];
+    WORDS.iter().fold(message.to_string(), |m, (from, to)| m.replace(from, to))
 }
 
 impl std::fmt::Display for FileError {
@@ -130,6 +153,18 @@ pub(crate) fn line_column(text: &str, offset: usize) -> (usize, usize) {
     (line, column)
 }
 
+/// Why `text` (a name or label that will be printed on terminals) is refused: a control
+/// character (an escape sequence would reach the terminal; a newline would break a table row).
+pub(crate) fn control_character(key: &str, text: &str) -> Option<String> {
+    text.chars().find(|c| c.is_control()).map(|c| {
+        format!(
+            "{key} holds the control character U+{:04X}: it would reach the terminal as a command, not text; \
+             write the {key} with printable characters only",
+            u32::from(c)
+        )
+    })
+}
+
 impl Ctx<'_> {
     fn err(&self, span: Option<Range<usize>>, message: impl Into<String>) -> ScenarioError {
         FileError::at(self.file, self.text, span, message)
@@ -157,6 +192,9 @@ pub fn parse(file: &str, text: &str) -> Result<Scenario, ScenarioError> {
     let cx = Ctx { file, text };
     let f: FileToml = toml::from_str(text).map_err(|e| cx.err(e.span(), e.message().trim().to_string()))?;
     let name = f.name.get_ref();
+    if let Some(why) = control_character("name", name) {
+        return Err(cx.err(Some(f.name.span()), why));
+    }
     let name = heapless::String::try_from(name.as_str())
         .map_err(|_| cx.err(Some(f.name.span()), "name is longer than 48 bytes: shorten it"))?;
     let d = BoardProfile::default();
@@ -218,6 +256,9 @@ pub fn parse(file: &str, text: &str) -> Result<Scenario, ScenarioError> {
         }
         let label = match &p.label {
             None => heapless::String::try_from(format!("ch{ch}").as_str()).unwrap_or_default(),
+            Some(l) if control_character("label", l.get_ref()).is_some() => {
+                return Err(cx.err(Some(l.span()), control_character("label", l.get_ref()).unwrap_or_default()))
+            }
             Some(l) => heapless::String::try_from(l.get_ref().as_str())
                 .map_err(|_| cx.err(Some(l.span()), "label is longer than 24 bytes: shorten it"))?,
         };
@@ -281,6 +322,29 @@ mod tests {
         assert!(s.pins.iter().any(|p| p.source == Source::Floating));
         assert!(s.pins.iter().any(|p| p.node_farads >= 1e-9));
         assert!(s.pins.iter().any(|p| matches!(p.source, Source::Driven { volts, .. } if volts >= s.board.vref_volts)));
+    }
+
+    #[test]
+    fn parser_words_become_plain_words() {
+        let e = parse("t.toml", "name = \"b\"\n[[pin]]\nchannel = \"x\"\nfloating = true\n").unwrap_err();
+        assert_eq!(e.line, Some(3));
+        assert!(!e.message.contains("i64") && e.message.contains("expected a whole number"), "{e}");
+        assert!(e.message.contains("the text \"x\""), "{e}");
+        let e = parse("t.toml", "name = \"b\"\n[[pin]]\nchannel = 1.5\nfloating = true\n").unwrap_err();
+        assert!(e.message.contains("the decimal number `1.5`, expected a whole number"), "{e}");
+    }
+
+    #[test]
+    fn control_characters_in_labels_and_names_are_refused_at_their_line() {
+        // An ANSI escape (ECMA-48 CSI, ESC [) and a newline written as TOML escapes.
+        let text = "name = \"bench\"\n[[pin]]\nchannel = 0\nlabel = \"red\\u001b[31m\"\nvolts = 1.0\nohms = 1e3\n";
+        let e = parse("esc.toml", text).unwrap_err();
+        assert_eq!(e.line, Some(4), "{e}");
+        assert!(e.message.contains("U+001B"), "{e}");
+        let e = parse("nl.toml", "name = \"two\\nlines\"\n[[pin]]\nchannel = 0\nfloating = true\n").unwrap_err();
+        assert_eq!(e.line, Some(1), "{e}");
+        assert!(e.message.contains("U+000A"), "{e}");
+        assert!(parse("ok.toml", "name = \"土壌 ½\"\n[[pin]]\nchannel = 0\nfloating = true\n").is_ok());
     }
 
     #[test]

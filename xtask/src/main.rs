@@ -10,6 +10,7 @@
 //! - `fuzz [--cases N] [--seed S] [--start I] [--target frames|messages|engine|all]`: the decoders'
 //!   fuzz targets (see [`fuzz`]), 10^7 cases each by default; prints cases/s, exits non-zero with
 //!   the seed and the input on a failure.
+//! - `man`: the manual page of every command (clap_mangen) under `target/man/`.
 //! - `accuracy`: a grid of simulated set-ups; errors, interval coverage, verdicts, cost and the
 //!   Cramér–Rao bound (see [`accuracy`]).
 
@@ -37,9 +38,10 @@ fn main() -> Result<()> {
         Some("firmware") => xtask::firmware::command(&args[1..]),
         Some("qemu") => xtask::qemu::command(&args[1..]),
         Some("size") => xtask::firmware::size_command(),
+        Some("man") => man(),
         _ => {
             eprintln!("usage: cargo xtask test [ARGS] | bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
-            eprintln!("       cargo xtask firmware <board> | qemu [--scenario FILE] | size");
+            eprintln!("       cargo xtask firmware <board> | qemu [--scenario FILE] | size | man");
             eprintln!("       cargo xtask accuracy [--quick] [--seeds N] [--jobs N] [--detail] [--ideal | --off a,b]");
             eprintln!(
                 "       cargo xtask fuzz [--cases N] [--seed S] [--start I] [--target frames|messages|engine|all]"
@@ -47,6 +49,43 @@ fn main() -> Result<()> {
             bail!("unknown or missing command")
         }
     }
+}
+
+/// `cargo xtask man`: `ohmsight.1` and a page per command under `target/man/` (or
+/// `$CARGO_TARGET_DIR/man/`). The pages come from the binary's own command line definition
+/// (clap_mangen), which it writes when `OHMSIGHT_WRITE_MAN_PAGES` names a folder.
+fn man() -> Result<()> {
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).parent().context("the workspace folder")?;
+    let target = std::env::var_os("CARGO_TARGET_DIR").map_or_else(|| root.join("target"), std::path::PathBuf::from);
+    let out = target.join("man");
+    // Pages of commands that no longer exist must not linger.
+    if let Ok(old) = std::fs::read_dir(&out) {
+        for entry in old.flatten() {
+            if entry.path().extension().is_some_and(|e| e == "1") {
+                std::fs::remove_file(entry.path()).with_context(|| format!("removing {}", entry.path().display()))?;
+            }
+        }
+    }
+    let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
+    let status = std::process::Command::new(cargo)
+        .current_dir(root)
+        .args(["run", "--quiet", "--release", "-p", "ohmsight", "--bin", "ohmsight"])
+        .env("OHMSIGHT_WRITE_MAN_PAGES", &out)
+        .status()
+        .context("running cargo")?;
+    if !status.success() {
+        bail!("building or running ohmsight to write the manual pages failed ({status})");
+    }
+    let mut pages: Vec<String> = std::fs::read_dir(&out)
+        .with_context(|| format!("reading {}", out.display()))?
+        .flatten()
+        .map(|e| e.file_name().to_string_lossy().into_owned())
+        .filter(|n| n.ends_with(".1"))
+        .collect();
+    pages.sort();
+    println!("{} manual pages in {}: {}", pages.len(), out.display(), pages.join(" "));
+    println!("read one with `man -l {}`", out.join("ohmsight-survey.1").display());
+    Ok(())
 }
 
 fn pin(channel: u8, source: Source, node_farads: f64) -> PinSetup {

@@ -21,11 +21,11 @@ pub struct LinkArgs {
     /// Serial port of a board running the ohmsight firmware (e.g. /dev/ttyACM0).
     #[arg(long, value_name = "PATH")]
     pub port: Option<String>,
-    /// Baud rate of the serial port.
-    #[arg(long, value_name = "N", default_value_t = 115_200, requires = "port")]
+    /// Baud rate of the serial port (bits per second; 115200 or 115.2k).
+    #[arg(long, value_name = "N", default_value_t = 115_200, requires = "port", value_parser = baud_rate)]
     pub baud: u32,
     /// Seed of the simulated board's noise (overrides the scenario's).
-    #[arg(long, value_name = "N", conflicts_with = "port")]
+    #[arg(long, value_name = "N", conflicts_with = "port", value_parser = seed)]
     pub seed: Option<u64>,
     /// Talk to a board of another protocol version anyway.
     #[arg(long)]
@@ -59,6 +59,49 @@ pub fn open_run_link(
         },
     };
     open_session(&args)
+}
+
+// Value parsers: every option that takes a quantity reads SI prefixes the same way
+// (`ohmsight::units::parse_si`), and a value that cannot be says what kind of value was expected.
+
+/// `--resolve`: a positive voltage (`100u`, `100 µV`, `100e-6`, `0.1m`).
+pub fn positive_volts(text: &str) -> Result<f64, String> {
+    match ohmsight::units::parse_si(text, &["V"]) {
+        Some(v) if v > 0.0 => Ok(v),
+        _ => Err(format!(
+            "'{text}' is not a positive voltage: give volts with an optional SI prefix, e.g. 100u or 100e-6 for 100 µV"
+        )),
+    }
+}
+
+/// A serial baud rate: a whole number of bits per second above zero (`115200`, `115.2k`, `1M`).
+pub fn baud_rate(text: &str) -> Result<u32, String> {
+    match ohmsight::units::parse_count(text).and_then(|n| u32::try_from(n).ok()) {
+        Some(n) if n > 0 => Ok(n),
+        _ => Err(format!(
+            "'{text}' is not a baud rate: give the serial port's speed in bits per second, e.g. 115200 or 115.2k"
+        )),
+    }
+}
+
+/// A seed: any whole number from 0 to 2^64 − 1.
+pub fn seed(text: &str) -> Result<u64, String> {
+    text.trim()
+        .parse::<u64>()
+        .map_err(|_| format!("'{text}' is not a seed: give a whole number from 0 to {}", u64::MAX))
+}
+
+/// A channel number (0 to 255).
+pub fn channel(text: &str) -> Result<u8, String> {
+    text.trim()
+        .parse::<u8>()
+        .map_err(|_| format!("'{text}' is not a channel number: give the ADC channel as a whole number from 0 to 255"))
+}
+
+/// A time in milliseconds, a whole number (`1500`, `1.5k`).
+pub fn millis(text: &str) -> Result<u64, String> {
+    ohmsight::units::parse_count(text)
+        .ok_or_else(|| format!("'{text}' is not a time in milliseconds: give a whole number, e.g. 1500"))
 }
 
 /// Which database runs are kept in.

@@ -54,7 +54,7 @@ pub struct Args {
 }
 
 fn positive(text: &str) -> Result<f64, String> {
-    match text.trim().parse::<f64>() {
+    match ohmsight::units::parse_si(text, &[]).ok_or(()) {
         Ok(v) if v.is_finite() && v > 0.0 && v <= 100.0 => Ok(v),
         _ => Err(format!("'{text}' is not a K from above 0 to 100 (e.g. 4)")),
     }

@@ -28,7 +28,7 @@ usual precautions; follow local codes and licensed practice.";
 #[command(group(clap::ArgGroup::new("instrument").required(true).args(["input", "preset"])))]
 pub struct Args {
     /// The pin (channel number) the instrument would touch.
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", value_parser = super::common::channel)]
     pin: u8,
     /// The instrument's input as RESISTANCE,CAPACITANCE in parallel, SI prefixes allowed
     /// (e.g. 1M,25p or 10MΩ,12pF).
@@ -58,6 +58,9 @@ pub fn run(args: Args) -> Result<(), Failure> {
         (None, Some(name)) => loading::preset(name).ok_or_else(|| Failure::bad_input(format!("no preset {name}")))?,
         (None, None) => return Err(Failure::bad_input("give the instrument with --input R,C or --preset NAME")),
     };
+    for warning in loading::implausible(&instrument) {
+        eprintln!("ohmsight: warning: {warning}");
+    }
     let (from, doc) = if let Some(path) = &args.from {
         let text = std::fs::read_to_string(path)
             .map_err(|e| Failure::bad_input(format!("cannot read {}: {e}", path.display())))?;

@@ -4,13 +4,17 @@
 mod check;
 mod common;
 mod compare;
+mod completions;
 mod history;
 mod limits;
 mod loading;
+mod plan;
 mod ports;
 mod refit;
 mod simulate;
 mod survey;
+
+pub use completions::{man_pages, MAN_PAGES_ENV};
 
 use clap::{Parser, Subcommand};
 
@@ -64,6 +68,14 @@ enum Command {
     /// ½ LSB), over the 95% interval of the source resistance.
     #[command(after_long_help = loading::EXAMPLES)]
     Loading(loading::Args),
+    /// The verified scan plan of a stored survey as source code for your firmware (C or Rust).
+    ///
+    /// From a survey document (the JSON of `survey --json`) or a stored survey's run id: the
+    /// scan order, each pin's sample-time setting and dummy conversions, the idle time after each
+    /// scan and the scan period, with the run, board, unit, worst error and the pins left out in
+    /// the header comment.
+    #[command(after_long_help = plan::EXAMPLES)]
+    Plan(plan::Args),
     /// Serve the simulated board on a pseudo-terminal, so serial tools can talk to it.
     ///
     /// Prints the device path (e.g. /dev/pts/4) alone on the first line of stdout, then answers
@@ -83,6 +95,9 @@ enum Command {
     /// Propose a limits file from stored runs of golden units (mean ± K·σ per measurement).
     #[command(after_long_help = limits::EXAMPLES)]
     Limits(limits::Args),
+    /// Print the completion script for a shell (bash, zsh, fish, powershell, elvish).
+    #[command(after_long_help = completions::EXAMPLES)]
+    Completions(completions::Args),
 }
 
 /// What kind of failure ended a command: it decides the exit code.
@@ -180,9 +195,11 @@ pub fn run(cli: Cli) -> Result<(), Failure> {
         Command::History(args) => history::run(args),
         Command::Compare(args) => compare::run(args),
         Command::Loading(args) => loading::run(args),
+        Command::Plan(args) => plan::run(args),
         Command::Simulate(args) => simulate::run(args),
         Command::Ports(args) => ports::run(args),
         Command::Check(args) => check::run(args),
         Command::Limits(args) => limits::run(args),
+        Command::Completions(args) => completions::run(args),
     }
 }

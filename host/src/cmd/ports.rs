@@ -24,10 +24,10 @@ pub struct Args {
     #[arg(long)]
     no_probe: bool,
     /// Baud rate for the probe.
-    #[arg(long, value_name = "N", default_value_t = 115_200)]
+    #[arg(long, value_name = "N", default_value_t = 115_200, value_parser = super::common::baud_rate)]
     baud: u32,
     /// How long to wait for a port to answer, in milliseconds (ports are probed in parallel).
-    #[arg(long, value_name = "MS", default_value_t = 1500)]
+    #[arg(long, value_name = "MS", default_value_t = 1500, value_parser = super::common::millis)]
     wait_ms: u64,
     /// Print one JSON document on stdout instead of the table.
     #[arg(long)]

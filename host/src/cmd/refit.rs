@@ -39,7 +39,7 @@ pub struct Args {
     #[arg(long, value_name = "FILE")]
     html: Option<PathBuf>,
     /// The smallest change you need to see on a pin, volts (as for survey).
-    #[arg(long, value_name = "VOLTS")]
+    #[arg(long, value_name = "VOLTS", value_parser = super::common::positive_volts)]
     resolve: Option<f64>,
     #[command(flatten)]
     db: DbArgs,

@@ -24,7 +24,7 @@ pub struct Args {
     #[arg(long, value_name = "FILE.toml")]
     scenario: Option<PathBuf>,
     /// Seed of the simulated board's noise (overrides the scenario's).
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", value_parser = super::common::seed)]
     seed: Option<u64>,
     /// No notes on stderr about clients coming and going.
     #[arg(long, short)]

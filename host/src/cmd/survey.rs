@@ -1,6 +1,8 @@
 //! `ohmsight survey`: survey a board, print the result, keep the run in the store.
 
-use super::common::{open_run_link, open_session, print, write_output, Bar, DbArgs, Keeper, LinkArgs};
+use super::common::{
+    channel, open_run_link, open_session, positive_volts, print, write_output, Bar, DbArgs, Keeper, LinkArgs,
+};
 use super::Failure;
 use ohmsight::advice::{advise, AdviceOptions};
 use ohmsight::render::{html::survey_html, survey_json, text::survey_text};
@@ -40,7 +42,7 @@ pub struct Args {
     #[command(flatten)]
     link: LinkArgs,
     /// Survey only this channel (repeat for several).
-    #[arg(long = "channel", value_name = "N")]
+    #[arg(long = "channel", value_name = "N", value_parser = channel)]
     channels: Vec<u8>,
     /// Print one JSON document (schema ohmsight.survey.v2) on stdout instead of the table.
     #[arg(long)]
@@ -51,7 +53,7 @@ pub struct Args {
     /// No progress bar, no note of where the run was stored.
     #[arg(long, short)]
     quiet: bool,
-    /// The smallest change you need to see on a pin, volts (e.g. 100e-6): where it is below one
+    /// The smallest change you need to see on a pin, volts (e.g. 100u or 100e-6): where it is below one
     /// LSB the advice says how many readings to average and whether dither is needed.
     #[arg(long, value_name = "VOLTS", value_parser = positive_volts)]
     resolve: Option<f64>,
@@ -64,13 +66,6 @@ pub struct Args {
     /// board (the run's own link when no link option is given), and mark it complete.
     #[arg(long, value_name = "RUN_ID", conflicts_with_all = ["no_store", "channels"])]
     resume: Option<String>,
-}
-
-fn positive_volts(text: &str) -> Result<f64, String> {
-    match text.trim().parse::<f64>() {
-        Ok(v) if v.is_finite() && v > 0.0 => Ok(v),
-        _ => Err(format!("'{text}' is not a positive voltage in volts (e.g. 100e-6 for 100 µV)")),
-    }
 }
 
 pub fn run(args: Args) -> Result<(), Failure> {

@@ -58,7 +58,8 @@ pub fn apply(profile: &Profile, file: &str, text: &str) -> Result<Profile, Profi
         line: span.and_then(line_of),
         message,
     };
-    let f: FileToml = toml::from_str(text).map_err(|e| err(e.span(), e.message().trim().to_string()))?;
+    let f: FileToml =
+        toml::from_str(text).map_err(|e| err(e.span(), crate::scenario::plain_words(e.message().trim())))?;
     let mut p = profile.clone();
     let positive =
         |v: &Option<toml::Spanned<f64>>, name: &str, zero_ok: bool| -> Result<Option<f64>, ProfileFileError> {

@@ -44,10 +44,10 @@ pub fn compare_text(d: &Document) -> String {
         let _ = writeln!(out, "the baseline is another unit of this board: {}", d.baseline.unit_id);
     }
     let _ = writeln!(out, "rule: {}\n", d.rule);
-    let label_w = d.pins.iter().map(|p| p.label.chars().count()).max().unwrap_or(0);
+    let label_w = d.pins.iter().map(|p| crate::units::width(&p.label)).max().unwrap_or(0);
     for p in &d.pins {
         let head = format!("ch{:<3} {}", p.channel, p.label);
-        let _ = writeln!(out, "{head:<w$}  {}", outcome(p), w = label_w + 6);
+        let _ = writeln!(out, "{}  {}", crate::units::pad(&head, label_w + 6), outcome(p));
         for c in &p.changes {
             let _ = writeln!(out, "      {:<10} {} → {}", c.what.label(), c.before.text, c.after.text);
             let _ = writeln!(out, "      {:<10} {}", "", c.meaning);

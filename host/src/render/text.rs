@@ -53,10 +53,10 @@ pub fn min_sample_cell(p: &PinReport) -> String {
 
 /// A plain-text table: a header, a rule, and the rows, columns padded to their widest cell.
 pub fn table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
-    let mut width: Vec<usize> = header.iter().map(|h| h.as_ref().chars().count()).collect();
+    let mut width: Vec<usize> = header.iter().map(|h| units::width(h.as_ref())).collect();
     for row in rows {
         for (w, c) in width.iter_mut().zip(row.iter()) {
-            *w = (*w).max(c.chars().count());
+            *w = (*w).max(units::width(c));
         }
     }
     let line = |cells: &mut dyn Iterator<Item = &str>| {
@@ -64,7 +64,7 @@ pub fn table<S: AsRef<str>>(header: &[S], rows: &[Vec<String>]) -> String {
         for (i, c) in cells.enumerate() {
             s += c;
             if i + 1 < width.len() {
-                s += &" ".repeat(width[i] - c.chars().count() + 2);
+                s += &" ".repeat(width[i] - units::width(c) + 2);
             }
         }
         s.trim_end().to_string() + "\n"
@@ -134,7 +134,7 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
                 source_text(p),
                 interval_text(&p.node_farads, units::farads),
                 p.source_volts.map_or("—".into(), |v| format!("{v:.4} V")),
-                p.noise_lsb_rms.map_or("—".into(), |n| format!("{n:.2} LSB")),
+                p.noise_lsb_rms.map_or("—".into(), units::lsb),
                 min_sample_cell(p),
                 p.flags.iter().map(|f| f.as_str()).collect::<Vec<_>>().join(" "),
             ]
@@ -210,31 +210,33 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
         out += "\n";
         if let Some(u) = &a.scan {
             out += &format!(
-                "    in the scan plan: sample time {} with {} dummy conversion{} (worst error {:.2} LSB): {}\n",
+                "    in the scan plan: sample time {} with {} dummy conversion{} (worst error {}): {}\n",
                 ns(u.sample_ns),
                 u.dummies,
                 if u.dummies == 1 { "" } else { "s" },
-                u.worst_error_lsb,
+                units::lsb(u.worst_error_lsb),
                 u.reason
             );
         }
         if let Some(m) = a.memory {
-            out +=
-                &format!("    memory: the previous channel moves this reading by up to {:.2} LSB; ", m.worst_shift_lsb);
+            out += &format!(
+                "    memory: the previous channel moves this reading by up to {}; ",
+                units::lsb(m.worst_shift_lsb)
+            );
             if let Some(d) = m.after_dummy_lsb {
-                out += &format!("a dummy conversion of this pin first leaves {d:.2} LSB");
+                out += &format!("a dummy conversion of this pin first leaves {}", units::lsb(d));
                 out += if d > 0.5 { " (not enough: fix the settling first), " } else { ", " };
             }
             out += &format!("or convert it after a channel within {} of its level\n", volts(m.similar_within_volts));
         }
         if let Some(v) = a.averaging {
             out += &format!(
-                "    averaging: to see {} average {} readings ({:.1} extra bits, {}; noise {:.2} LSB rms); ",
+                "    averaging: to see {} average {} readings ({:.1} extra bits, {}; noise {} rms); ",
                 volts(v.resolve_volts),
                 v.readings,
                 v.extra_bits,
                 si(v.seconds, "s"),
-                v.noise_lsb_rms
+                units::lsb(v.noise_lsb_rms)
             );
             if v.needs_dither {
                 out += &format!(
@@ -269,8 +271,8 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
                     r.pins.iter().find(|p| p.channel == e.channel).map_or(String::new(), |p| p.label.clone()),
                     ns(e.sample_ns),
                     e.dummies.to_string(),
-                    format!("{:.2} LSB", e.worst_error_lsb),
-                    format!("{:.2} LSB", e.error_now_lsb),
+                    units::lsb(e.worst_error_lsb),
+                    units::lsb(e.error_now_lsb),
                 ]
             })
             .collect();
@@ -284,10 +286,10 @@ fn advice_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
             out += &format!("  idle {} after each scan, for ch{ch} (its node recovers slowly)\n", si(plan.idle_s, "s"));
         }
         out += &format!(
-            "  one scan takes {} ({}); worst error {:.2} LSB\n",
+            "  one scan takes {} ({}); worst error {}\n",
             si(plan.scan_s, "s"),
             si(1.0 / plan.scan_s, "Hz"),
-            plan.worst_error_lsb
+            units::lsb(plan.worst_error_lsb)
         );
     }
     for l in &plan.left_out {
