@@ -124,6 +124,8 @@ struct BoardToml {
     conversion_cycles: Option<Spanned<Real>>,
     adc_noise_lsb: Option<Spanned<Real>>,
     leakage_amps: Option<Spanned<Real>>,
+    unit_hold_ratio: Option<Spanned<Real>>,
+    unit_switch_ratio: Option<Spanned<Real>>,
 }
 
 #[derive(Deserialize)]
@@ -231,6 +233,8 @@ pub fn parse(file: &str, text: &str) -> Result<Scenario, ScenarioError> {
                 conversion_cycles: cx.real(&b.conversion_cycles, "conversion_cycles", 0.5, 1e4, d.conversion_cycles)?,
                 adc_noise_lsb: cx.real(&b.adc_noise_lsb, "adc_noise_lsb", 0.0, 20.0, d.adc_noise_lsb)?,
                 leakage_amps: cx.real(&b.leakage_amps, "leakage_amps", 0.0, 1e-6, d.leakage_amps)?,
+                unit_hold_ratio: cx.real(&b.unit_hold_ratio, "unit_hold_ratio", 0.2, 5.0, d.unit_hold_ratio)?,
+                unit_switch_ratio: cx.real(&b.unit_switch_ratio, "unit_switch_ratio", 0.2, 5.0, d.unit_switch_ratio)?,
             }
         }
     };

@@ -37,5 +37,6 @@ pub use sequence::{Step, StepRecord, Steps, Timing};
 /// request a `seq` its answer echoes, made [`Response::Done`] a [`RunReport`] (the board's run
 /// number, clock and conversions), tagged data chunks with the run number, and added
 /// [`Request::Resend`], [`Request::Runs`], [`Response::Runs`] and [`ErrorKind::Gone`]; 4 added
-/// [`Experiment::ScanRecord`] (the noise records of many pins at once).
-pub const PROTOCOL_VERSION: u16 = 4;
+/// [`Experiment::ScanRecord`] (the noise records of many pins at once); 5 added the simulated
+/// unit's departure from its datasheet ([`SimBoard::unit_hold_ppm`], [`SimBoard::unit_switch_ppm`]).
+pub const PROTOCOL_VERSION: u16 = 5;

@@ -324,6 +324,11 @@ pub struct SimBoard {
     pub noise_millilsb: u32,
     /// Input leakage bound, fA.
     pub leakage_femtoamps: u32,
+    /// The simulated unit's real hold capacitance as a multiple of the declared one, ppm
+    /// (1,000,000: the unit is as its datasheet says, within its tolerance).
+    pub unit_hold_ppm: u32,
+    /// The same for the switch resistance, ppm.
+    pub unit_switch_ppm: u32,
     /// Number of [`SimPart::Pin`] parts that follow.
     pub pins: u8,
 }
@@ -388,6 +393,8 @@ impl SimPart {
                 conversion_millicycles: u32::MAX,
                 noise_millilsb: u32::MAX,
                 leakage_femtoamps: u32::MAX,
+                unit_hold_ppm: u32::MAX,
+                unit_switch_ppm: u32::MAX,
                 pins: u8::MAX,
             }),
             SimPart::Pin(SimPin {

@@ -239,8 +239,12 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
         // Every draw is made whatever is switched on, so one seed gives one unit.
         let on = |flag: bool, v: f64, off: f64| if flag { v } else { off };
         let r = b.realism;
-        let hold = p.hold_farads * (1.0 + on(r.unit_spread, within(p.hold_tolerance, &mut rng), 0.0));
-        let switch = p.switch_ohms * (1.0 + on(r.unit_spread, within(p.switch_tolerance, &mut rng), 0.0));
+        // A unit off its datasheet ([`BoardProfile::unit_hold_ratio`]) is off by that factor
+        // whatever is switched on: it is the scenario's truth, not a non-ideality.
+        let hold =
+            p.hold_farads * p.unit_hold_ratio * (1.0 + on(r.unit_spread, within(p.hold_tolerance, &mut rng), 0.0));
+        let switch =
+            p.switch_ohms * p.unit_switch_ratio * (1.0 + on(r.unit_spread, within(p.switch_tolerance, &mut rng), 0.0));
         b.offset_lsb = on(r.converter_errors, uniform(&mut rng, -0.6, 0.6), 0.0);
         b.gain = 1.0 + on(r.converter_errors, uniform(&mut rng, -1e-3, 1e-3), 0.0);
         b.inl_lsb = on(r.converter_errors, uniform(&mut rng, -0.4, 0.4), 0.0);

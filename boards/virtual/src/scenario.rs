@@ -32,6 +32,11 @@ pub struct BoardProfile {
     pub adc_noise_lsb: f64,
     /// Input leakage bound, A.
     pub leakage_amps: f64,
+    /// The unit's real hold capacitance as a multiple of [`Self::hold_farads`] (1: as declared,
+    /// within the tolerance): a unit off its datasheet, for calibration.
+    pub unit_hold_ratio: f64,
+    /// The unit's real switch resistance as a multiple of [`Self::switch_ohms`].
+    pub unit_switch_ratio: f64,
 }
 
 impl Default for BoardProfile {
@@ -50,6 +55,8 @@ impl Default for BoardProfile {
             conversion_cycles: 12.0,
             adc_noise_lsb: 0.5,
             leakage_amps: 10e-12,
+            unit_hold_ratio: 1.0,
+            unit_switch_ratio: 1.0,
         }
     }
 }
@@ -121,6 +128,8 @@ impl Scenario {
             conversion_millicycles: scaled(p.conversion_cycles, 1e3) as u32,
             noise_millilsb: scaled(p.adc_noise_lsb, 1e3) as u32,
             leakage_femtoamps: scaled(p.leakage_amps, 1e15) as u32,
+            unit_hold_ppm: scaled(p.unit_hold_ratio, 1e6) as u32,
+            unit_switch_ppm: scaled(p.unit_switch_ratio, 1e6) as u32,
             pins: self.pins.len() as u8,
         };
         let pins = self.pins.iter().enumerate().map(|(index, pin)| {
@@ -155,6 +164,7 @@ impl Scenario {
         ok(!board.sample_millicycles.is_empty() && board.sample_millicycles[0] > 0)?;
         ok(board.sample_millicycles.windows(2).all(|w| w[0] < w[1]))?;
         ok(!pins.is_empty() && pins.len() <= MAX_PINS)?;
+        ok(board.unit_hold_ppm > 0 && board.unit_switch_ppm > 0)?;
         let profile = BoardProfile {
             bits: board.bits,
             vref_volts: f64::from(board.vref_microvolts) / 1e6,
@@ -167,6 +177,8 @@ impl Scenario {
             conversion_cycles: f64::from(board.conversion_millicycles) / 1e3,
             adc_noise_lsb: f64::from(board.noise_millilsb) / 1e3,
             leakage_amps: f64::from(board.leakage_femtoamps) / 1e15,
+            unit_hold_ratio: f64::from(board.unit_hold_ppm) / 1e6,
+            unit_switch_ratio: f64::from(board.unit_switch_ppm) / 1e6,
         };
         let mut wired: Vec<PinSetup, MAX_PINS> = Vec::new();
         for p in pins {
