@@ -16,6 +16,9 @@ use levenberg_marquardt::{LeastSquaresProblem, LevenbergMarquardt};
 use nalgebra::{DMatrix, DVector, Dyn, VecStorage};
 use std::cell::RefCell;
 
+mod joint;
+pub use joint::{calibrate, Calibration, Fixture, CALIBRATION_LIMIT, CALIBRATION_PRIOR_SD};
+
 /// Index of `ln Rs` in θ.
 pub const LN_RS: usize = 0;
 /// Index of `ln Cn` in θ.

@@ -21,6 +21,7 @@
 pub mod advice;
 pub mod analyse;
 pub mod burst;
+pub mod calibration;
 pub mod check;
 pub mod compare;
 pub mod emit;

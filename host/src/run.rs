@@ -78,6 +78,36 @@ pub struct SurveyOptions {
     pub context: RunContext,
     /// The kind of run the record says it is.
     pub kind: RunKind,
+    /// Chooses the converter values the run is analysed with once the board has described
+    /// itself (a unit's calibration, a profile file); `None`: the board's own description.
+    pub profile: Option<ProfileChoice>,
+}
+
+/// What a run is analysed with, chosen once the board has said which board and unit it is:
+/// given the board and the values of its own description, the values to use (with
+/// [`Profile::source`] saying where they came from), or why they could not be found (the run
+/// then stops before measuring: analysing under values the user did not mean is worse).
+#[derive(Clone)]
+pub struct ProfileChoice(pub std::sync::Arc<ChooseProfile>);
+
+/// The function inside a [`ProfileChoice`].
+pub type ChooseProfile = dyn Fn(&BoardRecord, Profile) -> Result<Profile, String> + Send + Sync;
+
+impl std::fmt::Debug for ProfileChoice {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("ProfileChoice(..)")
+    }
+}
+
+impl SurveyOptions {
+    /// The values a run on `board` is analysed with: the board's own, or what
+    /// [`SurveyOptions::profile`] chooses.
+    fn profile_for(&self, board: &BoardRecord, own: Profile) -> Result<Profile, SurveyError> {
+        match &self.profile {
+            None => Ok(own),
+            Some(choose) => (choose.0)(board, own).map_err(SurveyError::Profile),
+        }
+    }
 }
 
 /// Errors of a survey.
@@ -111,6 +141,9 @@ pub enum SurveyError {
     },
     /// The limits of a check do not fit the board that answered (file, line, what to change).
     Limits(String),
+    /// The values to analyse with could not be chosen (the store could not be read for the
+    /// unit's calibration).
+    Profile(String),
 }
 
 impl SurveyError {
@@ -133,6 +166,7 @@ impl std::fmt::Display for SurveyError {
             SurveyError::Session(e) => e.fmt(f),
             SurveyError::Board(e) => e.fmt(f),
             SurveyError::Limits(e) => f.write_str(e),
+            SurveyError::Profile(e) => f.write_str(e),
             SurveyError::OtherBoard { run, was, now } => write!(
                 f,
                 "run {run} was made on board {was}, but board {now} answers on this link: connect the board of \
@@ -382,13 +416,9 @@ pub fn survey_with<L: Link>(
         return Err(SurveyError::NoSuchPin { channel: opts.channels.first().copied().unwrap_or(0), pins: all_pins });
     }
     let nominal_model = BoardModel::from_front_end(&info.front_end);
-    let record = RunRecord {
-        run: run_meta(opts, started, Some(&info)),
-        board: board_record(&info),
-        profile: Profile::from_model(&nominal_model, &info.front_end),
-        pins,
-        experiments: Vec::new(),
-    };
+    let board = board_record(&info);
+    let profile = opts.profile_for(&board, Profile::from_model(&nominal_model, &info.front_end))?;
+    let record = RunRecord { run: run_meta(opts, started, Some(&info)), board, profile, pins, experiments: Vec::new() };
     on_event(&RunEvent::Began(&record));
     Ok(measure(session, &plan, record, 0, RunStats::default(), wall, on_event))
 }
@@ -600,13 +630,8 @@ pub fn check_with<L: Link>(
     let nominal_model = BoardModel::from_front_end(&info.front_end);
     let mut run = run_meta(opts, started, Some(&info));
     run.channels = pins.iter().map(|p| p.channel).collect();
-    let record = RunRecord {
-        run,
-        board,
-        profile: Profile::from_model(&nominal_model, &info.front_end),
-        pins,
-        experiments: Vec::new(),
-    };
+    let profile = opts.profile_for(&board, Profile::from_model(&nominal_model, &info.front_end))?;
+    let record = RunRecord { run, board, profile, pins, experiments: Vec::new() };
     on_event(&RunEvent::Began(&record));
     let model = board_model(&record);
     let mut runner = Runner { session, model, record, on_event, planned: 0, calls: HashMap::new(), clock_offset_ps: 0 };

@@ -1,6 +1,6 @@
 //! `ohmsight check`: a production check of one unit against a limits file.
 
-use super::common::{open_session, print, write_output, Bar, DbArgs, Keeper, LinkArgs};
+use super::common::{open_session, print, write_output, Bar, DbArgs, Keeper, LinkArgs, ProfileArgs};
 use super::Failure;
 use ohmsight::check::{more_wanted, needs, CheckReport, CheckResult};
 use ohmsight::limits::{self, Limits, ResolvedPin};
@@ -59,6 +59,8 @@ pub struct Args {
     #[arg(long, short)]
     quiet: bool,
     #[command(flatten)]
+    profile: ProfileArgs,
+    #[command(flatten)]
     db: DbArgs,
 }
 
@@ -73,9 +75,17 @@ pub fn run(args: Args) -> Result<(), Failure> {
     let limits = limits::parse(&args.limits.display().to_string(), &limits_toml)
         .map_err(|e| Failure::bad_input(e.to_string()))?;
     let mut keeper = Keeper::new(args.db.open().map_err(Failure::no_verdict)?);
+    let calibrations =
+        if args.profile.uncalibrated { None } else { Some(args.db.open().map_err(Failure::no_verdict)?) };
+    let profile = args.profile.choice(calibrations)?;
     let (mut session, context) = open_session(&args.link)?;
-    let opts =
-        SurveyOptions { any_version: args.link.any_version, channels: Vec::new(), context, kind: RunKind::Check };
+    let opts = SurveyOptions {
+        any_version: args.link.any_version,
+        channels: Vec::new(),
+        context,
+        kind: RunKind::Check,
+        profile,
+    };
     let bar = Bar::new(args.quiet || args.json);
     let resolved: RefCell<Option<Vec<ResolvedPin<'_>>>> = RefCell::new(None);
     let mut on_event = |e: &RunEvent| {

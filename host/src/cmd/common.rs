@@ -3,9 +3,10 @@
 
 use super::Failure;
 use indicatif::{ProgressBar, ProgressStyle};
+use ohmsight::calibration;
 use ohmsight::link::{InProcessLink, Link, SerialLink};
-use ohmsight::record::LinkRecord;
-use ohmsight::run::{RunContext, RunEvent};
+use ohmsight::record::{profile_file, BoardRecord, LinkRecord, Profile};
+use ohmsight::run::{ProfileChoice, RunContext, RunEvent};
 use ohmsight::scenario;
 use ohmsight::session::Session;
 use ohmsight::store::{self, DbUrl, Store};
@@ -126,6 +127,67 @@ impl DbArgs {
     /// Opens the database (creating it and its tables when new).
     pub fn open(&self) -> Result<Box<dyn Store>, Failure> {
         Ok(store::open(&self.url()?)?)
+    }
+}
+
+/// Which converter values a run is analysed with: the same options for survey and check.
+#[derive(clap::Args)]
+pub struct ProfileArgs {
+    /// Converter values to analyse with, by hand (TOML, keys as for `refit --profile`); they
+    /// override the unit's calibration and the board's own values.
+    #[arg(long, value_name = "FILE.toml")]
+    pub profile: Option<PathBuf>,
+    /// Analyse with the board's own (datasheet) values even where the unit has a calibration in
+    /// the database.
+    #[arg(long)]
+    pub uncalibrated: bool,
+}
+
+impl ProfileArgs {
+    /// How the run chooses its converter values: the unit's newest calibration in `store`
+    /// (unless --uncalibrated), then the profile file's values over them. A profile file that
+    /// cannot be read or parsed is bad input now, before the board is touched.
+    pub fn choice(&self, store: Option<Box<dyn Store>>) -> Result<Option<ProfileChoice>, Failure> {
+        let file = match &self.profile {
+            None => None,
+            Some(path) => {
+                let text = std::fs::read_to_string(path)
+                    .map_err(|e| Failure::bad_input(format!("cannot read the profile file {}: {e}", path.display())))?;
+                let name = path.display().to_string();
+                // Checked against a profile of any board: what it says about the board itself
+                // (the number of sample times) is checked again once the board has answered.
+                profile_file::check_syntax(&name, &text).map_err(|e| Failure::bad_input(e.to_string()))?;
+                Some((name, text))
+            }
+        };
+        let store = store.filter(|_| !self.uncalibrated).map(std::sync::Mutex::new);
+        if file.is_none() && store.is_none() {
+            return Ok(None);
+        }
+        Ok(Some(ProfileChoice(std::sync::Arc::new(move |board: &BoardRecord, own: Profile| {
+            let mut profile = own;
+            if let Some(store) = &store {
+                let mut store = store.lock().map_err(|_| "the run database's connection was lost".to_string())?;
+                let unit = format!("{:016x}", board.unit_id);
+                let found = store.latest_calibration(&board.name, &unit).map_err(|e| {
+                    format!(
+                        "the unit's calibration could not be read from {}: {e} (survey with --uncalibrated to use                          the board's own values)",
+                        store.describe()
+                    )
+                })?;
+                if let Some(c) = found {
+                    profile = calibration::apply(&profile, &c);
+                }
+            }
+            if let Some((name, text)) = &file {
+                let under = profile.source.clone();
+                profile = profile_file::apply(&profile, name, text).map_err(|e| e.to_string())?;
+                if under != "board" {
+                    profile.source = format!("{name} over {under}");
+                }
+            }
+            Ok(profile)
+        }))))
     }
 }
 

@@ -1,7 +1,7 @@
 //! `ohmsight compare`: what changed on a unit since its baseline, per pin, in physical terms.
 
 use super::common::Keeper;
-use super::common::{print, write_output, DbArgs, LinkArgs};
+use super::common::{print, write_output, DbArgs, LinkArgs, ProfileArgs};
 use super::refit::load_record;
 use super::survey::measure;
 use super::Failure;
@@ -67,6 +67,8 @@ pub struct Args {
     /// No progress bar, no note of where the survey was stored.
     #[arg(long, short)]
     quiet: bool,
+    #[command(flatten)]
+    profile: ProfileArgs,
     #[command(flatten)]
     db: DbArgs,
 }
@@ -134,6 +136,12 @@ pub fn run(args: Args) -> Result<(), Failure> {
 fn compare(args: Args) -> Result<(), Failure> {
     let mut db = Db { args: &args.db, store: None };
     // Bad input first, before the board is touched.
+    if args.run.is_some() && (args.profile.profile.is_some() || args.profile.uncalibrated) {
+        return Err(Failure::bad_input(
+            "--profile and --uncalibrated choose the values a survey made now is analysed with; with --run, \
+             analyse that run again under other values with `ohmsight refit RUN --profile FILE` first",
+        ));
+    }
     let baseline = match &args.baseline {
         Some(source) => Some((db.load(source)?, source.clone())),
         None => None,
@@ -148,8 +156,11 @@ fn compare(args: Args) -> Result<(), Failure> {
                 Some(store) => store,
                 None => args.db.open()?,
             };
+            // The unit's calibration, when it has one, as for a survey.
+            let profile = args.profile.choice(Some(args.db.open()?))?;
             let mut keeper = Keeper::new(store);
-            let measured = measure(&args.link, Vec::new(), None, args.quiet, Some(&mut keeper));
+            let measured =
+                measure(&args.link, Vec::new(), None, args.quiet, Some(&mut keeper), RunKind::Survey, profile);
             let described = keeper.store.describe();
             db.store = Some(keeper.store);
             let r = measured?;

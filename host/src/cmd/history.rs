@@ -70,7 +70,7 @@ pub struct Args {
     /// Only runs started on or after this day (YYYY-MM-DD, UTC) or instant (RFC 3339).
     #[arg(long, value_name = "DATE", value_parser = parse_since)]
     since: Option<String>,
-    /// Only runs of this kind: survey or check.
+    /// Only runs of this kind: survey, check or calibration.
     #[arg(long, value_name = "KIND", value_parser = parse_kind)]
     kind: Option<RunKind>,
     /// Print one JSON document instead of the table.
@@ -113,7 +113,7 @@ struct StatsArgs {
     /// Only runs started on or after this day (YYYY-MM-DD, UTC) or instant (RFC 3339).
     #[arg(long, value_name = "DATE", value_parser = parse_since)]
     since: Option<String>,
-    /// Only runs of this kind (survey or check); default: every kind.
+    /// Only runs of this kind (survey, check or calibration); default: every kind.
     #[arg(long, value_name = "KIND", value_parser = parse_kind)]
     kind: Option<RunKind>,
     /// Print one JSON document (schema ohmsight.stats.v1) instead of the table.
@@ -129,7 +129,8 @@ struct StatsArgs {
 const STATS_DEFAULT_KIND: Option<RunKind> = None;
 
 fn parse_kind(text: &str) -> Result<RunKind, String> {
-    RunKind::parse(text.trim()).ok_or_else(|| format!("'{text}' is not a kind of run: use survey or check"))
+    RunKind::parse(text.trim())
+        .ok_or_else(|| format!("'{text}' is not a kind of run: use survey, check or calibration"))
 }
 
 /// `2026-11-01` (midnight UTC) or an RFC 3339 instant, as the store's fixed-width UTC text.

@@ -1,6 +1,7 @@
 //! The commands of the `ohmsight` binary, one file each, and the one place where an outcome
 //! becomes an exit code.
 
+mod calibrate;
 mod check;
 mod common;
 mod compare;
@@ -92,6 +93,13 @@ enum Command {
     /// check). Exit 0 pass, 1 the unit fails, 2 bad input, 3 the check could not be completed.
     #[command(after_long_help = check::EXAMPLES)]
     Check(check::Args),
+    /// Calibrate a unit: its hold capacitance and switch resistance from fixture pins of known
+    /// resistance, stored for its later surveys and checks.
+    ///
+    /// Surveys the fixture pins (--fixture CH=OHMS, two of different value), fits both values
+    /// jointly with their 95% intervals, and stores them per unit in the run database.
+    #[command(after_long_help = calibrate::EXAMPLES)]
+    Calibrate(calibrate::Args),
     /// Propose a limits file from stored runs of golden units (mean ± K·σ per measurement).
     #[command(after_long_help = limits::EXAMPLES)]
     Limits(limits::Args),
@@ -199,6 +207,7 @@ pub fn run(cli: Cli) -> Result<(), Failure> {
         Command::Simulate(args) => simulate::run(args),
         Command::Ports(args) => ports::run(args),
         Command::Check(args) => check::run(args),
+        Command::Calibrate(args) => calibrate::run(args),
         Command::Limits(args) => limits::run(args),
         Command::Completions(args) => completions::run(args),
     }

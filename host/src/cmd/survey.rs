@@ -2,11 +2,13 @@
 
 use super::common::{
     channel, open_run_link, open_session, positive_volts, print, write_output, Bar, DbArgs, Keeper, LinkArgs,
+    ProfileArgs,
 };
 use super::Failure;
 use ohmsight::advice::{advise, AdviceOptions};
+use ohmsight::record::RunKind;
 use ohmsight::render::{html::survey_html, survey_json, text::survey_text};
-use ohmsight::run::{resume_with, survey_with, RunEvent, SurveyOptions};
+use ohmsight::run::{resume_with, survey_with, ProfileChoice, RunEvent, SurveyOptions};
 use ohmsight::store::PinSummary;
 use ohmsight::{RunRecord, SurveyReport};
 use std::path::PathBuf;
@@ -58,8 +60,11 @@ pub struct Args {
     #[arg(long, value_name = "VOLTS", value_parser = positive_volts)]
     resolve: Option<f64>,
     #[command(flatten)]
+    profile: ProfileArgs,
+    #[command(flatten)]
     db: DbArgs,
-    /// Keep nothing: do not write the run to the database.
+    /// Keep nothing: do not write the run to the database (nor read the unit's calibration
+    /// from it: the board's own values are used, or --profile).
     #[arg(long, conflicts_with = "db")]
     no_store: bool,
     /// Finish an interrupted run from the database: re-do only what it lacks, on the same
@@ -88,7 +93,11 @@ pub fn run(args: Args) -> Result<(), Failure> {
         }
         _ => None,
     };
-    let r = measure(&args.link, args.channels.clone(), resume, args.quiet, keeper.as_mut())?;
+    // The unit's calibration is read through a connection of its own (the keeper's writes the
+    // run as it goes).
+    let calibrations = if args.no_store || args.profile.uncalibrated { None } else { Some(args.db.open()?) };
+    let profile = args.profile.choice(calibrations)?;
+    let r = measure(&args.link, args.channels.clone(), resume, args.quiet, keeper.as_mut(), RunKind::Survey, profile)?;
     let advice_opts = AdviceOptions { resolve_volts: args.resolve };
     let advice = advise(&r, &advice_opts);
     let stored = keeper.as_ref().map(|k| k.store.describe());
@@ -131,19 +140,23 @@ pub fn run(args: Args) -> Result<(), Failure> {
 /// Surveys the board of `link` (or finishes `resume` on its own link when no link option is
 /// given), drawing the progress bar and writing the run to `keeper` as it happens, the pins'
 /// summaries at the end. A store error is kept in `keeper` for the caller to report; a fault of
-/// the board or link is in the report (`fault`, `record.run.complete`).
+/// the board or link is in the report (`fault`, `record.run.complete`). The run is recorded as
+/// of `kind` and analysed with the values `profile` chooses (the board's own when `None`; a
+/// resumed run keeps its own).
 pub(super) fn measure(
     link: &LinkArgs,
     channels: Vec<u8>,
     resume: Option<RunRecord>,
     quiet: bool,
     mut keeper: Option<&mut Keeper>,
+    kind: RunKind,
+    profile: Option<ProfileChoice>,
 ) -> Result<SurveyReport, Failure> {
     let (mut session, context) = match &resume {
         Some(record) if !link.given() => open_run_link(record, link.any_version)?,
         _ => open_session(link)?,
     };
-    let opts = SurveyOptions { any_version: link.any_version, channels, context, ..Default::default() };
+    let opts = SurveyOptions { any_version: link.any_version, channels, context, kind, profile };
     let bar = Bar::new(quiet);
     let mut on_event = |e: &RunEvent| {
         bar.on(e);

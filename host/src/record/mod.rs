@@ -50,6 +50,9 @@ pub enum RunKind {
     Survey,
     /// A production check: only the experiments a limits file needs, judged against it.
     Check,
+    /// A calibration: a survey of fixture pins of known resistance, from which the unit's hold
+    /// capacitance and switch resistance are fitted.
+    Calibration,
 }
 
 impl RunKind {
@@ -58,6 +61,7 @@ impl RunKind {
         match self {
             RunKind::Survey => "survey",
             RunKind::Check => "check",
+            RunKind::Calibration => "calibration",
         }
     }
 
@@ -66,6 +70,7 @@ impl RunKind {
         match name {
             "survey" => Some(RunKind::Survey),
             "check" => Some(RunKind::Check),
+            "calibration" => Some(RunKind::Calibration),
             _ => None,
         }
     }

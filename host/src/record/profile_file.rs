@@ -118,6 +118,28 @@ pub fn apply(profile: &Profile, file: &str, text: &str) -> Result<Profile, Profi
     Ok(p)
 }
 
+/// Whether a profile file can be read at all (TOML, known keys, values in range), before any
+/// board has described itself; only what depends on the board (the number of sample times) is
+/// left for [`apply`].
+pub fn check_syntax(file: &str, text: &str) -> Result<(), ProfileFileError> {
+    let settings = toml::from_str::<FileToml>(text).ok().and_then(|f| f.sample_ps).map_or(0, |s| s.get_ref().len());
+    let any = Profile {
+        bits: 12,
+        vref_volts: 3.3,
+        sample_ps: (1..=settings as u32).collect(),
+        conversion_ps: 1,
+        hold_farads: 1e-12,
+        hold_tolerance: 0.0,
+        switch_ohms: 1.0,
+        switch_tolerance: 0.0,
+        adc_noise_lsb: 0.0,
+        leakage_amps: 0.0,
+        precharges: Vec::new(),
+        source: String::new(),
+    };
+    apply(&any, file, text).map(|_| ())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

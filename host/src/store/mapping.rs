@@ -1,7 +1,9 @@
 //! The run record to and from rows, written once for both backends over [`Db`].
 
 use super::backend::{i64_to_u64, insert_rows, read, write, Arg, Db, Val};
-use super::{CheckSummary, LimitSummary, PinSummary, RunFilter, RunListing, Store, StoreError, MIN_PREFIX};
+use super::{
+    CalibrationSummary, CheckSummary, LimitSummary, PinSummary, RunFilter, RunListing, Store, StoreError, MIN_PREFIX,
+};
 use crate::record::{
     BoardRecord, CellRecord, ChannelRecord, ExperimentRecord, ExperimentSpec, FrontEndRecord, LinkRecord, PinRecord,
     PrechargeRecord, Profile, ProfilePrecharge, Purpose, RunKind, RunMeta, RunRecord, RunStats,
@@ -688,6 +690,51 @@ impl<D: Db> Store for SqlStore<D> {
                 });
             }
             Ok(Some(check))
+        })
+    }
+
+    fn put_calibration(&mut self, c: &CalibrationSummary) -> Result<(), StoreError> {
+        let run_id = c.run_id.as_str();
+        write(&mut self.db, &format!("storing the calibration of run {run_id}"), |db| {
+            if !run_exists(db, run_id)? {
+                return Err(unknown_run(db, run_id));
+            }
+            db.execute("DELETE FROM calibrations WHERE run_id = $1", &[Arg::text(run_id)])?;
+            let mut args = vec![Arg::text(run_id), Arg::text(&c.board), Arg::text(&c.unit_id), Arg::text(&c.created)];
+            args.extend(c.hold_farads.iter().chain(&c.switch_ohms).chain([&c.chi2]).map(|&v| Arg::real(v)));
+            args.push(Arg::u64(c.dof));
+            args.push(json(&c.fixtures));
+            db.execute(
+                "INSERT INTO calibrations (run_id, board, unit_id, created, hold_farads, hold_low, hold_high, \
+                 switch_ohms, switch_low, switch_high, chi2, dof, fixtures) \
+                 VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13)",
+                &args,
+            )?;
+            Ok(())
+        })
+    }
+
+    fn latest_calibration(&mut self, board: &str, unit_id: &str) -> Result<Option<CalibrationSummary>, StoreError> {
+        read(&mut self.db, &format!("reading the calibration of unit {unit_id}"), |db| {
+            let rows = db.query(
+                "SELECT run_id, board, unit_id, created, hold_farads, hold_low, hold_high, switch_ohms, switch_low, \
+                 switch_high, chi2, dof, fixtures FROM calibrations WHERE board = $1 AND unit_id = $2 \
+                 ORDER BY created DESC, run_id DESC LIMIT 1",
+                &[Arg::text(board), Arg::text(&unit_id.to_ascii_lowercase())],
+            )?;
+            let Some(row) = rows.first() else { return Ok(None) };
+            let mut c = Cols::new(unit_id, "calibrations", row);
+            Ok(Some(CalibrationSummary {
+                run_id: c.text()?,
+                board: c.text()?,
+                unit_id: c.text()?,
+                created: c.text()?,
+                hold_farads: [c.f64()?, c.f64()?, c.f64()?],
+                switch_ohms: [c.f64()?, c.f64()?, c.f64()?],
+                chi2: c.f64()?,
+                dof: i64_to_u64(c.i64()?),
+                fixtures: c.json()?,
+            }))
         })
     }
 

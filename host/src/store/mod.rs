@@ -233,6 +233,50 @@ pub trait Store: Send {
     /// The outcome written by [`Store::put_check`] (`None` for a run with none); `id` as for
     /// [`Store::load_run`].
     fn load_check(&mut self, id: &str) -> Result<Option<CheckSummary>, StoreError>;
+
+    /// Writes the unit calibration a calibration run found; one transaction. Writing it again
+    /// replaces it.
+    fn put_calibration(&mut self, calibration: &CalibrationSummary) -> Result<(), StoreError>;
+
+    /// The newest calibration of a board's unit (`None`: never calibrated).
+    fn latest_calibration(&mut self, board: &str, unit_id: &str) -> Result<Option<CalibrationSummary>, StoreError>;
+}
+
+/// A unit's calibration, as stored: its hold capacitance and switch resistance as the fixture
+/// pins of one calibration run measured them.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CalibrationSummary {
+    /// The calibration run.
+    pub run_id: String,
+    /// Board name.
+    pub board: String,
+    /// Unit id, 16 hex digits.
+    pub unit_id: String,
+    /// When it was made, RFC 3339 UTC.
+    pub created: String,
+    /// Hold capacitance, F: estimate, low and high end of its 95% interval.
+    pub hold_farads: [f64; 3],
+    /// Switch resistance, Ω: estimate, low and high end of its 95% interval.
+    pub switch_ohms: [f64; 3],
+    /// χ² of the fit's data residuals.
+    pub chi2: f64,
+    /// Its degrees of freedom.
+    pub dof: u64,
+    /// The fixture pins.
+    pub fixtures: Vec<FixtureSummary>,
+}
+
+/// One fixture pin of a calibration.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct FixtureSummary {
+    /// Channel.
+    pub channel: u8,
+    /// The fixture resistor, Ω.
+    pub ohms: f64,
+    /// Its ±2σ relative tolerance.
+    pub tolerance: f64,
+    /// The pin's node capacitance as the fit found it, F.
+    pub node_farads: f64,
 }
 
 /// The outcome of a check run, as stored.
