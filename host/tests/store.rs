@@ -9,7 +9,9 @@ use ohmsight::record::{
     BoardRecord, CellRecord, ChannelRecord, ExperimentRecord, ExperimentSpec, FrontEndRecord, LinkRecord, PinRecord,
     PrechargeRecord, Profile, ProfilePrecharge, Purpose, RunKind, RunMeta, RunRecord, RunStats,
 };
-use ohmsight::store::{self, DbUrl, PinSummary, RunFilter, Store, StoreError, StoreErrorKind};
+use ohmsight::store::{
+    self, CalibrationSummary, DbUrl, FixtureSummary, PinSummary, RunFilter, Store, StoreError, StoreErrorKind,
+};
 use std::io::BufRead;
 use std::sync::{Arc, Barrier};
 use std::time::Instant;
@@ -30,6 +32,7 @@ on_both_backends!(
     newer_schema_is_refused,
     eight_concurrent_writers_lose_nothing,
     tables_answer_plain_sql,
+    calibrations_are_kept_per_unit_newest_first,
 );
 
 // ---------------------------------------------------------------------------------------------
@@ -659,6 +662,51 @@ fn opening_twice_applies_migrations_once(db: &TestDb) {
     let want: Vec<String> = (1..=store::SCHEMA_VERSION).map(|v| v.to_string()).collect();
     assert_eq!(versions, want, "each migration once");
     assert!(again.describe().contains(if db.backend == "sqlite" { "SQLite" } else { "PostgreSQL" }));
+}
+
+fn calibrations_are_kept_per_unit_newest_first(db: &TestDb) {
+    let mut store = db.open();
+    let unit = "0032001f5141500b";
+    let calibration = |run: &str, created: &str, hold: f64| CalibrationSummary {
+        run_id: run.into(),
+        board: "nucleo-g431".into(),
+        unit_id: unit.into(),
+        created: created.into(),
+        hold_farads: [hold, hold * 0.98, NEXT_AFTER_4PF],
+        switch_ohms: [4190.5, 3990.0, 4410.25],
+        chi2: 69.1,
+        dof: 96,
+        fixtures: vec![
+            FixtureSummary { channel: 0, ohms: 10e3, tolerance: 0.01, node_farads: 5.05e-12 },
+            FixtureSummary { channel: 1, ohms: 470e3, tolerance: 0.01, node_farads: 5.01e-12 },
+        ],
+    };
+    assert_eq!(store.latest_calibration("nucleo-g431", unit).unwrap(), None, "never calibrated");
+    // A calibration belongs to a stored run.
+    let orphan = calibration("01JEXAMPLE00000000000000C9", "2026-12-03T03:00:00.000Z", 5.2e-12);
+    expect_err(store.put_calibration(&orphan), StoreErrorKind::BadInput, "01JEXAMPLE00000000000000C9");
+    let older = calibration("01JEXAMPLE00000000000000C1", "2026-12-03T03:00:00.000Z", 5.1e-12);
+    let newer = calibration("01JEXAMPLE00000000000000C2", "2026-12-04T03:00:00.000Z", 5.2e-12);
+    for (c, started) in [(&newer, "2026-12-04T02:59:00.000Z"), (&older, "2026-12-03T02:59:00.000Z")] {
+        let mut record = run_record(&c.run_id, "nucleo-g431", unit, started);
+        record.run.kind = RunKind::Calibration;
+        store.begin_run(&record).unwrap();
+        store.put_calibration(c).unwrap();
+    }
+    assert_eq!(
+        store.latest_calibration("nucleo-g431", unit).unwrap().as_ref(),
+        Some(&newer),
+        "the newest, bit for bit"
+    );
+    assert_eq!(store.latest_calibration("nucleo-g431", &unit.to_uppercase()).unwrap().as_ref(), Some(&newer));
+    assert_eq!(store.latest_calibration("other-board", unit).unwrap(), None, "per board");
+    // Writing it again replaces it.
+    let redone = CalibrationSummary { chi2: 70.0, ..newer.clone() };
+    store.put_calibration(&redone).unwrap();
+    assert_eq!(store.latest_calibration("nucleo-g431", unit).unwrap(), Some(redone));
+    assert_eq!(db.texts("SELECT run_id FROM calibrations ORDER BY created").len(), 2);
+    let kinds = store.list_runs(&RunFilter { kind: Some(RunKind::Calibration), ..Default::default() }).unwrap();
+    assert_eq!(kinds.len(), 2, "calibration runs are listed by kind");
 }
 
 fn newer_schema_is_refused(db: &TestDb) {

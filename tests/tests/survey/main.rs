@@ -5,6 +5,7 @@
 //! overhead), so these checks are not the fit agreeing with itself.
 
 mod accuracy;
+mod calibration;
 mod demo;
 mod faults;
 mod honesty;

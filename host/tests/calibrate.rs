@@ -1,0 +1,106 @@
+//! `ohmsight calibrate` as a user meets it: calibrate the invented off-datasheet logger of
+//! `boards/virtual/scenarios/offsheet.toml` (hold capacitor 1.3×, switch 0.7× the declared
+//! values) with its two fixture pins, then survey it: the survey uses the calibration and says
+//! so, `--uncalibrated` and `--profile` choose otherwise, and bad input is refused before the
+//! board is touched.
+
+use serde_json::Value;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+fn ohmsight() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_ohmsight"))
+}
+
+fn offsheet() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../boards/virtual/scenarios/offsheet.toml")
+}
+
+fn run(db: &Path, args: &[&str]) -> Output {
+    ohmsight().args(args).arg("--db").arg(db).arg("--scenario").arg(offsheet()).output().unwrap()
+}
+
+fn json(out: &Output) -> Value {
+    assert!(out.status.success(), "exit {:?}: {}", out.status.code(), String::from_utf8_lossy(&out.stderr));
+    serde_json::from_slice(&out.stdout).unwrap()
+}
+
+fn stderr(out: &Output) -> String {
+    String::from_utf8_lossy(&out.stderr).into_owned()
+}
+
+/// A pin's source-resistance estimate in a survey document.
+fn source_ohms(doc: &Value, ch: u64) -> f64 {
+    let pin = doc["pins"].as_array().unwrap().iter().find(|p| p["channel"] == ch).unwrap();
+    pin["source_ohms"]["estimate"].as_f64().unwrap_or_else(|| panic!("ch{ch}: {pin:#}"))
+}
+
+#[test]
+fn a_calibrated_unit_is_surveyed_with_its_calibration() {
+    let dir = tempfile::tempdir().unwrap();
+    let db = dir.path().join("runs.db");
+    let cal = json(&run(&db, &["calibrate", "--json", "--fixture", "0=10k", "--fixture", "1=470k"]));
+    assert_eq!(cal["schema"], "ohmsight.calibration.v1");
+    let ratio = |key: &str| cal[key]["estimate"].as_f64().unwrap() / cal[key]["datasheet"].as_f64().unwrap();
+    // The scenario's ratios, within the unit's spread (the declared ±5% and ±10%).
+    assert!((ratio("hold_farads") / 1.3 - 1.0).abs() < 0.06, "hold ×{:.3}", ratio("hold_farads"));
+    assert!((ratio("switch_ohms") / 0.7 - 1.0).abs() < 0.12, "switch ×{:.3}", ratio("switch_ohms"));
+    let run_id = cal["run_id"].as_str().unwrap().to_string();
+
+    // The next survey of the unit is analysed with it, and its header says so.
+    let text = run(&db, &["survey", "--quiet", "--channel", "3"]);
+    let text = String::from_utf8_lossy(&text.stdout);
+    assert!(text.contains(&format!("calibration {run_id}")), "{text}");
+    let calibrated = json(&run(&db, &["survey", "--quiet", "--json", "--channel", "3", "--channel", "7"]));
+    assert_eq!(calibrated["profile"]["source"], format!("calibration {run_id}"));
+    let uncalibrated =
+        json(&run(&db, &["survey", "--quiet", "--json", "--uncalibrated", "--channel", "3", "--channel", "7"]));
+    assert_eq!(uncalibrated["profile"]["source"], "board");
+    // ch3 is 47 kΩ and ch7 1 MΩ in the scenario.
+    for (ch, truth) in [(3, 47e3), (7, 1e6)] {
+        let (with, without) = (source_ohms(&calibrated, ch), source_ohms(&uncalibrated, ch));
+        assert!((with / truth - 1.0).abs() < 0.05, "ch{ch} calibrated {with}");
+        assert!((without / truth - 1.0).abs() > 0.15, "ch{ch} uncalibrated {without}");
+    }
+
+    // A profile file by hand goes over the calibration.
+    let file = dir.path().join("bench.toml");
+    std::fs::write(&file, "# a corrected figure\nswitch_ohms = 4.3e3\n").unwrap();
+    let by_hand =
+        json(&run(&db, &["survey", "--quiet", "--json", "--channel", "3", "--profile", file.to_str().unwrap()]));
+    let profile = &by_hand["profile"];
+    assert_eq!(profile["switch_ohms"], 4.3e3);
+    assert_eq!(profile["hold_farads"], cal["hold_farads"]["estimate"], "the calibration's hold capacitance stays");
+    assert!(profile["source"].as_str().unwrap().ends_with(&format!("over calibration {run_id}")), "{profile}");
+
+    // The calibration run is a run like any other.
+    let listed =
+        json(&ohmsight().args(["history", "--json", "--kind", "calibration", "--db"]).arg(&db).output().unwrap());
+    assert_eq!(listed["runs"].as_array().map(Vec::len), Some(1), "{listed:#}");
+    assert_eq!(listed["runs"][0]["kind"], "calibration");
+}
+
+#[test]
+fn bad_fixtures_are_bad_input_and_a_misfit_stores_nothing() {
+    let dir = tempfile::tempdir().unwrap();
+    let db = dir.path().join("runs.db");
+    for (args, says) in [
+        (vec!["calibrate", "--fixture", "0:10k"], "CH=OHMS"),
+        (vec!["calibrate", "--fixture", "0=ten"], "CH=OHMS"),
+        (vec!["calibrate", "--fixture", "0=10k", "--fixture", "0=470k"], "given twice"),
+        (vec!["calibrate", "--fixture", "0=10k", "--tolerance", "80%"], "tolerance"),
+        (vec!["calibrate", "--fixture", "12=10k"], "not a pin"),
+        (vec!["calibrate", "--fixture", "0=10k", "--unit", "0123456789abcdef"], "not unit 0123456789abcdef"),
+        (vec!["survey", "--profile", "/no/such/profile.toml"], "cannot read the profile file"),
+    ] {
+        let out = run(&db, &args);
+        assert_eq!(out.status.code(), Some(2), "{args:?}: {}", stderr(&out));
+        assert!(stderr(&out).contains(says), "{args:?}: {}", stderr(&out));
+    }
+    // The 10 kΩ fixture declared as 33 kΩ: refused, and the unit stays uncalibrated.
+    let out = run(&db, &["calibrate", "--quiet", "--fixture", "0=33k", "--fixture", "1=470k"]);
+    assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
+    assert!(stderr(&out).contains("nothing was stored as a calibration"), "{}", stderr(&out));
+    let doc = json(&run(&db, &["survey", "--quiet", "--json", "--channel", "3"]));
+    assert_eq!(doc["profile"]["source"], "board");
+}
