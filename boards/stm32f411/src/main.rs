@@ -7,8 +7,18 @@
 #![no_main]
 
 mod adc;
+#[cfg(not(feature = "usart2"))]
+#[path = "../../common/cdc.rs"]
+mod cdc;
+#[path = "../../common/cycle_delay.rs"]
+mod cycle_delay;
+#[path = "../../common/halt.rs"]
+mod halt;
 mod profile;
+#[path = "../../common/reg.rs"]
 mod reg;
+#[path = "../../common/timed.rs"]
+mod timed;
 mod timing;
 #[cfg(feature = "usart2")]
 mod usart;
@@ -18,28 +28,14 @@ mod usb;
 #[cfg(feature = "defmt")]
 use defmt_rtt as _;
 
-use adc::{Adc1, AdcError};
+use adc::Adc1;
 use cortex_m_rt::entry;
-use ohmsight_firmware::{AnalogFrontEnd, Engine};
+use cycle_delay::CycleDelay;
+use ohmsight_firmware::Engine;
 use profile::PINS;
 use stm32f4xx_hal::pac;
-use timing::{CycleDelay, MicrosClock};
-
-/// ADC1 and the microsecond clock: the engine's front end.
-struct Board {
-    adc: Adc1,
-    clock: MicrosClock,
-}
-
-impl AnalogFrontEnd for Board {
-    type Error = AdcError;
-    fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, AdcError> {
-        self.adc.convert(channel, sample)
-    }
-    fn clock_ps(&mut self) -> Option<u64> {
-        Some(self.clock.ps())
-    }
-}
+use timed::Timed;
+use timing::Tim2Micros;
 
 /// The 96-bit unique device id (RM0383 "Device electronic signature": 0x1FFF_7A10), folded to 64
 /// bits.
@@ -72,17 +68,9 @@ fn analog_pins() {
     }
 }
 
-fn hex_id(id: u64, buf: &'static mut [u8; 16]) -> &'static str {
-    const HEX: &[u8; 16] = b"0123456789ABCDEF";
-    for (i, b) in buf.iter_mut().enumerate() {
-        *b = HEX[((id >> (60 - 4 * i)) & 0xf) as usize];
-    }
-    core::str::from_utf8(buf).unwrap_or("0")
-}
-
 #[entry]
 fn main() -> ! {
-    let (Some(mut cp), Some(dp)) = (cortex_m::Peripherals::take(), pac::Peripherals::take()) else {
+    let (Some(cp), Some(dp)) = (cortex_m::Peripherals::take(), pac::Peripherals::take()) else {
         panic!("peripherals taken twice");
     };
 
@@ -120,7 +108,7 @@ fn main() -> ! {
         let (_, mut rcc) = (pclk1_hz, rcc);
         static mut SERIAL: [u8; 16] = [0; 16];
         // SAFETY: main runs once; nothing else names SERIAL.
-        let serial = hex_id(id, unsafe { &mut *core::ptr::addr_of_mut!(SERIAL) });
+        let serial = cdc::hex_id(id, unsafe { &mut *core::ptr::addr_of_mut!(SERIAL) });
         let gpioa = dp.GPIOA.split(&mut rcc);
         let usb = stm32f4xx_hal::otg_fs::USB::new(
             (dp.OTG_FS_GLOBAL, dp.OTG_FS_DEVICE, dp.OTG_FS_PWRCLK),
@@ -129,23 +117,21 @@ fn main() -> ! {
         );
         usb::UsbLink::start(usb, serial)
     };
-    #[cfg(feature = "usart2")]
-    let _ = hex_id;
 
     analog_pins();
     // SAFETY: ADC1 and TIM2 are used by nothing else in this image.
-    let (adc, clock) = unsafe { (Adc1::new(), MicrosClock::start(timer_hz)) };
-    let delay = CycleDelay::new(&mut cp.DCB, &mut cp.DWT, core_hz);
-    let mut engine = Engine::new(Board { adc, clock }, delay, profile::description(id));
+    let (adc, clock) = unsafe { (Adc1::new(), Tim2Micros::start(timer_hz)) };
+    // QEMU models no cycle counter.
+    #[cfg(feature = "netduinoplus2")]
+    let delay = {
+        drop(cp);
+        CycleDelay::spinning(core_hz)
+    };
+    #[cfg(not(feature = "netduinoplus2"))]
+    let delay = {
+        let mut cp = cp;
+        CycleDelay::new(&mut cp.DCB, &mut cp.DWT, core_hz)
+    };
+    let mut engine = Engine::new(Timed::new(adc, clock), delay, profile::description(id));
     engine.serve(&mut link)
-}
-
-#[panic_handler]
-fn panic(_info: &core::panic::PanicInfo) -> ! {
-    #[cfg(feature = "defmt")]
-    defmt::error!("panic: {}", defmt::Display2Format(_info));
-    // Nothing here should panic; if it does, stop answering rather than answer wrongly.
-    loop {
-        cortex_m::asm::nop();
-    }
 }

@@ -4,9 +4,14 @@
 //!
 //! Only `heapless`, `ohmsight-protocol` and `ohmsight-firmware` may be used here.
 
-use heapless::{String, Vec};
+use heapless::Vec;
 use ohmsight_firmware::BoardDescription;
 use ohmsight_protocol::{ChannelInfo, ChannelRole, FrontEnd, Precharge};
+
+#[path = "../../common/pin.rs"]
+mod pin;
+use pin::label;
+pub use pin::Pin;
 
 /// Board (profile) name in the hello.
 pub const NAME: &str = "stm32f411";
@@ -45,21 +50,6 @@ pub const VREFINT_MICROVOLTS: u32 = 1_210_000;
 /// ADC1 channel of the temperature sensor on the F411 (shared with VBAT; see profile.toml).
 pub const TEMPERATURE_CHANNEL: u8 = 18;
 
-/// One analog pin of the board.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct Pin {
-    /// ADC1 channel.
-    pub channel: u8,
-    /// GPIO port letter and number, e.g. "PA1".
-    pub name: &'static str,
-    /// Label reported to the host.
-    pub label: &'static str,
-    /// The firmware may switch this pin's pull resistor on for a pull test.
-    pub may_pull: bool,
-    /// The firmware may drive this pin (as a precharge source).
-    pub may_drive: bool,
-}
-
 /// The board's ADC pins. PA0 (the KEY button), PA2/PA3 (USART2) and PA11/PA12 (USB) are left
 /// out. No pin is opted in for pulls or driving: a user who has checked the wiring edits both
 /// this table and profile.toml.
@@ -76,16 +66,6 @@ pub const PINS: [Pin; 7] = [
 /// `cycles` ADC cycles in ps, rounded to the nearest.
 pub const fn cycles_ps(cycles: u32) -> u32 {
     ((cycles as u64 * 1_000_000_000_000 + ADC_CLOCK_HZ / 2) / ADC_CLOCK_HZ) as u32
-}
-
-fn label(s: &str) -> String<24> {
-    let mut out = String::new();
-    for c in s.chars() {
-        if out.push(c).is_err() {
-            break;
-        }
-    }
-    out
 }
 
 /// The description the firmware sends, for the unit `unit_id`.

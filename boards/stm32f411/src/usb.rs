@@ -11,9 +11,6 @@ use usb_device::bus::UsbBusAllocator;
 use usb_device::prelude::*;
 use usbd_serial::SerialPort;
 
-/// pid.codes' test VID:PID (0x1209:0x0001), for devices not distributed; a product needs its own.
-pub const VID_PID: (u16, u16) = (0x1209, 0x0001);
-
 type Device = (UsbDevice<'static, UsbBus<USB>>, SerialPort<'static, UsbBus<USB>>);
 
 static USB_LINK: Mutex<RefCell<Option<Device>>> = Mutex::new(RefCell::new(None));
@@ -42,17 +39,7 @@ impl UsbLink {
             slot.insert(UsbBusType::new(usb, memory))
         };
         let serial = SerialPort::new(bus);
-        let strings = StringDescriptors::default()
-            .manufacturer("ohmsight")
-            .product("ohmsight stm32f411")
-            .serial_number(serial_number);
-        let builder =
-            UsbDeviceBuilder::new(bus, UsbVidPid(VID_PID.0, VID_PID.1)).device_class(usbd_serial::USB_CLASS_CDC);
-        // Three strings always fit the builder's table.
-        let device = match builder.strings(&[strings]) {
-            Ok(b) => b.build(),
-            Err(_) => UsbDeviceBuilder::new(bus, UsbVidPid(VID_PID.0, VID_PID.1)).build(),
-        };
+        let device = crate::cdc::device(bus, "ohmsight stm32f411", serial_number);
         critical_section::with(|cs| USB_LINK.borrow(cs).replace(Some((device, serial))));
         // SAFETY: the handler below only touches USB_LINK under a critical section.
         unsafe { NVIC::unmask(Interrupt::OTG_FS) };

@@ -1,4 +1,5 @@
-//! Volatile access to memory-mapped registers by address.
+//! Volatile access to memory-mapped registers by address. Shared by the board images (each
+//! includes this file as a module).
 //!
 //! # Safety
 //! Every function takes the address of a 32-bit peripheral register of this chip; the caller
@@ -20,6 +21,7 @@ pub unsafe fn write(addr: usize, value: u32) {
 
 /// Read-modify-write of a register.
 #[inline(always)]
+#[allow(dead_code)] // not every board needs it
 pub unsafe fn modify(addr: usize, f: impl FnOnce(u32) -> u32) {
     // SAFETY: as for `read`.
     unsafe { write(addr, f(read(addr))) }
