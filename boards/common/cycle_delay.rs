@@ -12,6 +12,7 @@ pub struct CycleDelay {
 
 impl CycleDelay {
     /// Enables the cycle counter; `core_hz` is the core clock.
+    #[allow(dead_code)] // a board's QEMU build spins instead
     pub fn new(dcb: &mut DCB, dwt: &mut DWT, core_hz: u32) -> Self {
         dcb.enable_trace();
         DWT::unlock();
