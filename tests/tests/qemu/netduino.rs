@@ -16,7 +16,8 @@ fn stm32f411_usart2_image_answers_the_handshake_and_runs_an_experiment() {
     if crate::image().is_none() {
         return; // said why already
     }
-    let image = xtask::firmware::build_with("stm32f411", None, &["netduinoplus2"]).expect("building the stm32f411 image");
+    let image =
+        xtask::firmware::build_with("stm32f411", None, &["netduinoplus2"]).expect("building the stm32f411 image");
     // USART2 is the model's second serial port.
     let qemu = Qemu::start_on(&image.elf, "netduinoplus2", 1).expect("starting qemu-system-arm");
     let mut s = session(&qemu.device);
