@@ -40,4 +40,9 @@ fn stm32f411_usart2_image_answers_the_handshake_and_runs_an_experiment() {
     }
     let again = s.handshake(false).expect("the board still answers");
     assert!(again.channels.len() >= 9);
+
+    // The stack reserve its memory.x declares (16 KiB) held, stack painted by cortex-m-rt.
+    let used = qemu.stack_use(&image.elf, 16 * 1024).expect("reading the stack through QEMU's monitor");
+    eprintln!("stm32f411 (netduinoplus2 build): {} bytes of stack used", used.used);
+    assert!(used.used < used.window, "the stack reached the end of its 16 KiB reserve");
 }
