@@ -387,6 +387,17 @@ mod tests {
     }
 
     #[test]
+    fn the_real_boards_build_images_for_the_m4f_target() {
+        let root = workspace_root();
+        let listed = boards(&root);
+        for board in ["stm32f411", "nrf52840"] {
+            assert!(listed.iter().any(|b| b == board), "{board} in {listed:?}");
+            assert_eq!(board_target(&root.join("boards").join(board)).unwrap(), "thumbv7em-none-eabihf");
+        }
+        assert!(!listed.iter().any(|b| b == "common"), "boards/common holds shared sources, not an image");
+    }
+
+    #[test]
     fn board_target_comes_from_the_board_config() {
         let dir = workspace_root().join("boards/qemu-m4");
         assert_eq!(board_target(&dir).unwrap(), "thumbv7em-none-eabihf");
