@@ -165,6 +165,12 @@ pub fn build(board: &str) -> Result<Image> {
 
 /// Builds `boards/<board>` for `target`, or for the board's own target when `None`.
 pub fn build_for(board: &str, target: Option<&str>) -> Result<Image> {
+    build_with(board, target, &[])
+}
+
+/// Builds `boards/<board>` with the cargo `features` on (into a target directory of its own,
+/// so the default image stays where it is).
+pub fn build_with(board: &str, target: Option<&str>, features: &[&str]) -> Result<Image> {
     let root = workspace_root();
     let dir = root.join("boards").join(board);
     if !dir.join("Cargo.toml").is_file() || !dir.join("memory.x").is_file() {
@@ -176,7 +182,10 @@ pub fn build_for(board: &str, target: Option<&str>) -> Result<Image> {
     };
     let route = pick_route(&target)?;
     eprintln!("building boards/{board} for {target}: {}", route.describe());
-    let tdir = target_dir(&root, &route);
+    let mut tdir = target_dir(&root, &route);
+    if !features.is_empty() {
+        tdir = tdir.join(format!("features-{}", features.join("+")));
+    }
     let mut cmd = match &route {
         Route::Rustup { cargo } => Command::new(cargo),
         Route::Debian { cargo, rustc, linker } => {
@@ -189,6 +198,9 @@ pub fn build_for(board: &str, target: Option<&str>) -> Result<Image> {
     cmd.current_dir(&dir).args(["build", "--release", "--target", &target]).env("CARGO_TARGET_DIR", &tdir);
     if matches!(route, Route::Debian { .. }) {
         cmd.args(["-Zbuild-std=core"]);
+    }
+    if !features.is_empty() {
+        cmd.args(["--features", &features.join(",")]);
     }
     // Settings of the cargo that runs this tool must not leak into the board's build.
     for var in ["RUSTFLAGS", "CARGO_ENCODED_RUSTFLAGS", "CARGO_BUILD_TARGET", "RUSTC_WRAPPER", "RUSTDOCFLAGS"] {
@@ -320,13 +332,15 @@ pub fn command(args: &[String]) -> Result<()> {
     Ok(())
 }
 
-/// `cargo xtask size`: the footprint table of the stub image on both thumb targets and of the
-/// QEMU image, as Markdown.
+/// `cargo xtask size`: the footprint table of the stub image on both thumb targets, of the QEMU
+/// image and of the real boards' images, as Markdown.
 pub fn size_command() -> Result<()> {
     let rows = [
         ("stub-m0", "thumbv6m-none-eabi", "engine + protocol, stub front end"),
         ("stub-m0", "thumbv7em-none-eabihf", "engine + protocol, stub front end"),
         ("qemu-m4", "thumbv7em-none-eabihf", "engine + protocol + simulated board (f64)"),
+        ("stm32f411", "thumbv7em-none-eabihf", "engine + protocol + ADC1 (registers) + USB CDC (HAL)"),
+        ("nrf52840", "thumbv7em-none-eabihf", "engine + protocol + SAADC (registers) + USB CDC (nrf-usbd)"),
     ];
     let mut table = Vec::new();
     for (board, target, what) in rows {
@@ -370,6 +384,17 @@ mod tests {
         for name in ["__aeabi_memcpy", "__aeabi_uidiv", "__aeabi_lmul", "main"] {
             assert!(!is_float_routine(name), "{name}");
         }
+    }
+
+    #[test]
+    fn the_real_boards_build_images_for_the_m4f_target() {
+        let root = workspace_root();
+        let listed = boards(&root);
+        for board in ["stm32f411", "nrf52840"] {
+            assert!(listed.iter().any(|b| b == board), "{board} in {listed:?}");
+            assert_eq!(board_target(&root.join("boards").join(board)).unwrap(), "thumbv7em-none-eabihf");
+        }
+        assert!(!listed.iter().any(|b| b == "common"), "boards/common holds shared sources, not an image");
     }
 
     #[test]

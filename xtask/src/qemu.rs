@@ -41,12 +41,22 @@ pub struct StackUse {
 impl Qemu {
     /// Starts `elf` on the emulated board and waits for QEMU to say where the UART is.
     pub fn start(elf: &Path) -> Result<Qemu> {
+        Qemu::start_on(elf, MACHINE, 0)
+    }
+
+    /// Starts `elf` on QEMU's `machine` with its serial port number `serial` (0 = the first)
+    /// on a pseudo-terminal and the ports before it unconnected.
+    pub fn start_on(elf: &Path, machine: &str, serial: usize) -> Result<Qemu> {
         static STARTED: std::sync::atomic::AtomicU32 = std::sync::atomic::AtomicU32::new(0);
         let n = STARTED.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
         let monitor = std::env::temp_dir().join(format!("ohmsight-qemu-{}-{n}.sock", std::process::id()));
         let _ = std::fs::remove_file(&monitor);
         let mut cmd = Command::new(QEMU);
-        cmd.args(["-machine", MACHINE, "-display", "none", "-serial", "pty", "-monitor"])
+        cmd.args(["-machine", machine, "-display", "none"]);
+        for _ in 0..serial {
+            cmd.args(["-serial", "null"]);
+        }
+        cmd.args(["-serial", "pty", "-monitor"])
             .arg(format!("unix:{},server=on,wait=off", monitor.display()))
             .arg("-kernel")
             .arg(elf)

@@ -10,6 +10,7 @@
 mod board;
 mod footprint;
 mod link;
+mod netduino;
 
 use std::sync::OnceLock;
 use xtask::firmware::Image;
