@@ -46,6 +46,7 @@ pub mod simulate;
 pub mod stats;
 pub mod store;
 pub mod units;
+pub mod wiring;
 
 pub use judge::{Flag, PinReport, SurveyReport, Verdict};
 pub use record::RunRecord;

@@ -81,6 +81,8 @@ pub struct SurveyOptions {
     /// Chooses the converter values the run is analysed with once the board has described
     /// itself (a unit's calibration, a profile file); `None`: the board's own description.
     pub profile: Option<ProfileChoice>,
+    /// The pins' names from a wiring file, in place of the board's own labels.
+    pub wiring: Option<crate::wiring::Wiring>,
 }
 
 /// What a run is analysed with, chosen once the board has said which board and unit it is:
@@ -100,6 +102,15 @@ impl std::fmt::Debug for ProfileChoice {
 }
 
 impl SurveyOptions {
+    /// The board as it described itself, its pins named by the wiring file when there is one.
+    fn board_of(&self, info: &BoardInfo) -> Result<BoardRecord, SurveyError> {
+        let mut board = board_record(info);
+        if let Some(w) = &self.wiring {
+            w.apply(&mut board).map_err(SurveyError::Wiring)?;
+        }
+        Ok(board)
+    }
+
     /// The values a run on `board` is analysed with: the board's own, or what
     /// [`SurveyOptions::profile`] chooses.
     fn profile_for(&self, board: &BoardRecord, own: Profile) -> Result<Profile, SurveyError> {
@@ -144,6 +155,8 @@ pub enum SurveyError {
     /// The values to analyse with could not be chosen (the store could not be read for the
     /// unit's calibration).
     Profile(String),
+    /// The wiring file does not fit the board that answered.
+    Wiring(String),
 }
 
 impl SurveyError {
@@ -156,6 +169,7 @@ impl SurveyError {
                 | SurveyError::OtherBoard { .. }
                 | SurveyError::NothingToResume { .. }
                 | SurveyError::Limits(_)
+                | SurveyError::Wiring(_)
         )
     }
 }
@@ -166,7 +180,7 @@ impl std::fmt::Display for SurveyError {
             SurveyError::Session(e) => e.fmt(f),
             SurveyError::Board(e) => e.fmt(f),
             SurveyError::Limits(e) => f.write_str(e),
-            SurveyError::Profile(e) => f.write_str(e),
+            SurveyError::Profile(e) | SurveyError::Wiring(e) => f.write_str(e),
             SurveyError::OtherBoard { run, was, now } => write!(
                 f,
                 "run {run} was made on board {was}, but board {now} answers on this link: connect the board of \
@@ -406,17 +420,17 @@ pub fn survey_with<L: Link>(
             return Err(SurveyError::NoSuchPin { channel: c, pins: all_pins });
         }
     }
-    let pins: Vec<PinRecord> = info
+    let board = opts.board_of(&info)?;
+    let pins: Vec<PinRecord> = board
         .channels
         .iter()
-        .filter(|c| c.role == ChannelRole::Pin && (opts.channels.is_empty() || opts.channels.contains(&c.channel)))
-        .map(|c| PinRecord { channel: c.channel, label: c.label.to_string(), complete: false })
+        .filter(|c| c.role == "pin" && (opts.channels.is_empty() || opts.channels.contains(&c.channel)))
+        .map(|c| PinRecord { channel: c.channel, label: c.label.clone(), complete: false })
         .collect();
     if pins.is_empty() {
         return Err(SurveyError::NoSuchPin { channel: opts.channels.first().copied().unwrap_or(0), pins: all_pins });
     }
     let nominal_model = BoardModel::from_front_end(&info.front_end);
-    let board = board_record(&info);
     let profile = opts.profile_for(&board, Profile::from_model(&nominal_model, &info.front_end))?;
     let record = RunRecord { run: run_meta(opts, started, Some(&info)), board, profile, pins, experiments: Vec::new() };
     on_event(&RunEvent::Began(&record));
@@ -619,7 +633,7 @@ pub fn check_with<L: Link>(
         Ok(connected) => connected,
         Err(unsurveyed) => return Ok(*unsurveyed),
     };
-    let board = board_record(&info);
+    let board = opts.board_of(&info)?;
     let wanted = needs(&board).map_err(SurveyError::Limits)?;
     let pins: Vec<PinRecord> = board
         .channels

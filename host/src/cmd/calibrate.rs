@@ -2,7 +2,7 @@
 //! known resistance, stored per unit for its later surveys and checks.
 
 use super::common::{print, DbArgs, Keeper, LinkArgs};
-use super::survey::measure;
+use super::survey::{measure, Choices};
 use super::Failure;
 use ohmsight::calibration::{self, FixtureSpec};
 use ohmsight::fit::Interval;
@@ -103,8 +103,8 @@ pub fn run(args: Args) -> Result<(), Failure> {
     };
     let mut keeper = Keeper::new(args.db.open()?);
     let channels = specs.iter().map(|f| f.channel).collect();
-    let r =
-        measure(&args.link, channels, None, args.quiet || args.json, Some(&mut keeper), RunKind::Calibration, None)?;
+    let choices = Choices { kind: RunKind::Calibration, profile: None, wiring: None };
+    let r = measure(&args.link, channels, None, args.quiet || args.json, Some(&mut keeper), choices)?;
     let record = &r.record;
     let described = keeper.store.describe();
     if let Some(e) = keeper.error.take() {

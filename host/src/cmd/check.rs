@@ -1,6 +1,6 @@
 //! `ohmsight check`: a production check of one unit against a limits file.
 
-use super::common::{open_session, print, write_output, Bar, DbArgs, Keeper, LinkArgs, ProfileArgs};
+use super::common::{open_session, print, write_output, Bar, DbArgs, Keeper, LinkArgs, ProfileArgs, WiringArgs};
 use super::Failure;
 use ohmsight::check::{more_wanted, needs, CheckReport, CheckResult};
 use ohmsight::limits::{self, Limits, ResolvedPin};
@@ -61,6 +61,8 @@ pub struct Args {
     #[command(flatten)]
     profile: ProfileArgs,
     #[command(flatten)]
+    wiring: WiringArgs,
+    #[command(flatten)]
     db: DbArgs,
 }
 
@@ -78,6 +80,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
     let calibrations =
         if args.profile.uncalibrated { None } else { Some(args.db.open().map_err(Failure::no_verdict)?) };
     let profile = args.profile.choice(calibrations)?;
+    let wiring = args.wiring.load()?;
     let (mut session, context) = open_session(&args.link)?;
     let opts = SurveyOptions {
         any_version: args.link.any_version,
@@ -85,6 +88,7 @@ pub fn run(args: Args) -> Result<(), Failure> {
         context,
         kind: RunKind::Check,
         profile,
+        wiring,
     };
     let bar = Bar::new(args.quiet || args.json);
     let resolved: RefCell<Option<Vec<ResolvedPin<'_>>>> = RefCell::new(None);

@@ -130,6 +130,28 @@ impl DbArgs {
     }
 }
 
+/// The pins' names for this set-up: the same option for every command that surveys.
+#[derive(clap::Args)]
+pub struct WiringArgs {
+    /// Name the board's pins from this wiring file (TOML: [[pin]] tables of channel and label,
+    /// 1 to 64 characters of any language; optional board = "NAME"). The labels replace the
+    /// board's own in the run's table, page, record and limits.
+    #[arg(long, value_name = "FILE.toml")]
+    pub wiring: Option<PathBuf>,
+}
+
+impl WiringArgs {
+    /// The wiring file, read and checked (bad input names file and line), or `None`.
+    pub fn load(&self) -> Result<Option<ohmsight::wiring::Wiring>, Failure> {
+        let Some(path) = &self.wiring else { return Ok(None) };
+        let text = std::fs::read_to_string(path)
+            .map_err(|e| Failure::bad_input(format!("cannot read the wiring file {}: {e}", path.display())))?;
+        ohmsight::wiring::parse(&path.display().to_string(), &text)
+            .map(Some)
+            .map_err(|e| Failure::bad_input(e.to_string()))
+    }
+}
+
 /// Which converter values a run is analysed with: the same options for survey and check.
 #[derive(clap::Args)]
 pub struct ProfileArgs {

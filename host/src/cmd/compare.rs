@@ -1,9 +1,9 @@
 //! `ohmsight compare`: what changed on a unit since its baseline, per pin, in physical terms.
 
 use super::common::Keeper;
-use super::common::{print, write_output, DbArgs, LinkArgs, ProfileArgs};
+use super::common::{print, write_output, DbArgs, LinkArgs, ProfileArgs, WiringArgs};
 use super::refit::load_record;
-use super::survey::measure;
+use super::survey::{measure, Choices};
 use super::Failure;
 use ohmsight::analyse::analyse;
 use ohmsight::compare::{comparable, Document};
@@ -69,6 +69,8 @@ pub struct Args {
     quiet: bool,
     #[command(flatten)]
     profile: ProfileArgs,
+    #[command(flatten)]
+    wiring: WiringArgs,
     #[command(flatten)]
     db: DbArgs,
 }
@@ -142,6 +144,11 @@ fn compare(args: Args) -> Result<(), Failure> {
              analyse that run again under other values with `ohmsight refit RUN --profile FILE` first",
         ));
     }
+    if args.run.is_some() && args.wiring.wiring.is_some() {
+        return Err(Failure::bad_input(
+            "--wiring names the pins of a survey made now; a stored run keeps the names it was made with",
+        ));
+    }
     let baseline = match &args.baseline {
         Some(source) => Some((db.load(source)?, source.clone())),
         None => None,
@@ -157,10 +164,13 @@ fn compare(args: Args) -> Result<(), Failure> {
                 None => args.db.open()?,
             };
             // The unit's calibration, when it has one, as for a survey.
-            let profile = args.profile.choice(Some(args.db.open()?))?;
+            let choices = Choices {
+                kind: RunKind::Survey,
+                profile: args.profile.choice(Some(args.db.open()?))?,
+                wiring: args.wiring.load()?,
+            };
             let mut keeper = Keeper::new(store);
-            let measured =
-                measure(&args.link, Vec::new(), None, args.quiet, Some(&mut keeper), RunKind::Survey, profile);
+            let measured = measure(&args.link, Vec::new(), None, args.quiet, Some(&mut keeper), choices);
             let described = keeper.store.describe();
             db.store = Some(keeper.store);
             let r = measured?;

@@ -2,7 +2,7 @@
 
 use super::common::{
     channel, open_run_link, open_session, positive_volts, print, write_output, Bar, DbArgs, Keeper, LinkArgs,
-    ProfileArgs,
+    ProfileArgs, WiringArgs,
 };
 use super::Failure;
 use ohmsight::advice::{advise, AdviceOptions};
@@ -62,6 +62,8 @@ pub struct Args {
     #[command(flatten)]
     profile: ProfileArgs,
     #[command(flatten)]
+    wiring: WiringArgs,
+    #[command(flatten)]
     db: DbArgs,
     /// Keep nothing: do not write the run to the database (nor read the unit's calibration
     /// from it: the board's own values are used, or --profile).
@@ -96,8 +98,9 @@ pub fn run(args: Args) -> Result<(), Failure> {
     // The unit's calibration is read through a connection of its own (the keeper's writes the
     // run as it goes).
     let calibrations = if args.no_store || args.profile.uncalibrated { None } else { Some(args.db.open()?) };
-    let profile = args.profile.choice(calibrations)?;
-    let r = measure(&args.link, args.channels.clone(), resume, args.quiet, keeper.as_mut(), RunKind::Survey, profile)?;
+    let choices =
+        Choices { kind: RunKind::Survey, profile: args.profile.choice(calibrations)?, wiring: args.wiring.load()? };
+    let r = measure(&args.link, args.channels.clone(), resume, args.quiet, keeper.as_mut(), choices)?;
     let advice_opts = AdviceOptions { resolve_volts: args.resolve };
     let advice = advise(&r, &advice_opts);
     let stored = keeper.as_ref().map(|k| k.store.describe());
@@ -137,26 +140,33 @@ pub fn run(args: Args) -> Result<(), Failure> {
     }
 }
 
+/// What a surveying command chose for its run: its kind, the converter values it is analysed
+/// with (`None`: the board's own), the pins' names (`None`: the board's own).
+pub(super) struct Choices {
+    pub kind: RunKind,
+    pub profile: Option<ProfileChoice>,
+    pub wiring: Option<ohmsight::wiring::Wiring>,
+}
+
 /// Surveys the board of `link` (or finishes `resume` on its own link when no link option is
 /// given), drawing the progress bar and writing the run to `keeper` as it happens, the pins'
 /// summaries at the end. A store error is kept in `keeper` for the caller to report; a fault of
-/// the board or link is in the report (`fault`, `record.run.complete`). The run is recorded as
-/// of `kind` and analysed with the values `profile` chooses (the board's own when `None`; a
-/// resumed run keeps its own).
+/// the board or link is in the report (`fault`, `record.run.complete`). `choices` say what the
+/// run is and how it is named and analysed (a resumed run keeps its own).
 pub(super) fn measure(
     link: &LinkArgs,
     channels: Vec<u8>,
     resume: Option<RunRecord>,
     quiet: bool,
     mut keeper: Option<&mut Keeper>,
-    kind: RunKind,
-    profile: Option<ProfileChoice>,
+    choices: Choices,
 ) -> Result<SurveyReport, Failure> {
     let (mut session, context) = match &resume {
         Some(record) if !link.given() => open_run_link(record, link.any_version)?,
         _ => open_session(link)?,
     };
-    let opts = SurveyOptions { any_version: link.any_version, channels, context, kind, profile };
+    let Choices { kind, profile, wiring } = choices;
+    let opts = SurveyOptions { any_version: link.any_version, channels, context, kind, profile, wiring };
     let bar = Bar::new(quiet);
     let mut on_event = |e: &RunEvent| {
         bar.on(e);
