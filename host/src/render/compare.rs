@@ -3,6 +3,7 @@
 //! after values with their 95% intervals drawn side by side.
 
 use super::html::{builder, escape, figure, label_style, mesh, svg, Draw, PlotResult, HIGH, LOW, STYLE};
+use super::plot_marks::{decade_label, decades};
 use crate::compare::{Change, Document, PinComparison, Quantity, Value};
 use plotters::prelude::*;
 use std::fmt::Write as _;
@@ -143,8 +144,12 @@ fn change_plot_area(area: &Draw<'_>, c: &Change) -> PlotResult {
     let mut b = builder(area);
     b.x_label_area_size(28).y_label_area_size(64).caption(c.what.label(), label_style(12));
     if log {
-        let mut chart = b.build_cartesian_2d(xs, (range.0..range.1).log_scale())?;
-        mesh(&mut chart).x_labels(3).x_label_formatter(&x_label).y_label_formatter(&y_label).y_labels(5).draw()?;
+        // Decades only, as every log axis of the pages.
+        let (lo, hi, ticks) = decades(range.0, range.1);
+        let range = (lo, hi);
+        let y_label = move |v: &f64| decade_label(*v, unit);
+        let mut chart = b.build_cartesian_2d(xs, (lo..hi).log_scale().with_key_points(ticks))?;
+        mesh(&mut chart).x_labels(3).x_label_formatter(&x_label).y_label_formatter(&y_label).draw()?;
         draw_side(&mut chart, 1.0, &c.before, range, log, LOW)?;
         draw_side(&mut chart, 2.0, &c.after, range, log, HIGH)?;
     } else {
