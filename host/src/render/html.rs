@@ -890,7 +890,10 @@ fn bound_plots(r: &SurveyReport, p: &PinReport) -> String {
             (None, None) => continue,
         };
         let mut grid = log_space(a, b, PROFILE_POINTS);
-        grid.extend(iv.low.iter().chain(iv.high.iter()));
+        // Closer around each printed end, where the curve crosses the threshold.
+        for e in iv.low.iter().chain(iv.high.iter()) {
+            grid.extend([0.6, 0.75, 0.87, 1.0, 1.15, 1.33, 1.67].map(|k| e * k));
+        }
         grid.sort_by(f64::total_cmp);
         let input = FitInput { board: &r.model, events: &p.events };
         let rise = profile_rise(&input, fit, i, &grid);
@@ -946,6 +949,12 @@ fn bound_plots(r: &SurveyReport, p: &PinReport) -> String {
             }
             chart
                 .draw_series(rise.iter().filter(|q| q.1 <= y_hi).map(|&(x, y)| Circle::new((x, y), 2, LOW.filled())))?;
+            // Points above the panel: triangles along its top.
+            chart.draw_series(
+                rise.iter()
+                    .filter(|q| q.1 > y_hi)
+                    .map(|&(x, _)| TriangleMarker::new((x, y_hi * 0.97), 4, LOW.stroke_width(1))),
+            )?;
             marks.plot_area(&chart);
             marks.key(&key, &band);
             Ok(())
@@ -960,8 +969,8 @@ fn bound_plots(r: &SurveyReport, p: &PinReport) -> String {
         let caption = format!(
             "<b>{}.</b> The table prints {name} {} because the fit gets worse past it: at each value the other \
              parameters are fitted again, and where χ² rises above the fit's own by more than {} (3.84, the 95% \
-             point of χ² with one degree of freedom, times the misfit ratio {:.2}) the value is excluded. Curve \
-             above the panel: cut.{}",
+             point of χ² with one degree of freedom, times the misfit ratio {:.2}) the value is excluded. \
+             Triangles along the top: points above the panel.{}",
             escape(&title),
             escape(&printed),
             short(threshold),

@@ -218,6 +218,15 @@ pub(crate) fn y_label_area(labels: impl IntoIterator<Item = String>, min: u32) -
 /// to the next decades outside it where it would hold fewer than two, and the decades inside.
 pub(crate) fn decades(lo: f64, hi: f64) -> (f64, f64, Vec<f64>) {
     let (mut lo, mut hi) = (lo.min(hi), hi.max(lo));
+    // An end within a factor 1.5 of a decade reaches it: its tick is then on the axis too.
+    let below = 10f64.powf((lo.log10() - 1e-9).floor());
+    if lo / below < 1.5 {
+        lo = below;
+    }
+    let above = 10f64.powf((hi.log10() + 1e-9).ceil());
+    if above / hi < 1.5 {
+        hi = above;
+    }
     let inside = |lo: f64, hi: f64| -> Vec<f64> {
         let (a, b) = ((lo.log10() - 1e-9).ceil() as i32, (hi.log10() + 1e-9).floor() as i32);
         (a..=b).map(|k| 10f64.powi(k)).collect()
@@ -258,6 +267,9 @@ mod tests {
         let (lo, hi, t) = decades(71e-9, 33e-6);
         assert_eq!((lo, hi), (71e-9, 33e-6));
         assert_eq!(t.len(), 3);
+        // Ends near a decade reach it.
+        let (lo, hi, _) = decades(102e-9, 9e-6);
+        assert!((lo / 1e-7 - 1.0).abs() < 1e-12 && (hi / 1e-5 - 1.0).abs() < 1e-12, "{lo:e} {hi:e}");
         for (k, v) in t.iter().enumerate() {
             let want = 10f64.powi(-7 + k as i32);
             assert!((v / want - 1.0).abs() < 1e-12, "{v:e}");
