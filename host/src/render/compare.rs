@@ -270,3 +270,33 @@ pub fn compare_html(d: &Document) -> String {
     );
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::render::plot_marks::tests::{assert_decades, si_value};
+
+    #[test]
+    fn a_resistance_change_is_plotted_on_decade_ticks() {
+        let side = |e: f64| Value {
+            verdict: "driven",
+            estimate: Some(e),
+            low: Some(e * 0.95),
+            high: Some(e * 1.05),
+            unit: "Ω",
+            text: String::new(),
+        };
+        // A change within a decade: an axis of its own choosing would tick at 10k, 20k, 30k, …
+        let c = Change {
+            what: Quantity::SourceOhms,
+            before: side(33e3),
+            after: side(47e3),
+            rule: "test",
+            meaning: String::new(),
+        };
+        let svg = svg(W, H, |area| change_plot_area(area, &c));
+        let ticks: Vec<f64> =
+            svg.split("</text>").filter_map(|t| t.rsplit('>').next()).filter_map(|t| si_value(t.trim(), "Ω")).collect();
+        assert_decades("the resistance axis", &ticks);
+    }
+}

@@ -4,6 +4,7 @@
 //! 16-bit board, and a figure behind every bound the table prints.
 
 use super::*;
+use crate::render::plot_marks::tests::{assert_decades, si_value};
 
 /// One element of an SVG: its name, attributes, text, and the classes of the groups around it.
 #[derive(Debug, Clone, Default)]
@@ -181,45 +182,6 @@ fn key_box(els: &[El]) -> Option<Bx> {
 fn sixteen_bit() -> (SurveyReport, String) {
     let path = concat!(env!("CARGO_MANIFEST_DIR"), "/../boards/virtual/scenarios/bench16.toml");
     super::tests::page_of(path, &std::fs::read_to_string(path).unwrap())
-}
-
-/// `1 µs` → 1e-6 for the unit `unit`; `None` for anything else.
-fn si_value(text: &str, unit: &str) -> Option<f64> {
-    let (number, rest) = text.split_once(' ')?;
-    let prefix = rest.strip_suffix(unit)?;
-    let scale = match prefix {
-        "" => 1.0,
-        "k" => 1e3,
-        "M" => 1e6,
-        "G" => 1e9,
-        "m" => 1e-3,
-        "µ" => 1e-6,
-        "n" => 1e-9,
-        "p" => 1e-12,
-        "f" => 1e-15,
-        _ => return None,
-    };
-    Some(number.parse::<f64>().ok()? * scale)
-}
-
-/// Checks that `values` are successive powers of ten (each exactly 10ᵏ, each the last × 10).
-fn assert_decades(what: &str, values: &[f64]) {
-    let mut v = values.to_vec();
-    v.sort_by(f64::total_cmp);
-    v.dedup();
-    assert!(v.len() >= 2, "{what}: at least two decade ticks, got {v:?}");
-    for x in &v {
-        let k = x.log10().round();
-        assert!((x / 10f64.powf(k) - 1.0).abs() < 1e-9, "{what}: tick {x:e} is not a power of ten ({v:?})");
-    }
-    for w in v.windows(2) {
-        assert!(
-            (w[1] / w[0] / 10.0 - 1.0).abs() < 1e-9,
-            "{what}: ticks {:e} and {:e} skip or split a decade",
-            w[0],
-            w[1]
-        );
-    }
 }
 
 #[test]

@@ -258,7 +258,7 @@ pub(crate) fn decade_label(v: f64, unit: &str) -> String {
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use crate::render::html::PAPER;
 
@@ -302,5 +302,44 @@ mod tests {
         let rows = k.layout(k.width);
         assert!(rows.iter().all(|&(x, _)| x < k.width));
         assert!(k.height() >= 3 * KEY_ROW_PX);
+    }
+
+    /// `1 µs` → 1e-6 for the unit `unit`; `None` for anything else.
+    pub(crate) fn si_value(text: &str, unit: &str) -> Option<f64> {
+        let (number, rest) = text.split_once(' ')?;
+        let prefix = rest.strip_suffix(unit)?;
+        let scale = match prefix {
+            "" => 1.0,
+            "k" => 1e3,
+            "M" => 1e6,
+            "G" => 1e9,
+            "m" => 1e-3,
+            "µ" => 1e-6,
+            "n" => 1e-9,
+            "p" => 1e-12,
+            "f" => 1e-15,
+            _ => return None,
+        };
+        Some(number.parse::<f64>().ok()? * scale)
+    }
+
+    /// Checks that `values` are successive powers of ten (each exactly 10ᵏ, each the last × 10).
+    pub(crate) fn assert_decades(what: &str, values: &[f64]) {
+        let mut v = values.to_vec();
+        v.sort_by(f64::total_cmp);
+        v.dedup();
+        assert!(v.len() >= 2, "{what}: at least two decade ticks, got {v:?}");
+        for x in &v {
+            let k = x.log10().round();
+            assert!((x / 10f64.powf(k) - 1.0).abs() < 1e-9, "{what}: tick {x:e} is not a power of ten ({v:?})");
+        }
+        for w in v.windows(2) {
+            assert!(
+                (w[1] / w[0] / 10.0 - 1.0).abs() < 1e-9,
+                "{what}: ticks {:e} and {:e} skip or split a decade",
+                w[0],
+                w[1]
+            );
+        }
     }
 }
