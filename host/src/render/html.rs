@@ -451,7 +451,7 @@ fn precharge_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String
     if !curves.is_empty() {
         key.add(Swatch::Line(INK, 2), "fitted model, sample time varied");
     }
-    key.add(Swatch::Line(MODEL, 2), "selectable sample time");
+    key.add(Swatch::Tick(MODEL), "selectable sample time");
     let plots_h = if settled.is_some() { PLOT_H + 150 } else { PLOT_H };
     let svg = svg_with(PLOT_W, plots_h + key.height(), |root, marks| {
         let (plots, band) = root.split_vertically(plots_h);

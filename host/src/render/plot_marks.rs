@@ -106,6 +106,8 @@ pub(crate) enum Swatch {
     Cross(RGBColor),
     Triangle(RGBColor),
     Bar(RGBColor, f64),
+    /// A short upright mark, as those along an axis.
+    Tick(RGBColor),
 }
 
 impl Swatch {
@@ -139,6 +141,12 @@ impl Swatch {
                 y + 4,
                 mid + 5,
                 y + 4,
+                hex(c)
+            ),
+            Swatch::Tick(c) => format!(
+                "<line x1=\"{mid}\" y1=\"{}\" x2=\"{mid}\" y2=\"{}\" stroke=\"{}\" stroke-width=\"2\"/>",
+                y + 4,
+                y - 3,
                 hex(c)
             ),
             Swatch::Bar(c, opacity) => format!(
