@@ -846,6 +846,36 @@ pub fn profile_objective(input: &FitInput<'_>, i: usize, ln_x: f64, start: &PinP
     obj
 }
 
+/// The profile behind one of `fit`'s intervals, for a plot: at each of `xs` (Ω for [`LN_RS`],
+/// F for [`LN_CN`]; those outside the search range are left out) the rise of the objective,
+/// the other parameters re-optimized, above its value at the fit, with the weights the
+/// interval search used. The interval's ends are where it crosses
+/// `CHI2_95_1DOF · fit.birge()`. A source bound that assumes a node below some capacitance
+/// ([`Fit::assumes_node_below`]) is profiled under that assumption, as it was found.
+pub fn profile_rise(input: &FitInput<'_>, fit: &Fit, i: usize, xs: &[f64]) -> Vec<(f64, f64)> {
+    let mut p = Problem::new(input);
+    p.reweight(&fit.theta);
+    if let (LN_RS, Some(c)) = (i, fit.assumes_node_below) {
+        p.bounds[LN_CN].1 = c.ln().min(p.bounds[LN_CN].1);
+    }
+    let base = p.objective(&fit.theta);
+    p.free.retain(|&f| f != i);
+    let (lo, hi) = p.bounds[i];
+    let mut warm = fit.theta;
+    let mut out = Vec::new();
+    for &x in xs {
+        let ln_x = x.ln();
+        if !(lo..=hi).contains(&ln_x) {
+            continue;
+        }
+        let (q, obj, t) = profile_at(p, i, ln_x, warm, f64::INFINITY);
+        p = q;
+        warm = t;
+        out.push((x, obj - base));
+    }
+    out
+}
+
 /// The fit's objective (data χ² plus prior penalties) at given parameters: for tests and
 /// studies that compare the optimum with the truth.
 pub fn objective_at(input: &FitInput<'_>, p: &PinParams) -> f64 {

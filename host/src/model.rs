@@ -80,6 +80,11 @@ impl BoardModel {
         f64::from(self.sample_ps[i]) * 1e-12
     }
 
+    /// Every sample time the board can be set to, s, in the order of its table.
+    pub fn sample_times(&self) -> Vec<f64> {
+        (0..self.sample_ps.len()).map(|i| self.sample_s(i)).collect()
+    }
+
     /// Voltage of a mean code.
     pub fn code_volts(&self, code: f64) -> f64 {
         code * self.lsb_volts()

@@ -3,6 +3,7 @@
 //! after values with their 95% intervals drawn side by side.
 
 use super::html::{builder, escape, figure, label_style, mesh, svg, Draw, PlotResult, HIGH, LOW, STYLE};
+use super::plot_marks::{decade_label, decades};
 use crate::compare::{Change, Document, PinComparison, Quantity, Value};
 use plotters::prelude::*;
 use std::fmt::Write as _;
@@ -143,8 +144,12 @@ fn change_plot_area(area: &Draw<'_>, c: &Change) -> PlotResult {
     let mut b = builder(area);
     b.x_label_area_size(28).y_label_area_size(64).caption(c.what.label(), label_style(12));
     if log {
-        let mut chart = b.build_cartesian_2d(xs, (range.0..range.1).log_scale())?;
-        mesh(&mut chart).x_labels(3).x_label_formatter(&x_label).y_label_formatter(&y_label).y_labels(5).draw()?;
+        // Decades only, as every log axis of the pages.
+        let (lo, hi, ticks) = decades(range.0, range.1);
+        let range = (lo, hi);
+        let y_label = move |v: &f64| decade_label(*v, unit);
+        let mut chart = b.build_cartesian_2d(xs, (lo..hi).log_scale().with_key_points(ticks))?;
+        mesh(&mut chart).x_labels(3).x_label_formatter(&x_label).y_label_formatter(&y_label).draw()?;
         draw_side(&mut chart, 1.0, &c.before, range, log, LOW)?;
         draw_side(&mut chart, 2.0, &c.after, range, log, HIGH)?;
     } else {
@@ -264,4 +269,34 @@ pub fn compare_html(d: &Document) -> String {
         env!("CARGO_PKG_VERSION")
     );
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::render::plot_marks::tests::{assert_decades, si_value};
+
+    #[test]
+    fn a_resistance_change_is_plotted_on_decade_ticks() {
+        let side = |e: f64| Value {
+            verdict: "driven",
+            estimate: Some(e),
+            low: Some(e * 0.95),
+            high: Some(e * 1.05),
+            unit: "Ω",
+            text: String::new(),
+        };
+        // A change within a decade: an axis of its own choosing would tick at 10k, 20k, 30k, …
+        let c = Change {
+            what: Quantity::SourceOhms,
+            before: side(33e3),
+            after: side(47e3),
+            rule: "test",
+            meaning: String::new(),
+        };
+        let svg = svg(W, H, |area| change_plot_area(area, &c));
+        let ticks: Vec<f64> =
+            svg.split("</text>").filter_map(|t| t.rsplit('>').next()).filter_map(|t| si_value(t.trim(), "Ω")).collect();
+        assert_decades("the resistance axis", &ticks);
+    }
 }

@@ -9,10 +9,13 @@
 //! The fitted curves are the forward model of [`crate::model`] at the fitted parameters; no
 //! plot carries physics of its own.
 
-use crate::fit::Interval;
+use crate::fit::{profile_rise, FitInput, Interval, CHI2_95_1DOF, LN_CN, LN_RS};
 use crate::judge::{Flag, PinReport, SurveyReport, Verdict};
 use crate::model::{predict, BoardModel, Event, PinParams};
 use crate::noise::{HARMONICS, MAINS_HZ};
+#[cfg(test)]
+use crate::render::plot_marks::hex;
+use crate::render::plot_marks::{decade_label, decades, y_label_area, Key, Overlay, Swatch};
 use crate::render::text::{converter_text, interval_text};
 use crate::units;
 use ohmsight_protocol::analog::volts_to_lsb;
@@ -71,13 +74,26 @@ pub fn escape(text: &str) -> String {
 
 /// Renders one SVG of `w`×`h` px; a failure becomes a note in the page instead of a plot.
 pub(crate) fn svg(w: u32, h: u32, draw: impl FnOnce(&Draw<'_>) -> PlotResult) -> String {
+    svg_with(w, h, |root, _| draw(root))
+}
+
+/// [`svg`] with marks of our own ([`Overlay`]) drawn over the plot.
+fn svg_with(w: u32, h: u32, draw: impl FnOnce(&Draw<'_>, &mut Overlay) -> PlotResult) -> String {
     let mut buf = String::new();
+    let mut overlay = Overlay::default();
     let result = {
         let root = SVGBackend::with_string(&mut buf, (w, h)).into_drawing_area();
-        root.fill(&PAPER).map_err(|e| e.into()).and_then(|_| draw(&root)).and_then(|_| Ok(root.present()?))
+        root.fill(&PAPER)
+            .map_err(|e| e.into())
+            .and_then(|_| draw(&root, &mut overlay))
+            .and_then(|_| Ok(root.present()?))
     };
     match result {
-        Ok(()) => buf,
+        Ok(()) => {
+            let end = buf.rfind("</svg>").unwrap_or(buf.len());
+            buf.insert_str(end, &overlay.into_svg());
+            buf
+        }
         Err(e) => format!("<p class=\"nodata\">this plot could not be drawn: {}</p>", escape(&e.to_string())),
     }
 }
@@ -88,14 +104,6 @@ pub(crate) fn figure(id: &str, svg: String, caption: &str) -> String {
 
 pub(crate) fn no_data(id: &str, title: &str, why: &str) -> String {
     format!("<figure id=\"{id}\" class=\"empty\"><p class=\"nodata\"><b>{title}</b>: {why}</p></figure>\n")
-}
-
-fn seconds_label(v: &f64) -> String {
-    units::si(*v, "s")
-}
-
-fn hz_label(v: &f64) -> String {
-    units::si(*v, "Hz")
 }
 
 /// Compact number for cells and captions: `0.42`, `12.3`, `418`, `3.1k`.
@@ -404,8 +412,8 @@ fn precharge_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String
         return no_data(&id, title, "no precharge sweep of this pin came back");
     }
     let settled = settled_lsb(m, p);
-    let t_lo = m.sample_s(0) / 1.4;
-    let t_hi = m.sample_s(m.sample_ps.len() - 1) * 1.4;
+    let t_lo = m.sample_times().into_iter().fold(f64::INFINITY, f64::min) / 1.4;
+    let t_hi = m.sample_times().into_iter().fold(0.0, f64::max) * 1.4;
     let mut pres: Vec<u8> = pts.iter().map(|q| q.precharge).collect();
     pres.sort_unstable();
     pres.dedup();
@@ -429,18 +437,34 @@ fn precharge_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String
     }
     let pad = ((y_hi - y_lo) * 0.08).max(2.0);
     let (y_lo, y_hi) = (y_lo - pad, y_hi + pad);
-    let height = if settled.is_some() { PLOT_H + 150 } else { PLOT_H };
-    let svg = svg(PLOT_W, height, |root| {
-        let (top, bottom) = root.split_vertically(if settled.is_some() { PLOT_H - 20 } else { PLOT_H });
+    let y_fmt = axis_label(y_hi - y_lo);
+    let y_area = y_label_area([y_fmt(&y_lo), y_fmt(&y_hi), "-4".into()], 58);
+    let (t_lo, t_hi, t_ticks) = decades(t_lo, t_hi);
+    let times = m.sample_times();
+    let mut key = Key::new(PLOT_W);
+    for &pre in &pres {
+        key.add(Swatch::Dot(precharge_colour(m, pre)), precharge_name(m, r, pre));
+    }
+    if p.fit.is_some() {
+        key.add(Swatch::Cross(MODEL), "fitted model, as run");
+    }
+    if !curves.is_empty() {
+        key.add(Swatch::Line(INK, 2), "fitted model, sample time varied");
+    }
+    key.add(Swatch::Tick(MODEL), "selectable sample time");
+    let plots_h = if settled.is_some() { PLOT_H + 150 } else { PLOT_H };
+    let svg = svg_with(PLOT_W, plots_h + key.height(), |root, marks| {
+        let (plots, band) = root.split_vertically(plots_h);
+        let (top, bottom) = plots.split_vertically(if settled.is_some() { PLOT_H - 20 } else { PLOT_H });
         let mut chart = builder(&top)
             .caption("readings vs sample time", label_style(15))
             .x_label_area_size(28)
-            .y_label_area_size(58)
-            .build_cartesian_2d((t_lo..t_hi).log_scale(), y_lo..y_hi)?;
+            .y_label_area_size(y_area)
+            .build_cartesian_2d((t_lo..t_hi).log_scale().with_key_points(t_ticks.clone()), y_lo..y_hi)?;
         mesh(&mut chart)
-            .x_label_formatter(&seconds_label)
+            .x_label_formatter(&|v| decade_label(*v, "s"))
             .y_desc("mean code, LSB")
-            .y_label_formatter(&axis_label(y_hi - y_lo))
+            .y_label_formatter(&y_fmt)
             .draw()?;
         for (pre, c) in &curves {
             let colour = precharge_colour(m, *pre);
@@ -451,31 +475,26 @@ fn precharge_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String
         }
         for &pre in &pres {
             let colour = precharge_colour(m, pre);
-            chart
-                .draw_series(
-                    pts.iter().filter(|q| q.precharge == pre).map(|q| Circle::new((q.x, q.mean), 3, colour.filled())),
-                )?
-                .label(precharge_name(m, r, pre))
-                .legend(move |(x, y)| Circle::new((x + 8, y), 3, colour.filled()));
+            chart.draw_series(
+                pts.iter().filter(|q| q.precharge == pre).map(|q| Circle::new((q.x, q.mean), 3, colour.filled())),
+            )?;
         }
         chart
             .draw_series(pts.iter().filter_map(|q| q.model.map(|y| Cross::new((q.x, y), 4, MODEL.stroke_width(1)))))?;
-        if !curves.is_empty() {
-            chart
-                .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())?
-                .label("fitted model")
-                .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], INK.stroke_width(2)));
-        }
-        legend(&mut chart, SeriesLabelPosition::UpperRight)?;
+        marks.plot_area(&chart);
+        marks.sample_times(&chart, &times, MODEL);
+        marks.key(&key, &band);
 
         // Zoom: reading minus settled level, with the ½ LSB band.
         let Some(s) = settled else { return Ok(()) };
         let mut zoom = builder(&bottom)
             .x_label_area_size(40)
-            .y_label_area_size(58)
-            .build_cartesian_2d((t_lo..t_hi).log_scale(), -ZOOM_LSB..ZOOM_LSB)?;
+            .y_label_area_size(y_area)
+            .build_cartesian_2d((t_lo..t_hi).log_scale().with_key_points(t_ticks.clone()), -ZOOM_LSB..ZOOM_LSB)?;
+        marks.plot_area(&zoom);
+        marks.sample_times(&zoom, &times, MODEL);
         mesh(&mut zoom)
-            .x_label_formatter(&seconds_label)
+            .x_label_formatter(&|v| decade_label(*v, "s"))
             .x_desc("sample time")
             .y_desc("minus settled, LSB")
             .y_label_formatter(&|v| format!("{v:.0}"))
@@ -589,21 +608,36 @@ fn period_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String {
     }
     let pad = ((y_hi - y_lo) * 0.08).max(1.0);
     let (y_lo, y_hi) = (y_lo - pad, y_hi + pad);
+    let y_fmt = axis_label(y_hi - y_lo);
+    let y_area = y_label_area([y_fmt(&y_lo), y_fmt(&y_hi)], 58);
+    let (x_lo, x_hi, x_ticks) = decades(x_lo, x_hi);
     let mut pres: Vec<u8> = pts.iter().map(|q| q.precharge).collect();
     pres.sort_unstable();
     pres.dedup();
     let any_b2b = pts.iter().any(|q| q.back_to_back);
-    let svg = svg(PLOT_W, PLOT_H, |root| {
-        let mut chart = builder(root)
+    let mut key = Key::new(PLOT_W);
+    for &pre in &pres {
+        key.add(Swatch::Dot(precharge_colour(m, pre)), precharge_name(m, r, pre));
+    }
+    key.add(Swatch::Cross(MODEL), "fitted model, as run");
+    if !curves.is_empty() {
+        key.add(Swatch::Line(INK, 2), "fitted model, period varied");
+    }
+    if any_b2b {
+        key.add(Swatch::Triangle(INK), "back-to-back run");
+    }
+    let svg = svg_with(PLOT_W, PLOT_H + key.height(), |root, marks| {
+        let (plot, band) = root.split_vertically(PLOT_H);
+        let mut chart = builder(&plot)
             .caption("droop vs pair period", label_style(15))
             .x_label_area_size(40)
-            .y_label_area_size(58)
-            .build_cartesian_2d((x_lo..x_hi).log_scale(), y_lo..y_hi)?;
+            .y_label_area_size(y_area)
+            .build_cartesian_2d((x_lo..x_hi).log_scale().with_key_points(x_ticks.clone()), y_lo..y_hi)?;
         mesh(&mut chart)
-            .x_label_formatter(&seconds_label)
+            .x_label_formatter(&|v| decade_label(*v, "s"))
             .x_desc("period of [precharge, pin] pairs")
             .y_desc(if settled.is_some() { "minus settled, LSB" } else { "mean code, LSB" })
-            .y_label_formatter(&axis_label(y_hi - y_lo))
+            .y_label_formatter(&y_fmt)
             .draw()?;
         if settled.is_some() {
             chart.draw_series([Rectangle::new([(x_lo, -0.5), (x_hi, 0.5)], BAND.mix(0.45).filled())])?;
@@ -619,33 +653,22 @@ fn period_plot(r: &SurveyReport, p: &PinReport, model: &[Vec<f64>]) -> String {
                 let (d, e) = (q.mean - s, 2.0 * q.se);
                 chart.draw_series(LineSeries::new([(q.x, d - e), (q.x, d + e)], colour.stroke_width(1)))?;
             }
-            chart
-                .draw_series(
-                    pts.iter()
-                        .filter(|q| q.precharge == pre && !q.back_to_back)
-                        .map(|q| Circle::new((q.x, q.mean - s), 3, colour.filled())),
-                )?
-                .label(precharge_name(m, r, pre))
-                .legend(move |(x, y)| Circle::new((x + 8, y), 3, colour.filled()));
+            chart.draw_series(
+                pts.iter()
+                    .filter(|q| q.precharge == pre && !q.back_to_back)
+                    .map(|q| Circle::new((q.x, q.mean - s), 3, colour.filled())),
+            )?;
             chart.draw_series(
                 pts.iter()
                     .filter(|q| q.precharge == pre && q.back_to_back)
                     .map(|q| TriangleMarker::new((q.x, q.mean - s), 5, colour.filled())),
             )?;
         }
-        chart
-            .draw_series(
-                pts.iter().filter_map(|q| q.model.map(|y| Cross::new((q.x, y - s), 4, MODEL.stroke_width(1)))),
-            )?
-            .label("fitted model, as run")
-            .legend(|(x, y)| Cross::new((x + 8, y), 4, MODEL.stroke_width(1)));
-        if any_b2b {
-            chart
-                .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())?
-                .label("back-to-back run")
-                .legend(|(x, y)| TriangleMarker::new((x + 8, y), 5, INK.filled()));
-        }
-        legend(&mut chart, SeriesLabelPosition::LowerRight)?;
+        chart.draw_series(
+            pts.iter().filter_map(|q| q.model.map(|y| Cross::new((q.x, y - s), 4, MODEL.stroke_width(1)))),
+        )?;
+        marks.plot_area(&chart);
+        marks.key(&key, &band);
         Ok(())
     });
     let level = settled.map_or("the mean reading (a floating node has no settled level)".into(), |s| {
@@ -679,21 +702,32 @@ fn histogram_plot(r: &SurveyReport, p: &PinReport) -> String {
         let last = counts.len() - 1;
         counts[i.min(last)] += 1;
     }
-    let x_lo = (lo - 0.5).min(n.mean_lsb - 4.0);
-    let x_hi = (lo - 0.5 + width * counts.len() as f64).max(n.mean_lsb + 4.0);
     let floor_sigma = m.variance_floor_lsb2().sqrt();
+    // The floor curve whole: out to 4.5 σ either side of the mean, and its peak inside the range.
+    let reach = (4.5 * floor_sigma).max(4.0);
+    let x_lo = (lo - 0.5).min(n.mean_lsb - reach);
+    let x_hi = (lo - 0.5 + width * counts.len() as f64).max(n.mean_lsb + reach);
     let total = codes.len() as f64;
     let gauss = |x: f64| {
         total * width * (-(x - n.mean_lsb).powi(2) / (2.0 * floor_sigma * floor_sigma)).exp()
             / (floor_sigma * (2.0 * std::f64::consts::PI).sqrt())
     };
-    // Scaled to the readings; a floor curve far narrower than them is cut at the top.
-    let y_hi = f64::from(*counts.iter().max().unwrap_or(&1)) * 1.25;
-    let svg = svg(PLOT_W, PLOT_H, |root| {
-        let mut chart = builder(root)
+    let tallest = f64::from(*counts.iter().max().unwrap_or(&1)).max(gauss(n.mean_lsb));
+    let y_hi = tallest * 1.12;
+    let mut xs: Vec<f64> = (0..=200).map(|i| x_lo + (x_hi - x_lo) * f64::from(i) / 200.0).collect();
+    xs.push(n.mean_lsb);
+    xs.sort_by(f64::total_cmp);
+    let floor_curve: Vec<(f64, f64)> = xs.iter().map(|&x| (x, gauss(x))).collect();
+    let y_area = y_label_area([format!("{y_hi:.0}")], 58);
+    let mut key = Key::new(PLOT_W);
+    key.add(Swatch::Bar(LOW, 0.75), format!("{} readings, {:.2} LSB rms", codes.len(), n.rms_lsb));
+    key.add(Swatch::Line(MODEL, 2), format!("converter floor alone, {floor_sigma:.2} LSB rms"));
+    let svg = svg_with(PLOT_W, PLOT_H + key.height(), |root, marks| {
+        let (plot, band) = root.split_vertically(PLOT_H);
+        let mut chart = builder(&plot)
             .caption("codes of the noise record", label_style(15))
             .x_label_area_size(40)
-            .y_label_area_size(58)
+            .y_label_area_size(y_area)
             .build_cartesian_2d(x_lo..x_hi, 0.0..y_hi)?;
         mesh(&mut chart)
             .x_desc("code, LSB")
@@ -701,19 +735,13 @@ fn histogram_plot(r: &SurveyReport, p: &PinReport) -> String {
             .x_label_formatter(&|v| format!("{v:.0}"))
             .y_label_formatter(&|v| format!("{v:.0}"))
             .draw()?;
-        chart
-            .draw_series(counts.iter().enumerate().map(|(i, &k)| {
-                let x0 = lo - 0.5 + i as f64 * width;
-                Rectangle::new([(x0 + 0.06 * width, 0.0), (x0 + 0.94 * width, f64::from(k))], LOW.mix(0.75).filled())
-            }))?
-            .label(format!("{} readings, {:.2} LSB rms", codes.len(), n.rms_lsb))
-            .legend(|(x, y)| Rectangle::new([(x, y - 4), (x + 14, y + 4)], LOW.mix(0.75).filled()));
-        let xs: Vec<f64> = (0..=200).map(|i| x_lo + (x_hi - x_lo) * f64::from(i) / 200.0).collect();
-        chart
-            .draw_series(LineSeries::new(xs.iter().map(|&x| (x, gauss(x).min(y_hi))), MODEL.stroke_width(2)))?
-            .label(format!("converter floor alone, {floor_sigma:.2} LSB rms"))
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], MODEL.stroke_width(2)));
-        legend(&mut chart, SeriesLabelPosition::UpperRight)?;
+        chart.draw_series(counts.iter().enumerate().map(|(i, &k)| {
+            let x0 = lo - 0.5 + i as f64 * width;
+            Rectangle::new([(x0 + 0.06 * width, 0.0), (x0 + 0.94 * width, f64::from(k))], LOW.mix(0.75).filled())
+        }))?;
+        chart.draw_series(LineSeries::new(floor_curve.iter().copied(), MODEL.stroke_width(2)))?;
+        marks.plot_area(&chart);
+        marks.key(&key, &band);
         Ok(())
     });
     let caption = format!(
@@ -758,16 +786,25 @@ fn spectrum_plot(r: &SurveyReport, p: &PinReport) -> String {
     let floor = 2.0 * m.variance_floor_lsb2() / (2.0 * nyquist);
     let d_lo = psd.iter().map(|q| q.1).fold(f64::INFINITY, f64::min).min(floor) / 3.0;
     let d_hi = psd.iter().map(|q| q.1).fold(0.0, f64::max).max(floor) * 8.0;
-    let f_lo = psd[0].0 / 1.2;
+    let (f_lo, f_hi, f_ticks) = decades(psd[0].0 / 1.2, nyquist);
+    let (d_lo, d_hi, d_ticks) = decades(d_lo, d_hi);
     let flagged = [p.flags.contains(&Flag::Hum50), p.flags.contains(&Flag::Hum60)];
-    let svg = svg(PLOT_W, PLOT_H, |root| {
-        let mut chart = builder(root)
+    let y_area = y_label_area(d_ticks.iter().map(|d| format!("{d:.0e}")), 58);
+    let mut key = Key::new(PLOT_W);
+    key.add(Swatch::Line(LOW, 2), "Welch estimate");
+    key.add(Swatch::Line(MODEL, 1), "converter floor (white)");
+    let svg = svg_with(PLOT_W, PLOT_H + key.height(), |root, marks| {
+        let (plot, band) = root.split_vertically(PLOT_H);
+        let mut chart = builder(&plot)
             .caption("power spectral density", label_style(15))
             .x_label_area_size(40)
-            .y_label_area_size(58)
-            .build_cartesian_2d((f_lo..nyquist).log_scale(), (d_lo..d_hi).log_scale())?;
+            .y_label_area_size(y_area)
+            .build_cartesian_2d(
+                (f_lo..f_hi).log_scale().with_key_points(f_ticks.clone()),
+                (d_lo..d_hi).log_scale().with_key_points(d_ticks.clone()),
+            )?;
         mesh(&mut chart)
-            .x_label_formatter(&hz_label)
+            .x_label_formatter(&|v| decade_label(*v, "Hz"))
             .y_label_formatter(&|v| format!("{v:.0e}"))
             .x_desc("frequency")
             .y_desc("LSB²/Hz")
@@ -785,15 +822,10 @@ fn spectrum_plot(r: &SurveyReport, p: &PinReport) -> String {
             let y = if k == 0 { d_hi / 1.6 } else { d_hi / 4.0 };
             chart.draw_series([Text::new(label, (f * 1.04, y), label_style(11).color(&colour))])?;
         }
-        chart
-            .draw_series(LineSeries::new([(f_lo, floor), (nyquist, floor)], MODEL.stroke_width(1)))?
-            .label("converter floor (white)")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], MODEL.stroke_width(1)));
-        chart
-            .draw_series(LineSeries::new(psd.iter().copied(), LOW.stroke_width(1)))?
-            .label("Welch estimate")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], LOW.stroke_width(2)));
-        legend(&mut chart, SeriesLabelPosition::LowerLeft)?;
+        chart.draw_series(LineSeries::new([(f_lo, floor), (f_hi, floor)], MODEL.stroke_width(1)))?;
+        chart.draw_series(LineSeries::new(psd.iter().copied(), LOW.stroke_width(1)))?;
+        marks.plot_area(&chart);
+        marks.key(&key, &band);
         Ok(())
     });
     let caption = format!(
@@ -805,6 +837,149 @@ fn spectrum_plot(r: &SurveyReport, p: &PinReport) -> String {
         short(n.hum_se_lsb)
     );
     figure(&id, svg, &caption)
+}
+
+/// One of a pin's intervals that the table prints as a bound (no estimate: `< h`, `> l` or a
+/// range): the figure's id, the quantity's name, the fit parameter it profiles, the interval,
+/// how its values print and their unit.
+struct PrintedBound {
+    id: String,
+    name: &'static str,
+    param: usize,
+    interval: Interval,
+    fmt: fn(f64) -> String,
+    unit: &'static str,
+}
+
+fn printed_bounds(p: &PinReport) -> Vec<PrintedBound> {
+    let mut out = Vec::new();
+    for (slug, name, param, interval, fmt, unit) in [
+        ("source-r", "source R", LN_RS, p.source_ohms, units::ohms as fn(f64) -> String, "Ω"),
+        ("node-c", "node C", LN_CN, p.node_farads, units::farads as fn(f64) -> String, "F"),
+    ] {
+        if interval.estimate.is_none() && (interval.low.is_some() || interval.high.is_some()) {
+            let id = format!("pin-{}-bound-{slug}", p.channel);
+            out.push(PrintedBound { id, name, param, interval, fmt, unit });
+        }
+    }
+    out
+}
+
+/// Points of a bound's profile.
+const PROFILE_POINTS: usize = 21;
+
+/// The evidence for each bound the table prints for `p`: the profile of the fit's objective
+/// over the bounded quantity (the other parameters re-optimized at each point), the 95%
+/// threshold it must stay under, the printed bound and, shaded, the side it excludes.
+fn bound_plots(r: &SurveyReport, p: &PinReport) -> String {
+    let mut out = String::new();
+    for PrintedBound { id, name, param: i, interval: iv, fmt, unit } in printed_bounds(p) {
+        let title = format!("Bound on {name}");
+        let printed = match (i, p.source_assumes_node_below) {
+            (LN_RS, Some(_)) => crate::render::text::source_text(p),
+            _ => interval_text(&iv, fmt),
+        };
+        let Some(fit) = &p.fit else {
+            out += &no_data(&id, &escape(&title), "no fit was kept for this pin, so there is no profile to show");
+            continue;
+        };
+        let (a, b) = match (iv.low, iv.high) {
+            (Some(l), Some(h)) => (l / 10.0, h * 10.0),
+            (None, Some(h)) => (h / 300.0, h * 30.0),
+            (Some(l), _) => (l / 30.0, l * 300.0),
+            (None, None) => continue,
+        };
+        let mut grid = log_space(a, b, PROFILE_POINTS);
+        // Closer around each printed end, where the curve crosses the threshold.
+        for e in iv.low.iter().chain(iv.high.iter()) {
+            grid.extend([0.6, 0.75, 0.87, 1.0, 1.15, 1.33, 1.67].map(|k| e * k));
+        }
+        grid.sort_by(f64::total_cmp);
+        let input = FitInput { board: &r.model, events: &p.events };
+        let rise = profile_rise(&input, fit, i, &grid);
+        if rise.len() < 2 {
+            out +=
+                &no_data(&id, &escape(&title), "the bound lies at the edge of the search range: no profile beyond it");
+            continue;
+        }
+        let threshold = CHI2_95_1DOF * fit.birge();
+        let y_hi = threshold * 3.0;
+        let (x_lo, x_hi, ticks) = decades(rise[0].0, rise[rise.len() - 1].0);
+        let y_fmt = axis_label(y_hi);
+        let y_area = y_label_area([y_fmt(&y_hi)], 58);
+        let mut key = Key::new(PLOT_W);
+        key.add(Swatch::Line(LOW, 2), "profile: rise of χ² (others re-fitted)");
+        key.add(Swatch::Dashed(MODEL), format!("95% threshold, {}", short(threshold)));
+        key.add(Swatch::Bar(HIGH, 0.18), format!("outside {name} {printed}: excluded"));
+        let svg = svg_with(PLOT_W, PLOT_H + key.height(), |root, marks| {
+            let (plot, band) = root.split_vertically(PLOT_H);
+            let mut chart = builder(&plot)
+                .caption(format!("{name}: profile of the fit"), label_style(15))
+                .x_label_area_size(40)
+                .y_label_area_size(y_area)
+                .build_cartesian_2d((x_lo..x_hi).log_scale().with_key_points(ticks.clone()), 0.0..y_hi)?;
+            mesh(&mut chart)
+                .x_label_formatter(&|v| decade_label(*v, unit))
+                .x_desc(name)
+                .y_desc("χ² above the fit")
+                .y_label_formatter(&y_fmt)
+                .draw()?;
+            // The excluded side of each printed end.
+            for (end, below) in [(iv.low, true), (iv.high, false)] {
+                let Some(e) = end else { continue };
+                let span = if below { [(x_lo, 0.0), (e, y_hi)] } else { [(e, 0.0), (x_hi, y_hi)] };
+                chart.draw_series([Rectangle::new(span, HIGH.mix(0.18).filled())])?;
+                chart.draw_series(LineSeries::new([(e, 0.0), (e, y_hi)], HIGH.stroke_width(2)))?;
+                // Labelled on the side the bound allows.
+                let (label, pos, at) = if below {
+                    (format!("> {}", fmt(e)), Pos::new(HPos::Left, VPos::Top), e * 1.06)
+                } else {
+                    (format!("< {}", fmt(e)), Pos::new(HPos::Right, VPos::Top), e / 1.06)
+                };
+                chart.draw_series([Text::new(label, (at, y_hi * 0.97), label_style(11).pos(pos))])?;
+            }
+            chart.draw_series(DashedLineSeries::new(
+                [(x_lo, threshold), (x_hi, threshold)],
+                6,
+                4,
+                MODEL.stroke_width(2),
+            ))?;
+            for run in inside_runs(&rise, f64::NEG_INFINITY, y_hi) {
+                chart.draw_series(LineSeries::new(run, LOW.stroke_width(2)))?;
+            }
+            chart
+                .draw_series(rise.iter().filter(|q| q.1 <= y_hi).map(|&(x, y)| Circle::new((x, y), 2, LOW.filled())))?;
+            // Points above the panel: triangles along its top.
+            chart.draw_series(
+                rise.iter()
+                    .filter(|q| q.1 > y_hi)
+                    .map(|&(x, _)| TriangleMarker::new((x, y_hi * 0.97), 4, LOW.stroke_width(1))),
+            )?;
+            marks.plot_area(&chart);
+            marks.key(&key, &band);
+            Ok(())
+        });
+        let assumption = match (i, p.source_assumes_node_below) {
+            (LN_RS, Some(c)) => format!(
+                " The readings did not show the node's size: the profile holds the node below {}, as the bound assumes.",
+                units::farads(c)
+            ),
+            _ => String::new(),
+        };
+        let caption = format!(
+            "<b>{}.</b> The table prints {name} {} because the fit gets worse past it: at each value the other \
+             parameters are fitted again, and where χ² rises above the fit's own by more than {} (3.84, the 95% \
+             point of χ² with one degree of freedom, times the misfit ratio {:.2}) the value is excluded. \
+             Triangles along the top: points above the panel.{}",
+            escape(&title),
+            escape(&printed),
+            short(threshold),
+            fit.birge(),
+            escape(&assumption)
+        );
+        out += &figure(&id, svg, &caption);
+    }
+    out
 }
 
 /// One row of the memory matrix: the pin, and the shift of its reading after each previous
@@ -1144,6 +1319,7 @@ fn pin_section(r: &SurveyReport, p: &PinReport, row: &MemoryRow, cols: &[(u8, Op
     out += &period_plot(r, p, &model);
     out += &histogram_plot(r, p);
     out += &spectrum_plot(r, p);
+    out += &bound_plots(r, p);
     out += "</div>\n";
     let id = format!("pin-{}-memory", p.channel);
     if p.memory.is_some() {
@@ -1160,6 +1336,10 @@ fn pin_section(r: &SurveyReport, p: &PinReport, row: &MemoryRow, cols: &[(u8, Op
     out += "</section>\n";
     out
 }
+
+#[cfg(test)]
+#[path = "html_plot_tests.rs"]
+mod plot_tests;
 
 #[cfg(test)]
 mod tests {
@@ -1288,8 +1468,14 @@ ohms = 10.0
 node_farads = 10e-12
 "#;
 
-    fn page() -> (SurveyReport, String) {
-        let sc = crate::scenario::parse("html-test.toml", SCENARIO).unwrap();
+    /// The page of [`SCENARIO`]: a driven pin, a pin with 50 Hz hum, a pin at a rail.
+    pub(super) fn page() -> (SurveyReport, String) {
+        page_of("html-test.toml", SCENARIO)
+    }
+
+    /// A survey of the scenario `text` (read from `file`) and its page.
+    pub(super) fn page_of(file: &str, text: &str) -> (SurveyReport, String) {
+        let sc = crate::scenario::parse(file, text).unwrap();
         let mut session = Session::new(InProcessLink::new(&sc));
         let r = survey(&mut session, &SurveyOptions::default()).unwrap();
         let html = survey_html(&r);

@@ -4,6 +4,7 @@
 
 pub mod compare;
 pub mod html;
+mod plot_marks;
 pub mod stats_html;
 pub mod stats_text;
 pub mod text;
