@@ -103,4 +103,63 @@ fn bad_fixtures_are_bad_input_and_a_misfit_stores_nothing() {
     assert!(stderr(&out).contains("nothing was stored as a calibration"), "{}", stderr(&out));
     let doc = json(&run(&db, &["survey", "--quiet", "--json", "--channel", "3"]));
     assert_eq!(doc["profile"]["source"], "board");
+
+    // Nothing lost: the refused run is kept, and fits with the right value, measuring nothing.
+    let said = stderr(&out);
+    let id = said.split("the run is kept as ").nth(1).and_then(|t| t.split(':').next()).unwrap().to_string();
+    let refit = |args: &[&str]| ohmsight().args(args).arg("--db").arg(&db).output().unwrap();
+    let cal = json(&refit(&["calibrate", "--json", "--from", &id, "--fixture", "0=10k", "--fixture", "1=470k"]));
+    assert_eq!(cal["run_id"], id.as_str());
+    let doc = json(&run(&db, &["survey", "--quiet", "--json", "--channel", "3"]));
+    assert_eq!(doc["profile"]["source"], format!("calibration {id}"));
+    // --from measures nothing, so it takes no link, and needs the fixtures measured.
+    let out = run(&db, &["calibrate", "--from", &id, "--fixture", "0=10k", "--fixture", "1=470k"]);
+    assert_eq!(out.status.code(), Some(2), "{}", stderr(&out));
+    assert!(stderr(&out).contains("measures nothing"), "{}", stderr(&out));
+    let out = refit(&["calibrate", "--from", &id, "--fixture", "0=10k", "--fixture", "5=470k"]);
+    assert_eq!(out.status.code(), Some(2), "{}", stderr(&out));
+    assert!(stderr(&out).contains("did not measure fixture ch5; it measured channels 0, 1"), "{}", stderr(&out));
+}
+
+#[test]
+fn a_calibration_killed_mid_run_is_resumed_and_fitted() {
+    let dir = tempfile::tempdir().unwrap();
+    let db = dir.path().join("runs.db");
+    let mut child = ohmsight()
+        .args(["calibrate", "--quiet", "--fixture", "0=10k", "--fixture", "1=470k", "--db"])
+        .arg(&db)
+        .arg("--scenario")
+        .arg(offsheet())
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    // Some experiments in, then a crash (SIGKILL: nothing is flushed, no handler runs).
+    let t = std::time::Instant::now();
+    let id = loop {
+        assert!(t.elapsed() < std::time::Duration::from_secs(120), "no experiments stored in 2 minutes");
+        let out = ohmsight().args(["history", "--json", "--db"]).arg(&db).output().unwrap();
+        if let Ok(list) = serde_json::from_slice::<Value>(&out.stdout) {
+            if list["runs"][0]["experiments"].as_u64().is_some_and(|n| n >= 4) {
+                break list["runs"][0]["id"].as_str().unwrap().to_string();
+            }
+        }
+        std::thread::sleep(std::time::Duration::from_millis(20));
+    };
+    child.kill().unwrap();
+    assert!(!child.wait().unwrap().success());
+    let list = json(&ohmsight().args(["history", "--json", "--db"]).arg(&db).output().unwrap());
+    assert_eq!(list["runs"][0]["complete"], false, "the kill fell mid-run: {list:#}");
+    // The run's own link (scenario and seed) is used when none is given.
+    let out = ohmsight()
+        .args(["calibrate", "--json", "--resume", &id, "--fixture", "0=10k", "--fixture", "1=470k", "--db"])
+        .arg(&db)
+        .output()
+        .unwrap();
+    let cal = json(&out);
+    assert_eq!(cal["run_id"], id.as_str(), "the same run, finished");
+    let ratio = cal["hold_farads"]["estimate"].as_f64().unwrap() / cal["hold_farads"]["datasheet"].as_f64().unwrap();
+    assert!((ratio / 1.3 - 1.0).abs() < 0.06, "hold ×{ratio:.3}");
+    let list = json(&ohmsight().args(["history", "--json", "--db"]).arg(&db).output().unwrap());
+    assert_eq!(list["runs"][0]["complete"], true);
 }

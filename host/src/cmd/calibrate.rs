@@ -15,6 +15,8 @@ pub const EXAMPLES: &str = "Examples:
   ohmsight calibrate --scenario boards/virtual/scenarios/fixture.toml --fixture 0=10k --fixture 1=470k
   ohmsight calibrate --port /dev/ttyACM0 --fixture 3=10k --fixture 4=1M --tolerance 0.1%
   ohmsight calibrate --port /dev/ttyACM0 --fixture 3=10k --fixture 4=1M --unit 5f3a09c2e41b7d60 --json
+  ohmsight calibrate --from 01M90EAN38 --fixture 3=10k --fixture 4=1M     fit a stored run again
+  ohmsight calibrate --resume 01M90EAN38 --fixture 3=10k --fixture 4=1M   finish a run cut short
 
 A fixture pin is a resistor of known value from a stiff source (a supply rail through a divider
 with a buffer, or a reference) to the pin, with nothing else on it. Two fixtures of different
@@ -30,8 +32,10 @@ unit are analysed with it (their header names the calibration), unless they are 
 --uncalibrated or --profile FILE.
 
 Exit status: 0 calibrated and stored; 1 the survey was cut short, the readings do not fit the
-stated resistors (nothing is stored as a calibration), or the database failed; 2 bad input (a
-fixture that is not CH=OHMS, a channel the board lacks, another unit than --unit).
+stated resistors (nothing is stored as a calibration; the run is, so `--from RUN_ID` can fit it
+again with corrected values), or the database failed; 2 bad input (a fixture that is not
+CH=OHMS, a channel the board lacks, another unit than --unit, a run that did not measure the
+fixture pins).
 
 Driving a fixture's source on a board tied to mains or high voltage needs the usual isolation;
 follow local codes and licensed practice.";
@@ -51,6 +55,14 @@ pub struct Args {
     /// shows it): refused if another unit answers.
     #[arg(long, value_name = "ID")]
     unit: Option<String>,
+    /// Fit a stored run instead of surveying now: a calibration run (for example with a fixture
+    /// value corrected) or any survey that measured the fixture pins. Nothing is measured.
+    #[arg(long, value_name = "RUN_ID", conflicts_with = "resume")]
+    from: Option<String>,
+    /// Finish a calibration run a fault cut short (only what it lacks is measured, on its own
+    /// link when no link option is given), then fit it.
+    #[arg(long, value_name = "RUN_ID")]
+    resume: Option<String>,
     /// Print one JSON document (schema ohmsight.calibration.v1) instead of the text.
     #[arg(long)]
     json: bool,
@@ -102,22 +114,54 @@ pub fn run(args: Args) -> Result<(), Failure> {
         })?),
     };
     let mut keeper = Keeper::new(args.db.open()?);
-    let channels = specs.iter().map(|f| f.channel).collect();
-    let choices = Choices { kind: RunKind::Calibration, profile: None, wiring: None };
-    let r = measure(&args.link, channels, None, args.quiet || args.json, Some(&mut keeper), choices)?;
-    let record = &r.record;
+    if args.from.is_some() && args.link.given() {
+        return Err(Failure::bad_input(
+            "--from fits a stored run and measures nothing: leave out the link options (--port, --scenario, --seed)",
+        ));
+    }
+    let stored = match args.from.as_ref().or(args.resume.as_ref()) {
+        Some(id) => Some(keeper.store.load_run(id)?),
+        None => None,
+    };
     let described = keeper.store.describe();
-    if let Some(e) = keeper.error.take() {
-        return Err(Failure::failed(format!("the calibration run could not be kept in {described}: {e}")));
-    }
-    if let Some(f) = &r.fault {
-        return Err(Failure::failed(format!(
-            "the calibration run was cut short: {f}; what it measured is kept as run {} in {described}",
-            record.run.id
+    let record = match (stored, &args.from) {
+        (Some(record), Some(_)) => record,
+        (resume, _) => {
+            if let Some(r) = resume.as_ref().filter(|r| r.run.complete) {
+                return Err(Failure::bad_input(format!(
+                    "run {} is complete: nothing to resume (fit it with --from {})",
+                    r.run.id, r.run.id
+                )));
+            }
+            let channels = if resume.is_some() { Vec::new() } else { specs.iter().map(|f| f.channel).collect() };
+            let choices = Choices { kind: RunKind::Calibration, profile: None, wiring: None };
+            let r = measure(&args.link, channels, resume, args.quiet || args.json, Some(&mut keeper), choices)?;
+            if let Some(e) = keeper.error.take() {
+                return Err(Failure::failed(format!("the calibration run could not be kept in {described}: {e}")));
+            }
+            if let Some(f) = &r.fault {
+                return Err(Failure::failed(format!(
+                    "the calibration run was cut short: {f}; what it measured is kept as run {id} in {described} \
+                     (finish it with `ohmsight calibrate --resume {id}` and the same fixtures)",
+                    id = r.record.run.id
+                )));
+            }
+            if r.record.pins.is_empty() {
+                return Err(Failure::failed("the board did not answer: nothing was calibrated"));
+            }
+            r.record
+        }
+    };
+    let record = &record;
+    let pins: Vec<u8> = record.pins.iter().map(|p| p.channel).collect();
+    if let Some(f) = specs.iter().find(|f| !pins.contains(&f.channel)) {
+        let list: Vec<String> = pins.iter().map(u8::to_string).collect();
+        return Err(Failure::bad_input(format!(
+            "run {} did not measure fixture ch{}; it measured channels {}",
+            record.run.id,
+            f.channel,
+            list.join(", ")
         )));
-    }
-    if record.pins.is_empty() {
-        return Err(Failure::failed("the board did not answer: nothing was calibrated"));
     }
     if let Some(want) = unit.filter(|&u| u != record.board.unit_id) {
         return Err(Failure::bad_input(format!(
@@ -125,7 +169,12 @@ pub fn run(args: Args) -> Result<(), Failure> {
             record.run.unit_id, record.run.id
         )));
     }
-    let c = calibration::calibrate_record(record, &specs).map_err(|e| Failure::failed(e.to_string()))?;
+    let c = calibration::calibrate_record(record, &specs).map_err(|e| {
+        Failure::failed(format!(
+            "{e} (the run is kept as {id}: `ohmsight calibrate --from {id}` with the right fixtures fits it again)",
+            id = record.run.id
+        ))
+    })?;
     let created = record.run.finished.clone().unwrap_or_else(|| record.run.started.clone());
     let summary = calibration::summary(record, &specs, &c, &created);
     keeper.store.put_calibration(&summary).map_err(|e| {
