@@ -567,9 +567,16 @@ impl CheckReport {
     /// One line per pin and the overall PASS / FAIL / ERROR.
     pub fn text(&self) -> String {
         let run = &self.survey.record.run;
+        let source = &self.survey.record.profile.source;
         let mut out = format!(
-            "ohmsight check — unit {}, board \"{}\", limits \"{}\" ({})\nrun {} started {}\n\n",
-            self.unit, run.board, self.limits.name, self.limits.file, run.id, run.started
+            "ohmsight check — unit {}, board \"{}\", limits \"{}\" ({})\nrun {} started {}{}\n\n",
+            self.unit,
+            run.board,
+            self.limits.name,
+            self.limits.file,
+            run.id,
+            run.started,
+            if source == "board" { String::new() } else { format!("; analysed with the converter values of {source}") }
         );
         let width = self.pins.iter().map(|p| units::width(&p.label)).max().unwrap_or(0).max(5);
         for p in &self.pins {
@@ -631,6 +638,7 @@ impl CheckReport {
             "error": self.error,
             "unit": self.unit,
             "limits": { "name": self.limits.name, "file": self.limits.file },
+            "profile": &s.record.profile,
             "run": run,
             "pins": self.pins,
             "totals": {

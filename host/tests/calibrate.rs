@@ -73,6 +73,23 @@ fn a_calibrated_unit_is_surveyed_with_its_calibration() {
     assert_eq!(profile["hold_farads"], cal["hold_farads"]["estimate"], "the calibration's hold capacitance stays");
     assert!(profile["source"].as_str().unwrap().ends_with(&format!("over calibration {run_id}")), "{profile}");
 
+    // A production check of the unit judges with the calibration too: ch3's 47 kΩ passes a
+    // 44–50 kΩ limit with it, and fails without it (the datasheet values read it near 60 kΩ).
+    let limits = dir.path().join("lx6.toml");
+    std::fs::write(&limits, "name = \"LX-6 leaf thermistor\"\n[[pin]]\nchannel = 3\nsource_ohms = [44e3, 50e3]\n")
+        .unwrap();
+    let check = |extra: &[&str]| {
+        let mut args = vec!["check", "--quiet", "--json", "--limits", limits.to_str().unwrap()];
+        args.extend_from_slice(extra);
+        run(&db, &args)
+    };
+    let passed = check(&[]);
+    assert_eq!(passed.status.code(), Some(0), "{}", stderr(&passed));
+    let doc: Value = serde_json::from_slice(&passed.stdout).unwrap();
+    assert_eq!(doc["profile"]["source"], format!("calibration {run_id}"));
+    let failed = check(&["--uncalibrated"]);
+    assert_eq!(failed.status.code(), Some(1), "{}", stderr(&failed));
+
     // The calibration run is a run like any other.
     let listed =
         json(&ohmsight().args(["history", "--json", "--kind", "calibration", "--db"]).arg(&db).output().unwrap());
