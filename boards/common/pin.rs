@@ -2,6 +2,7 @@
 //! profile.rs includes this file as a module; the host's tests compile it too).
 
 use heapless::String;
+use ohmsight_protocol::{ChannelInfo, ChannelRole};
 
 /// One analog pin of a board.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -16,6 +17,19 @@ pub struct Pin {
     pub may_pull: bool,
     /// The firmware may drive this pin (as a precharge source).
     pub may_drive: bool,
+}
+
+impl Pin {
+    /// The pin as the handshake lists it, with its opt-ins.
+    pub fn info(&self) -> ChannelInfo {
+        ChannelInfo {
+            channel: self.channel,
+            label: label(self.label),
+            role: ChannelRole::Pin,
+            pull: self.may_pull,
+            drive: self.may_drive,
+        }
+    }
 }
 
 /// `s` cut to the 24 characters a channel label holds.

@@ -373,7 +373,15 @@ pub(crate) mod tests {
         for (ch, role) in
             [(0, ChannelRole::Pin), (1, ChannelRole::Pin), (9, ChannelRole::Precharge), (12, ChannelRole::Internal)]
         {
-            channels.push(ChannelInfo { channel: ch, label: String::try_from("x").unwrap(), role }).unwrap();
+            channels
+                .push(ChannelInfo {
+                    channel: ch,
+                    label: String::try_from("x").unwrap(),
+                    role,
+                    pull: false,
+                    drive: false,
+                })
+                .unwrap();
         }
         BoardDescription {
             name: String::try_from("test").unwrap(),

@@ -693,8 +693,13 @@ source_ohms = { low = 1e9 }
 "#;
 
     fn board() -> BoardRecord {
-        let ch =
-            |channel: u8, label: &str, role: &str| ChannelRecord { channel, label: label.into(), role: role.into() };
+        let ch = |channel: u8, label: &str, role: &str| ChannelRecord {
+            channel,
+            label: label.into(),
+            role: role.into(),
+            pull: false,
+            drive: false,
+        };
         BoardRecord {
             name: "virtual".into(),
             firmware: String::new(),

@@ -377,7 +377,13 @@ fn board_record(info: &crate::session::BoardInfo) -> BoardRecord {
         channels: info
             .channels
             .iter()
-            .map(|c| ChannelRecord { channel: c.channel, label: c.label.to_string(), role: role_name(c.role).into() })
+            .map(|c| ChannelRecord {
+                channel: c.channel,
+                label: c.label.to_string(),
+                role: role_name(c.role).into(),
+                pull: c.pull,
+                drive: c.drive,
+            })
             .collect(),
     }
 }

@@ -37,7 +37,13 @@ on_both_backends!(
 const BOARD: &str = "fixture-7";
 
 fn record(id: &str, board: &str, unit: &str, started: &str) -> RunRecord {
-    let ch = |channel: u8, label: &str, role: &str| ChannelRecord { channel, label: label.into(), role: role.into() };
+    let ch = |channel: u8, label: &str, role: &str| ChannelRecord {
+        channel,
+        label: label.into(),
+        role: role.into(),
+        pull: false,
+        drive: false,
+    };
     RunRecord {
         run: RunMeta {
             id: id.into(),

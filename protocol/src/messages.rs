@@ -503,6 +503,12 @@ pub struct ChannelInfo {
     pub label: String<24>,
     /// What the channel is.
     pub role: ChannelRole,
+    /// The board may connect its pull resistors to this pin for a pull test: opted in per pin
+    /// in the board's profile, never by default.
+    pub pull: bool,
+    /// The board may drive this pin (as a precharge source or a test level): opted in per pin
+    /// in the board's profile, never by default.
+    pub drive: bool,
 }
 
 /// One experiment: a deterministic sequence of conversions (see [`crate::sequence`]).

@@ -69,13 +69,21 @@ pub fn description(unit_id: u64) -> BoardDescription {
     let _ = precharges.push(Precharge { channel: VDD_CHANNEL, nominal_microvolts: VDD_MICROVOLTS });
     let mut channels = Vec::new();
     for p in PINS {
-        let _ = channels.push(ChannelInfo { channel: p.channel, label: label(p.label), role: ChannelRole::Pin });
+        let _ = channels.push(p.info());
     }
-    let _ = channels.push(ChannelInfo { channel: VDD_CHANNEL, label: label("VDD"), role: ChannelRole::Precharge });
+    let _ = channels.push(ChannelInfo {
+        channel: VDD_CHANNEL,
+        label: label("VDD"),
+        role: ChannelRole::Precharge,
+        pull: false,
+        drive: false,
+    });
     let _ = channels.push(ChannelInfo {
         channel: VDDHDIV5_CHANNEL,
         label: label("VDDH/5 (TACQ >= 10 us)"),
         role: ChannelRole::Internal,
+        pull: false,
+        drive: false,
     });
     BoardDescription {
         name: label(NAME),

@@ -78,17 +78,21 @@ pub fn description(unit_id: u64) -> BoardDescription {
     let _ = precharges.push(Precharge { channel: VREFINT_CHANNEL, nominal_microvolts: VREFINT_MICROVOLTS });
     let mut channels = Vec::new();
     for p in PINS {
-        let _ = channels.push(ChannelInfo { channel: p.channel, label: label(p.label), role: ChannelRole::Pin });
+        let _ = channels.push(p.info());
     }
     let _ = channels.push(ChannelInfo {
         channel: VREFINT_CHANNEL,
         label: label("VREFINT (ADC1_IN17)"),
         role: ChannelRole::Precharge,
+        pull: false,
+        drive: false,
     });
     let _ = channels.push(ChannelInfo {
         channel: TEMPERATURE_CHANNEL,
         label: label("temperature (IN18)"),
         role: ChannelRole::Internal,
+        pull: false,
+        drive: false,
     });
     BoardDescription {
         name: label(NAME),

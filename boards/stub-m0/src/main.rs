@@ -38,7 +38,13 @@ impl DelayNs for SpinDelay {
 fn board() -> BoardDescription {
     let mut channels = Vec::new();
     for (channel, role) in [(0, ChannelRole::Pin), (1, ChannelRole::Pin), (16, ChannelRole::Precharge)] {
-        let _ = channels.push(ChannelInfo { channel, label: String::try_from("stub").unwrap_or_default(), role });
+        let _ = channels.push(ChannelInfo {
+            channel,
+            label: String::try_from("stub").unwrap_or_default(),
+            role,
+            pull: false,
+            drive: false,
+        });
     }
     BoardDescription {
         name: String::try_from("stub-m0").unwrap_or_default(),

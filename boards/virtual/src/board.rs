@@ -503,13 +503,21 @@ fn describe(s: &Scenario) -> BoardDescription {
     let uv = |v: f64| round(v * 1e6) as u32;
     let mut channels = Vec::new();
     for pin in &s.pins {
-        let _ = channels.push(ChannelInfo { channel: pin.channel, label: pin.label.clone(), role: ChannelRole::Pin });
+        let _ = channels.push(ChannelInfo {
+            channel: pin.channel,
+            label: pin.label.clone(),
+            role: ChannelRole::Pin,
+            pull: false,
+            drive: false,
+        });
     }
     for (channel, label) in [(PRECHARGE_LOW, "int-lo (3% Vref)"), (PRECHARGE_HIGH, "int-hi (97% Vref)")] {
         let _ = channels.push(ChannelInfo {
             channel,
             label: String::try_from(label).unwrap_or_default(),
             role: ChannelRole::Precharge,
+            pull: false,
+            drive: false,
         });
     }
     let mut precharges = Vec::new();

@@ -169,6 +169,12 @@ pub struct ChannelRecord {
     pub label: String,
     /// `pin`, `precharge` or `internal`.
     pub role: String,
+    /// The board may pull this pin for a pull test (its profile opts the pin in).
+    #[serde(default)]
+    pub pull: bool,
+    /// The board may drive this pin (its profile opts the pin in).
+    #[serde(default)]
+    pub drive: bool,
 }
 
 /// The board's front-end description, integers exactly as on the wire.

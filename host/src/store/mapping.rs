@@ -521,9 +521,18 @@ fn load_head<D: Db + ?Sized>(db: &mut D, id: &str) -> Result<(RunMeta, BoardReco
     let rows = db.query(&sql, &key)?;
     let row = rows.first().ok_or_else(|| unknown_run(db, id))?;
     let (run, mut board, profile) = run_from_row(id, row)?;
-    for row in db.query("SELECT channel, label, role FROM channels WHERE run_id = $1 ORDER BY ordinal", &key)? {
+    for row in db.query(
+        "SELECT channel, label, role, may_pull, may_drive FROM channels WHERE run_id = $1 ORDER BY ordinal",
+        &key,
+    )? {
         let mut c = Cols::new(id, "channels", &row);
-        board.channels.push(ChannelRecord { channel: c.int()?, label: c.text()?, role: c.text()? });
+        board.channels.push(ChannelRecord {
+            channel: c.int()?,
+            label: c.text()?,
+            role: c.text()?,
+            pull: c.bool()?,
+            drive: c.bool()?,
+        });
     }
     Ok((run, board, profile))
 }
@@ -762,13 +771,20 @@ impl<D: Db> Store for SqlStore<D> {
                 .iter()
                 .enumerate()
                 .map(|(i, ch)| {
-                    vec![Arg::Int(Some(i as i64)), Arg::int(ch.channel), Arg::text(&ch.label), Arg::text(&ch.role)]
+                    vec![
+                        Arg::Int(Some(i as i64)),
+                        Arg::int(ch.channel),
+                        Arg::text(&ch.label),
+                        Arg::text(&ch.role),
+                        Arg::Bool(ch.pull),
+                        Arg::Bool(ch.drive),
+                    ]
                 })
                 .collect();
             insert_rows(
                 db,
                 "channels",
-                &["run_id", "ordinal", "channel", "label", "role"],
+                &["run_id", "ordinal", "channel", "label", "role", "may_pull", "may_drive"],
                 &[Arg::text(id)],
                 &channels,
             )?;

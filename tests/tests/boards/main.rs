@@ -156,6 +156,10 @@ fn check(board: &str, info: &BoardInfo, pins: &[(u8, &str, bool, bool)]) {
         assert_eq!(p["drive"].as_bool(), Some(may_drive), "{path}: drive opt-in of channel {channel}");
         let ch = info.channels.iter().find(|c| c.channel == channel).expect("the pin is in the handshake");
         assert_eq!((ch.label.as_str(), ch.role), (label, ChannelRole::Pin), "{path}: channel {channel}");
+        assert_eq!((ch.pull, ch.drive), (may_pull, may_drive), "{path}: the handshake's opt-ins of channel {channel}");
+    }
+    for ch in info.channels.iter().filter(|c| c.role != ChannelRole::Pin) {
+        assert!(!ch.pull && !ch.drive, "{path}: internal channel {} is never pulled or driven", ch.channel);
     }
     let pull_key = if adc.contains_key("ladder_ohms") { "ladder_ohms" } else { "pull_ohms" };
     let (pull, _) = electrical(&path, &t, pull_key);
