@@ -20,8 +20,11 @@ fn ohmsight(db: &str) -> Command {
     c
 }
 
+/// A fresh folder for one test: emptied first, since a later process can be given the same id
+/// as an earlier one whose folder is still there (a CI run once found a database of a local run).
 fn temp_dir(name: &str) -> PathBuf {
     let dir = std::env::temp_dir().join(format!("ohmsight-check-{}-{name}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
     std::fs::create_dir_all(&dir).unwrap();
     dir
 }
