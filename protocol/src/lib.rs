@@ -39,5 +39,6 @@ pub use sequence::{Step, StepRecord, Steps, Timing};
 /// [`Request::Resend`], [`Request::Runs`], [`Response::Runs`] and [`ErrorKind::Gone`]; 4 added
 /// [`Experiment::ScanRecord`] (the noise records of many pins at once); 5 added the simulated
 /// unit's departure from its datasheet ([`SimBoard::unit_hold_ppm`], [`SimBoard::unit_switch_ppm`])
-/// and which pins may be pulled or driven ([`ChannelInfo::pull`], [`ChannelInfo::drive`]).
-pub const PROTOCOL_VERSION: u16 = 5;
+/// and which pins may be pulled or driven ([`ChannelInfo::pull`], [`ChannelInfo::drive`]); 6
+/// added [`Experiment::PullTest`] and the pull a [`Step`] carries.
+pub const PROTOCOL_VERSION: u16 = 6;

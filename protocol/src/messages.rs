@@ -624,6 +624,42 @@ pub enum Experiment {
         /// Idle time before the first conversion, ns.
         settle_ns: u32,
     },
+    /// For each setting `k` of `pulls` (`None`: no pull): the pull connected to `target`, then
+    /// `lead` conversions of it that are not recorded (the node settles to its pulled level
+    /// under the same sampling as the recorded ones), then `repeats` conversions into cell `k`;
+    /// `rest_ns` after every conversion. The pull is released at the end (protocol 6). Only a
+    /// pin the board opts in for pulls ([`ChannelInfo::pull`]) may be pulled.
+    PullTest {
+        /// Channel under test.
+        target: u8,
+        /// The settings, in order; one cell each.
+        pulls: Vec<Option<Pull>, MAX_PULLS>,
+        /// Sample index of every conversion.
+        sample: u8,
+        /// Unrecorded conversions at the start of each setting.
+        lead: u16,
+        /// Recorded conversions of each setting.
+        repeats: u16,
+        /// Idle time after each conversion, ns.
+        rest_ns: u32,
+        /// Idle time before the first conversion, ns.
+        settle_ns: u32,
+    },
+}
+
+/// Most settings of one pull test.
+pub const MAX_PULLS: usize = 4;
+
+/// A pull a board connects to a pin for a pull test: its pull resistor (or resistor ladder)
+/// to the supply, to ground, or to half the supply.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum Pull {
+    /// To the supply.
+    Up,
+    /// To ground.
+    Down,
+    /// To half the supply.
+    Half,
 }
 
 impl Experiment {
@@ -636,6 +672,7 @@ impl Experiment {
             Experiment::PeriodSweep { .. } => "period sweep",
             Experiment::NoiseRecord { .. } => "noise record",
             Experiment::ScanRecord { .. } => "scan record",
+            Experiment::PullTest { .. } => "pull test",
         }
     }
 
@@ -646,6 +683,7 @@ impl Experiment {
             Experiment::OrderSwap { .. } => 4,
             Experiment::RepeatBurst { length, .. } => u16::from(*length),
             Experiment::PeriodSweep { periods_ns, .. } => periods_ns.len() as u16,
+            Experiment::PullTest { pulls, .. } => pulls.len() as u16,
             Experiment::NoiseRecord { .. } | Experiment::ScanRecord { .. } => 0,
         }
     }

@@ -4,7 +4,7 @@
 //! the host fit simulates the same [`Steps`] on the model. Integer arithmetic only.
 
 use crate::messages::{
-    ErrorKind, Experiment, MAX_BURST, MAX_CELLS, MAX_CHANNELS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_RUN_PS,
+    ErrorKind, Experiment, Pull, MAX_BURST, MAX_CELLS, MAX_CHANNELS, MAX_CONVERSIONS, MAX_RAW_SAMPLES, MAX_RUN_PS,
     MAX_WAIT_NS,
 };
 
@@ -53,6 +53,9 @@ pub struct Step {
     pub wait_after_ns: u32,
     /// Where the code goes.
     pub record: StepRecord,
+    /// The pull connected to `channel` during this step (its conversion and the wait after);
+    /// `None`: no pull on any channel.
+    pub pull: Option<Pull>,
 }
 
 /// The validated step sequence of one experiment (random access, no allocation).
@@ -167,6 +170,17 @@ impl<'a> Steps<'a> {
                 gap_ns[0] = Timing::gap_ns(*period_ns, pair * targets.len() as u64);
                 2 * codes
             }
+            Experiment::PullTest { pulls, sample, lead, repeats, rest_ns, settle_ns, .. } => {
+                if pulls.is_empty() || *repeats == 0 {
+                    return Err(ErrorKind::Empty);
+                }
+                if !sample_ok(*sample) {
+                    return Err(ErrorKind::BadSampleIndex);
+                }
+                check_wait(*rest_ns)?;
+                check_wait(*settle_ns)?;
+                pulls.len() as u64 * (u64::from(*lead) + u64::from(*repeats))
+            }
         };
         if len > u64::from(MAX_CONVERSIONS) {
             return Err(ErrorKind::TooLarge);
@@ -197,7 +211,8 @@ impl<'a> Steps<'a> {
             | Experiment::RepeatBurst { settle_ns, .. }
             | Experiment::PeriodSweep { settle_ns, .. }
             | Experiment::NoiseRecord { settle_ns, .. }
-            | Experiment::ScanRecord { settle_ns, .. } => settle_ns,
+            | Experiment::ScanRecord { settle_ns, .. }
+            | Experiment::PullTest { settle_ns, .. } => settle_ns,
         }
     }
 
@@ -220,7 +235,7 @@ impl<'a> Steps<'a> {
             Experiment::RepeatBurst { target, precharge, .. } | Experiment::PeriodSweep { target, precharge, .. } => {
                 (one(*target), core::slice::from_ref(precharge))
             }
-            Experiment::NoiseRecord { target, .. } => (one(*target), &[]),
+            Experiment::NoiseRecord { target, .. } | Experiment::PullTest { target, .. } => (one(*target), &[]),
             Experiment::ScanRecord { targets, precharge, .. } => (targets.clone(), core::slice::from_ref(precharge)),
         }
     }
@@ -250,6 +265,7 @@ impl<'a> Steps<'a> {
                         sample: *precharge_sample,
                         wait_after_ns: 0,
                         record: StepRecord::None,
+                        pull: None,
                     }
                 } else {
                     Step {
@@ -257,6 +273,7 @@ impl<'a> Steps<'a> {
                         sample: samples[(pair / np) as usize],
                         wait_after_ns: *rest_ns,
                         record: StepRecord::Cell(pair as u16),
+                        pull: None,
                     }
                 }
             }
@@ -270,19 +287,27 @@ impl<'a> Steps<'a> {
                     sample: *sample,
                     wait_after_ns: if second { *rest_ns } else { 0 },
                     record: StepRecord::Cell(cell),
+                    pull: None,
                 }
             }
             Experiment::RepeatBurst { target, precharge, precharge_sample, sample, length, rest_ns, .. } => {
                 let block = u32::from(*length) + 1;
                 let j = i % block;
                 if j == 0 {
-                    Step { channel: *precharge, sample: *precharge_sample, wait_after_ns: 0, record: StepRecord::None }
+                    Step {
+                        channel: *precharge,
+                        sample: *precharge_sample,
+                        wait_after_ns: 0,
+                        record: StepRecord::None,
+                        pull: None,
+                    }
                 } else {
                     Step {
                         channel: *target,
                         sample: *sample,
                         wait_after_ns: if j == block - 1 { *rest_ns } else { 0 },
                         record: StepRecord::Cell((j - 1) as u16),
+                        pull: None,
                     }
                 }
             }
@@ -290,14 +315,32 @@ impl<'a> Steps<'a> {
                 let per = 2 * u32::from(*repeats);
                 let p = (i / per) as usize;
                 if i.is_multiple_of(2) {
-                    Step { channel: *precharge, sample: *precharge_sample, wait_after_ns: 0, record: StepRecord::None }
+                    Step {
+                        channel: *precharge,
+                        sample: *precharge_sample,
+                        wait_after_ns: 0,
+                        record: StepRecord::None,
+                        pull: None,
+                    }
                 } else {
                     Step {
                         channel: *target,
                         sample: *sample,
                         wait_after_ns: self.gap_ns[p],
                         record: StepRecord::Cell(p as u16),
+                        pull: None,
                     }
+                }
+            }
+            Experiment::PullTest { target, pulls, sample, lead, repeats, rest_ns, .. } => {
+                let per = u32::from(*lead) + u32::from(*repeats);
+                let (k, j) = (i / per, i % per);
+                Step {
+                    channel: *target,
+                    sample: *sample,
+                    wait_after_ns: *rest_ns,
+                    record: if j < u32::from(*lead) { StepRecord::None } else { StepRecord::Cell(k as u16) },
+                    pull: pulls[k as usize],
                 }
             }
             Experiment::NoiseRecord { target, sample, .. } => Step {
@@ -305,19 +348,27 @@ impl<'a> Steps<'a> {
                 sample: *sample,
                 wait_after_ns: self.gap_ns[0],
                 record: StepRecord::Raw(i as u16),
+                pull: None,
             },
             Experiment::ScanRecord { targets, precharge, precharge_sample, sample, .. } => {
                 let n = targets.len() as u32;
                 let (round, j) = (i / (2 * n), i % (2 * n));
                 let k = j / 2;
                 if j.is_multiple_of(2) {
-                    Step { channel: *precharge, sample: *precharge_sample, wait_after_ns: 0, record: StepRecord::None }
+                    Step {
+                        channel: *precharge,
+                        sample: *precharge_sample,
+                        wait_after_ns: 0,
+                        record: StepRecord::None,
+                        pull: None,
+                    }
                 } else {
                     Step {
                         channel: targets[k as usize],
                         sample: *sample,
                         wait_after_ns: if k == n - 1 { self.gap_ns[0] } else { 0 },
                         record: StepRecord::Raw((round * n + k) as u16),
+                        pull: None,
                     }
                 }
             }
@@ -339,6 +390,43 @@ mod tests {
     const T: Timing = Timing { sample_ps: &SAMPLE_PS, conversion_ps: 600_000 };
 
     #[test]
+    fn a_pull_test_settles_then_records_each_setting_with_its_pull() {
+        let exp = Experiment::PullTest {
+            target: 5,
+            pulls: Vec::from_slice(&[None, Some(Pull::Up), Some(Pull::Down)]).unwrap(),
+            sample: 2,
+            lead: 2,
+            repeats: 3,
+            rest_ns: 10_000,
+            settle_ns: 1_000,
+        };
+        let s = Steps::new(&exp, T).unwrap();
+        assert_eq!((s.len(), s.cells()), (15, 3));
+        let v: std::vec::Vec<Step> = s.iter().collect();
+        assert!(v.iter().all(|st| st.channel == 5 && st.sample == 2 && st.wait_after_ns == 10_000));
+        let shape: std::vec::Vec<(StepRecord, Option<Pull>)> = v.iter().map(|st| (st.record, st.pull)).collect();
+        let setting = |k: u16, p: Option<Pull>| {
+            [
+                (StepRecord::None, p),
+                (StepRecord::None, p),
+                (StepRecord::Cell(k), p),
+                (StepRecord::Cell(k), p),
+                (StepRecord::Cell(k), p),
+            ]
+        };
+        let want: std::vec::Vec<_> =
+            [setting(0, None), setting(1, Some(Pull::Up)), setting(2, Some(Pull::Down))].concat();
+        assert_eq!(shape, want);
+        // 15 × (2 µs + 0.6 µs + 10 µs) after a 1 µs settle.
+        assert_eq!(s.nominal_ps(), 1_000_000 + 15 * (2_000_000 + 600_000 + 10_000_000));
+        let mut empty = exp.clone();
+        if let Experiment::PullTest { pulls, .. } = &mut empty {
+            pulls.clear();
+        }
+        assert_eq!(Steps::new(&empty, T).unwrap_err(), ErrorKind::Empty);
+    }
+
+    #[test]
     fn precharge_sweep_alternates_precharge_and_target() {
         let exp = Experiment::PrechargeSweep {
             target: 3,
@@ -353,11 +441,11 @@ mod tests {
         assert_eq!(s.len(), 16);
         assert_eq!(s.cells(), 4);
         let v: std::vec::Vec<_> = s.iter().collect();
-        assert_eq!(v[0], Step { channel: 16, sample: 2, wait_after_ns: 0, record: StepRecord::None });
-        assert_eq!(v[1], Step { channel: 3, sample: 0, wait_after_ns: 700, record: StepRecord::Cell(0) });
+        assert_eq!(v[0], Step { channel: 16, sample: 2, wait_after_ns: 0, record: StepRecord::None, pull: None });
+        assert_eq!(v[1], Step { channel: 3, sample: 0, wait_after_ns: 700, record: StepRecord::Cell(0), pull: None });
         assert_eq!(v[2].channel, 17);
         assert_eq!(v[3].record, StepRecord::Cell(1));
-        assert_eq!(v[5], Step { channel: 3, sample: 1, wait_after_ns: 700, record: StepRecord::Cell(2) });
+        assert_eq!(v[5], Step { channel: 3, sample: 1, wait_after_ns: 700, record: StepRecord::Cell(2), pull: None });
         assert_eq!(v[9], v[1], "second repeat repeats the first");
     }
 
@@ -375,7 +463,10 @@ mod tests {
         let s = Steps::new(&exp, T).unwrap();
         // busy = (2.0 + 0.6) + (0.1 + 0.6) µs = 3.3 µs: the 1 µs period runs back to back.
         assert_eq!(s.step(1).wait_after_ns, 0);
-        assert_eq!(s.step(7), Step { channel: 1, sample: 0, wait_after_ns: 6_700, record: StepRecord::Cell(1) });
+        assert_eq!(
+            s.step(7),
+            Step { channel: 1, sample: 0, wait_after_ns: 6_700, record: StepRecord::Cell(1), pull: None }
+        );
         assert_eq!(s.nominal_ps(), 6 * 3_300_000 + 3 * 6_700_000);
     }
 
