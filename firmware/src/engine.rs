@@ -277,6 +277,17 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
         if !self.precharges_declared(exp, precharges) {
             return Ok(Err(ErrorKind::NotAllowed));
         }
+        if let Experiment::PullTest { target, pulls, .. } = exp {
+            if pulls.iter().any(Option::is_some) {
+                if self.board.front_end.pull_milliohms == 0 {
+                    return Ok(Err(ErrorKind::Unsupported));
+                }
+                // Only a pin the board's profile opts in may be pulled.
+                if !self.board.channels.iter().any(|c| c.channel == *target && c.role == ChannelRole::Pin && c.pull) {
+                    return Ok(Err(ErrorKind::NotAllowed));
+                }
+            }
+        }
         let n_cells = steps.cells();
         let n_raw = steps.raw_samples();
         let chunks = n_cells + n_raw.div_ceil(SAMPLES_PER_MESSAGE as u16);
@@ -291,8 +302,17 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
         self.delay.delay_ns(steps.settle_ns());
         self.nominal_ps += u64::from(steps.settle_ns()) * 1000;
         let mut failed = None;
+        let mut pulled: Option<(u8, ohmsight_protocol::Pull)> = None;
         for i in 0..steps.len() {
             let step = steps.step(i);
+            let want = step.pull.map(|p| (step.channel, p));
+            if want != pulled {
+                if let Err(k) = self.fe.set_pull(step.channel, step.pull) {
+                    failed = Some(k);
+                    break;
+                }
+                pulled = want;
+            }
             let code = match self.fe.convert(step.channel, step.sample) {
                 Ok(c) => c,
                 Err(e) => {
@@ -314,6 +334,12 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
             }
             if step.wait_after_ns > 0 {
                 self.delay.delay_ns(step.wait_after_ns);
+            }
+        }
+        // Never leave a pin pulled, whatever ended the run.
+        if pulled.is_some() {
+            if let Err(k) = self.fe.set_pull(0, None) {
+                failed = failed.or(Some(k));
             }
         }
         self.conversions = self.conversions.wrapping_add(report.conversions);
@@ -348,6 +374,7 @@ impl<F: AnalogFrontEnd, D: DelayNs> Engine<F, D> {
 pub(crate) mod tests {
     use super::*;
     use ohmsight_protocol::{ChannelRole, Experiment, Precharge, SimPart};
+    use std::string::String as StdString;
     use std::vec::Vec as StdVec;
 
     /// A front end whose code is `100·channel + sample`, logging every conversion.
@@ -413,6 +440,72 @@ pub(crate) mod tests {
         let mut buf = [0u8; MAX_FRAME];
         let n = encode_frame(req, &mut buf).unwrap();
         buf[..n].to_vec()
+    }
+
+    /// A front end with pulls: reads 2000 unpulled, 3000 pulled up, 1000 pulled down, and logs
+    /// every conversion and every pull change in order.
+    struct Pulling {
+        log: StdVec<StdString>,
+        pull: Option<ohmsight_protocol::Pull>,
+    }
+    impl AnalogFrontEnd for Pulling {
+        type Error = core::convert::Infallible;
+        fn convert(&mut self, channel: u8, _sample: u8) -> Result<u16, Self::Error> {
+            self.log.push(format!("c{channel}"));
+            Ok(match self.pull {
+                None => 2000,
+                Some(ohmsight_protocol::Pull::Up) => 3000,
+                Some(ohmsight_protocol::Pull::Down) => 1000,
+                Some(ohmsight_protocol::Pull::Half) => 1500,
+            })
+        }
+        fn set_pull(&mut self, channel: u8, pull: Option<ohmsight_protocol::Pull>) -> Result<(), ErrorKind> {
+            self.log.push(format!("p{channel}:{pull:?}"));
+            self.pull = pull;
+            Ok(())
+        }
+    }
+
+    #[test]
+    fn a_pull_test_pulls_only_an_opted_in_pin_and_always_releases_it() {
+        use ohmsight_protocol::Pull;
+        let mut desc = board();
+        desc.channels[1].pull = true; // channel 1 is opted in, channel 0 is not
+        desc.front_end.pull_milliohms = 160_000_000;
+        let exp = |target: u8| Experiment::PullTest {
+            target,
+            pulls: Vec::from_slice(&[None, Some(Pull::Up), Some(Pull::Down)]).unwrap(),
+            sample: 1,
+            lead: 1,
+            repeats: 2,
+            rest_ns: 10,
+            settle_ns: 0,
+        };
+        let mut e = Engine::new(Pulling { log: StdVec::new(), pull: None }, NoDelay(0), desc.clone());
+        let mut out = StdVec::new();
+        e.feed(&frame(&Request::Run { seq: 1, experiment: exp(1) }), &mut out).unwrap();
+        let r = responses(&out);
+        let cells: StdVec<(u32, u64)> = r
+            .iter()
+            .filter_map(|m| if let Response::Cell { agg, .. } = m { Some((agg.count, agg.sum)) } else { None })
+            .collect();
+        assert_eq!(cells, [(2, 4000), (2, 6000), (2, 2000)], "the lead conversion of each setting is not recorded");
+        assert_eq!(
+            e.fe.log.join(" "),
+            "c1 c1 c1 p1:Some(Up) c1 c1 c1 p1:Some(Down) c1 c1 c1 p0:None",
+            "pulls change between settings and are released at the end"
+        );
+        // A pin the profile does not opt in is never pulled; nor is any pin of a board without pulls.
+        out.clear();
+        e.fe.log.clear();
+        e.feed(&frame(&Request::Run { seq: 2, experiment: exp(0) }), &mut out).unwrap();
+        assert!(matches!(responses(&out)[..], [Response::Error { seq: 2, kind: ErrorKind::NotAllowed }]));
+        desc.front_end.pull_milliohms = 0;
+        let mut e = Engine::new(Pulling { log: StdVec::new(), pull: None }, NoDelay(0), desc);
+        out.clear();
+        e.feed(&frame(&Request::Run { seq: 3, experiment: exp(1) }), &mut out).unwrap();
+        assert!(matches!(responses(&out)[..], [Response::Error { seq: 3, kind: ErrorKind::Unsupported }]));
+        assert!(e.fe.log.is_empty(), "nothing converted or pulled: {:?}", e.fe.log);
     }
 
     #[test]

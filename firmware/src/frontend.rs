@@ -1,7 +1,7 @@
 //! The board-facing trait.
 
 use crate::BoardDescription;
-use ohmsight_protocol::{ErrorKind, SimPart};
+use ohmsight_protocol::{ErrorKind, Pull, SimPart};
 
 /// How far a simulated set-up has been loaded (see [`AnalogFrontEnd::simulate`]).
 #[derive(Debug, Clone, PartialEq)]
@@ -66,6 +66,17 @@ pub trait AnalogFrontEnd {
         let _ = part;
         Err(ErrorKind::Unsupported)
     }
+
+    /// Connects `pull` to `channel` (`None`: releases every pull). The engine calls it only for
+    /// a pin the board's description opts in for pulls, and releases the pull before the
+    /// experiment ends. A converter without pulls keeps this default, which refuses to pull.
+    fn set_pull(&mut self, channel: u8, pull: Option<Pull>) -> Result<(), ErrorKind> {
+        let _ = channel;
+        match pull {
+            None => Ok(()),
+            Some(_) => Err(ErrorKind::Unsupported),
+        }
+    }
 }
 
 impl<T: AnalogFrontEnd + ?Sized> AnalogFrontEnd for &mut T {
@@ -78,5 +89,8 @@ impl<T: AnalogFrontEnd + ?Sized> AnalogFrontEnd for &mut T {
     }
     fn simulate(&mut self, part: &SimPart) -> Result<SetupProgress, ErrorKind> {
         T::simulate(self, part)
+    }
+    fn set_pull(&mut self, channel: u8, pull: Option<Pull>) -> Result<(), ErrorKind> {
+        T::set_pull(self, channel, pull)
     }
 }

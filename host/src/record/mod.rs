@@ -527,6 +527,59 @@ pub enum ExperimentSpec {
         /// Idle before the first conversion, ns.
         settle_ns: u32,
     },
+    /// See [`Experiment::PullTest`].
+    PullTest {
+        /// Channel under test.
+        target: u8,
+        /// The settings, one cell each.
+        pulls: Vec<PullSetting>,
+        /// Sample index.
+        sample: u8,
+        /// Unrecorded conversions at the start of each setting.
+        lead: u16,
+        /// Recorded conversions of each setting.
+        repeats: u16,
+        /// Idle after each conversion, ns.
+        rest_ns: u32,
+        /// Idle before the first conversion, ns.
+        settle_ns: u32,
+    },
+}
+
+/// One setting of a pull test, as records name it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum PullSetting {
+    /// No pull.
+    None,
+    /// Pulled to the supply.
+    Up,
+    /// Pulled to ground.
+    Down,
+    /// Pulled to half the supply.
+    Half,
+}
+
+impl PullSetting {
+    fn of(p: Option<ohmsight_protocol::Pull>) -> Self {
+        use ohmsight_protocol::Pull;
+        match p {
+            None => PullSetting::None,
+            Some(Pull::Up) => PullSetting::Up,
+            Some(Pull::Down) => PullSetting::Down,
+            Some(Pull::Half) => PullSetting::Half,
+        }
+    }
+
+    fn pull(self) -> Option<ohmsight_protocol::Pull> {
+        use ohmsight_protocol::Pull;
+        match self {
+            PullSetting::None => None,
+            PullSetting::Up => Some(Pull::Up),
+            PullSetting::Down => Some(Pull::Down),
+            PullSetting::Half => Some(Pull::Half),
+        }
+    }
 }
 
 fn hvec<T: Copy, const N: usize>(items: &[T]) -> Option<heapless::Vec<T, N>> {
@@ -543,6 +596,7 @@ impl ExperimentSpec {
             ExperimentSpec::PeriodSweep { .. } => "period-sweep",
             ExperimentSpec::NoiseRecord { .. } => "noise-record",
             ExperimentSpec::ScanRecord { .. } => "scan-record",
+            ExperimentSpec::PullTest { .. } => "pull-test",
         }
     }
 
@@ -643,6 +697,10 @@ impl ExperimentSpec {
                 count,
                 settle_ns,
             },
+            ExperimentSpec::PullTest { target, pulls, sample, lead, repeats, rest_ns, settle_ns } => {
+                let pulls: Vec<Option<ohmsight_protocol::Pull>> = pulls.iter().map(|p| p.pull()).collect();
+                Experiment::PullTest { target, pulls: hvec(&pulls)?, sample, lead, repeats, rest_ns, settle_ns }
+            }
         })
     }
 }
@@ -711,6 +769,17 @@ impl From<&Experiment> for ExperimentSpec {
                     sample,
                     period_ns,
                     count,
+                    settle_ns,
+                }
+            }
+            Experiment::PullTest { target, pulls, sample, lead, repeats, rest_ns, settle_ns } => {
+                ExperimentSpec::PullTest {
+                    target,
+                    pulls: pulls.iter().map(|&p| PullSetting::of(p)).collect(),
+                    sample,
+                    lead,
+                    repeats,
+                    rest_ns,
                     settle_ns,
                 }
             }
@@ -793,6 +862,8 @@ impl ExperimentRecord {
                 ExperimentSpec::OrderSwap { .. }
                     | ExperimentSpec::NoiseRecord { .. }
                     | ExperimentSpec::ScanRecord { .. }
+                    // Until the model replays pulled steps, the pull test is analysed on its own.
+                    | ExperimentSpec::PullTest { .. }
             )
             && !matches!(self.purpose, Purpose::Memory | Purpose::Load)
     }
@@ -961,6 +1032,21 @@ mod tests {
                 period_ns: 406_000,
                 count: 128,
                 settle_ns: 2_000_000,
+            },
+            Experiment::PullTest {
+                target: 4,
+                pulls: heapless::Vec::from_slice(&[
+                    None,
+                    Some(ohmsight_protocol::Pull::Up),
+                    Some(ohmsight_protocol::Pull::Down),
+                    Some(ohmsight_protocol::Pull::Half),
+                ])
+                .unwrap(),
+                sample: 5,
+                lead: 8,
+                repeats: 32,
+                rest_ns: 50_000,
+                settle_ns: 1_000_000,
             },
         ];
         for e in exps {
