@@ -126,6 +126,8 @@ struct BoardToml {
     leakage_amps: Option<Spanned<Real>>,
     unit_hold_ratio: Option<Spanned<Real>>,
     unit_switch_ratio: Option<Spanned<Real>>,
+    pull_ohms: Option<Spanned<Real>>,
+    pull_tolerance: Option<Spanned<Real>>,
 }
 
 #[derive(Deserialize)]
@@ -140,6 +142,7 @@ struct PinToml {
     hum_volts: Option<Spanned<Real>>,
     hum_hz: Option<Spanned<Real>>,
     noise_volts: Option<Spanned<Real>>,
+    pull: Option<bool>,
 }
 
 struct Ctx<'a> {
@@ -235,6 +238,8 @@ pub fn parse(file: &str, text: &str) -> Result<Scenario, ScenarioError> {
                 leakage_amps: cx.real(&b.leakage_amps, "leakage_amps", 0.0, 1e-6, d.leakage_amps)?,
                 unit_hold_ratio: cx.real(&b.unit_hold_ratio, "unit_hold_ratio", 0.2, 5.0, d.unit_hold_ratio)?,
                 unit_switch_ratio: cx.real(&b.unit_switch_ratio, "unit_switch_ratio", 0.2, 5.0, d.unit_switch_ratio)?,
+                pull_ohms: cx.real(&b.pull_ohms, "pull_ohms", 0.0, 4e6, d.pull_ohms)?,
+                pull_tolerance: cx.real(&b.pull_tolerance, "pull_tolerance", 0.0, 0.5, d.pull_tolerance)?,
             }
         }
     };
@@ -289,6 +294,7 @@ pub fn parse(file: &str, text: &str) -> Result<Scenario, ScenarioError> {
             hum_volts,
             hum_hz,
             noise_volts: cx.real(&p.noise_volts, "noise_volts", 0.0, vref, 0.0)?,
+            pull: p.pull.unwrap_or(false),
         });
     }
     if pins.is_empty() {

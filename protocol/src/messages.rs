@@ -329,6 +329,11 @@ pub struct SimBoard {
     pub unit_hold_ppm: u32,
     /// The same for the switch resistance, ppm.
     pub unit_switch_ppm: u32,
+    /// Nominal pull resistance, mΩ (0: the board has no pulls); the pulls go to the reference
+    /// voltage, to ground and to half the reference.
+    pub pull_milliohms: u64,
+    /// ±2σ relative uncertainty of the pull resistance, ppm (the unit's pulls differ within it).
+    pub pull_tolerance_ppm: u32,
     /// Number of [`SimPart::Pin`] parts that follow.
     pub pins: u8,
 }
@@ -366,6 +371,8 @@ pub struct SimPin {
     pub hum_millihertz: u32,
     /// White noise at the source, µV rms.
     pub noise_microvolts: u32,
+    /// The board may pull this pin for a pull test.
+    pub pull: bool,
 }
 
 impl SimPart {
@@ -395,6 +402,8 @@ impl SimPart {
                 leakage_femtoamps: u32::MAX,
                 unit_hold_ppm: u32::MAX,
                 unit_switch_ppm: u32::MAX,
+                pull_milliohms: u64::MAX,
+                pull_tolerance_ppm: u32::MAX,
                 pins: u8::MAX,
             }),
             SimPart::Pin(SimPin {
@@ -406,6 +415,7 @@ impl SimPart {
                 hum_microvolts: u32::MAX,
                 hum_millihertz: u32::MAX,
                 noise_microvolts: u32::MAX,
+                pull: true,
             }),
         ]
     }

@@ -17,6 +17,7 @@ pub fn driven(channel: u8, volts: f64, ohms: f64, farads: f64) -> PinSetup {
         hum_volts: 0.0,
         hum_hz: 50.0,
         noise_volts: 0.0,
+        pull: false,
     }
 }
 

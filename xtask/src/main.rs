@@ -97,6 +97,7 @@ fn pin(channel: u8, source: Source, node_farads: f64) -> PinSetup {
         hum_volts: 0.0,
         hum_hz: 50.0,
         noise_volts: 0.0,
+        pull: false,
     }
 }
 

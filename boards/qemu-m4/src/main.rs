@@ -27,6 +27,7 @@ fn boot_scenario() -> Scenario {
         hum_volts: 0.0,
         hum_hz: 50.0,
         noise_volts: 0.0,
+        pull: false,
     });
     Scenario {
         name: heapless::String::try_from("qemu-m4 at boot").unwrap_or_default(),

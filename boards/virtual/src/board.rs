@@ -9,7 +9,7 @@ use libm::{cos, log, round, sin, sqrt};
 use ohmsight_firmware::{AnalogFrontEnd, BoardDescription, FrontEndError, FrontEndErrorKind, SetupProgress};
 use ohmsight_protocol::analog::{volts_to_lsb, Network, State};
 use ohmsight_protocol::{
-    ChannelInfo, ChannelRole, ErrorKind, FrontEnd, Precharge, SimBoard, SimPart, SimPin, MAX_SIM_PINS,
+    ChannelInfo, ChannelRole, ErrorKind, FrontEnd, Precharge, Pull, SimBoard, SimPart, SimPin, MAX_SIM_PINS,
 };
 use rand_xoshiro::rand_core::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
@@ -139,6 +139,8 @@ struct SimChannel {
     noise_volts: f64,
     node_volts: f64,
     node_time_ps: u64,
+    /// While a pull is connected: the network and floating flag without it.
+    unpulled: Option<(Network, bool)>,
 }
 
 /// The simulated board: implements [`AnalogFrontEnd`] over a [`VirtualClock`].
@@ -172,6 +174,8 @@ pub struct VirtualBoard<C> {
     overhead_ps: f64,
     jitter_ps: f64,
     conversions: u64,
+    /// The unit's real pull resistance, Ω (0: no pulls).
+    pull_ohms: f64,
 }
 
 impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
@@ -211,6 +215,7 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
             overhead_ps: 0.0,
             jitter_ps: 0.0,
             conversions: 0,
+            pull_ohms: 0.0,
         };
         b.wire(scenario);
         b
@@ -282,6 +287,7 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
                 noise_volts: pin.noise_volts,
                 node_volts: start,
                 node_time_ps: 0,
+                unpulled: None,
             };
             let _ = b.channels.push(ch);
         }
@@ -305,8 +311,11 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
                 noise_volts: 0.0,
                 node_volts: volts,
                 node_time_ps: 0,
+                unpulled: None,
             });
         }
+        // Drawn last, so the rest of a seed's unit is the same with or without pulls.
+        b.pull_ohms = p.pull_ohms * (1.0 + on(r.unit_spread, within(p.pull_tolerance, &mut rng), 0.0));
         b.rng = rng;
     }
 
@@ -444,6 +453,48 @@ impl<C: Deref<Target = VirtualClock>> AnalogFrontEnd for VirtualBoard<C> {
         Ok(code)
     }
 
+    /// Connects the unit's pull to a pin opted in for it: the node then sees its source in
+    /// parallel with the pull, a Thevenin source `((Vs·Rp + Vp·Rs)/(Rs + Rp), Rs ∥ Rp)` (an open
+    /// pin: the pull alone), with `Vp` the reference, ground or half the reference.
+    fn set_pull(&mut self, channel: u8, pull: Option<Pull>) -> Result<(), ErrorKind> {
+        let now = self.clock.now_ps();
+        let vref = self.vref;
+        // Release first: at most one pin is pulled at a time.
+        for ch in self.channels.iter_mut().filter(|c| c.unpulled.is_some()) {
+            Self::advance_node(ch, now, vref);
+            if let Some((net, floating)) = ch.unpulled.take() {
+                ch.net = net;
+                ch.floating = floating;
+            }
+        }
+        let Some(pull) = pull else { return Ok(()) };
+        if self.pull_ohms <= 0.0 {
+            return Err(ErrorKind::Unsupported);
+        }
+        if !self.description.channels.iter().any(|c| c.channel == channel && c.pull) {
+            return Err(ErrorKind::NotAllowed);
+        }
+        let rp = self.pull_ohms;
+        let vp = match pull {
+            Pull::Up => vref,
+            Pull::Down => 0.0,
+            Pull::Half => vref / 2.0,
+        };
+        let ch = self.channels.iter_mut().find(|c| c.channel == channel).ok_or(ErrorKind::BadChannel)?;
+        Self::advance_node(ch, now, vref);
+        ch.unpulled = Some((ch.net, ch.floating));
+        if ch.floating {
+            ch.net.source_volts = vp;
+            ch.net.source_ohms = rp;
+            ch.floating = false;
+        } else {
+            let (vs, rs) = (ch.net.source_volts, ch.net.source_ohms);
+            ch.net.source_volts = (vs * rp + vp * rs) / (rs + rp);
+            ch.net.source_ohms = rs * rp / (rs + rp);
+        }
+        Ok(())
+    }
+
     /// Stages the parts of a set-up; when the last pin arrives the board is wired anew for it
     /// (seeded unit, fresh nodes) and its clock starts again at zero, so a survey after a load
     /// over the link sees what a survey of a board built for that scenario sees.
@@ -507,7 +558,7 @@ fn describe(s: &Scenario) -> BoardDescription {
             channel: pin.channel,
             label: pin.label.clone(),
             role: ChannelRole::Pin,
-            pull: false,
+            pull: pin.pull && p.pull_ohms > 0.0,
             drive: false,
         });
     }
@@ -542,7 +593,7 @@ fn describe(s: &Scenario) -> BoardDescription {
             switch_tolerance_ppm: round(p.switch_tolerance * 1e6) as u32,
             noise_millilsb: round(p.adc_noise_lsb * 1e3) as u32,
             leakage_picoamps: round(p.leakage_amps * 1e12) as u32,
-            pull_milliohms: 0,
+            pull_milliohms: if s.pins.iter().any(|pin| pin.pull) { round(p.pull_ohms * 1e3) as u32 } else { 0 },
             precharges,
         },
         channels,
@@ -565,8 +616,45 @@ mod tests {
             hum_volts: 0.0,
             hum_hz: 50.0,
             noise_volts: 0.0,
+            pull: false,
         });
         Scenario { name: String::try_from("t").unwrap(), seed: 3, board: BoardProfile::default(), pins }
+    }
+
+    #[test]
+    fn a_pull_divides_with_the_source_and_lets_go() {
+        // 100 kΩ from 1.0 V, a 160 kΩ pull to 3.3 V: the node sits at
+        // (1.0·160k + 3.3·100k) / 260k = 1.8846 V, i.e. 2339 codes; pulled down, 0.6154 V (764).
+        let mut s = scenario(Source::Driven { volts: 1.0, ohms: 100e3 }, 10e-12);
+        s.board.pull_ohms = 160e3;
+        s.pins[0].pull = true;
+        let clock = VirtualClock::new();
+        let mut b = VirtualBoard::with_realism(&s, &clock, Realism::ideal());
+        assert!(b.description().channels[0].pull, "the opted-in pin is offered for pulls");
+        assert_eq!(b.description().front_end.pull_milliohms, 160_000_000);
+        let mut mean = |b: &mut VirtualBoard<&VirtualClock>| {
+            // Long sample time, the node settled between conversions (τ ≈ 62 kΩ · 14 pF ≈ 0.9 µs).
+            let n = 400;
+            (0..n)
+                .map(|_| {
+                    clock.advance_ps(20_000_000);
+                    f64::from(b.convert(0, 7).unwrap())
+                })
+                .sum::<f64>()
+                / f64::from(n)
+        };
+        b.set_pull(0, Some(Pull::Up)).unwrap();
+        let up = mean(&mut b);
+        b.set_pull(0, Some(Pull::Down)).unwrap();
+        let down = mean(&mut b);
+        b.set_pull(0, None).unwrap();
+        let none = mean(&mut b);
+        assert!((up - 2339.0).abs() < 2.0, "pulled up: {up}");
+        assert!((down - 764.0).abs() < 2.0, "pulled down: {down}");
+        assert!((none - 1241.0).abs() < 2.0, "released: {none}");
+        // A pin not opted in is never pulled.
+        let mut plain = VirtualBoard::with_realism(&scenario(Source::Floating, 10e-12), &clock, Realism::ideal());
+        assert_eq!(plain.set_pull(0, Some(Pull::Up)), Err(ErrorKind::Unsupported));
     }
 
     #[test]
@@ -626,6 +714,7 @@ mod tests {
             hum_volts: 0.021,
             hum_hz: 60.0,
             noise_volts: 0.0,
+            pull: false,
         });
         s.board.sample_cycles = Vec::from_slice(&[1.5, 7.5, 239.5]).unwrap();
         s.name = String::try_from("wired over the link").unwrap();

@@ -37,6 +37,11 @@ pub struct BoardProfile {
     pub unit_hold_ratio: f64,
     /// The unit's real switch resistance as a multiple of [`Self::switch_ohms`].
     pub unit_switch_ratio: f64,
+    /// Nominal pull resistance, Ω (0: no pulls). The pulls go to the reference voltage, to
+    /// ground, and to half the reference.
+    pub pull_ohms: f64,
+    /// ±2σ relative uncertainty of the pull resistance (the unit's pulls differ within it).
+    pub pull_tolerance: f64,
 }
 
 impl Default for BoardProfile {
@@ -57,6 +62,8 @@ impl Default for BoardProfile {
             leakage_amps: 10e-12,
             unit_hold_ratio: 1.0,
             unit_switch_ratio: 1.0,
+            pull_ohms: 0.0,
+            pull_tolerance: 0.2,
         }
     }
 }
@@ -92,6 +99,8 @@ pub struct PinSetup {
     pub hum_hz: f64,
     /// White noise at the source, V rms.
     pub noise_volts: f64,
+    /// The board may pull this pin for a pull test (the profile opts it in).
+    pub pull: bool,
 }
 
 /// A whole simulated set-up.
@@ -130,6 +139,8 @@ impl Scenario {
             leakage_femtoamps: scaled(p.leakage_amps, 1e15) as u32,
             unit_hold_ppm: scaled(p.unit_hold_ratio, 1e6) as u32,
             unit_switch_ppm: scaled(p.unit_switch_ratio, 1e6) as u32,
+            pull_milliohms: scaled(p.pull_ohms, 1e3) as u64,
+            pull_tolerance_ppm: scaled(p.pull_tolerance, 1e6) as u32,
             pins: self.pins.len() as u8,
         };
         let pins = self.pins.iter().enumerate().map(|(index, pin)| {
@@ -147,6 +158,7 @@ impl Scenario {
                 hum_microvolts: scaled(pin.hum_volts, 1e6) as u32,
                 hum_millihertz: scaled(pin.hum_hz, 1e3) as u32,
                 noise_microvolts: scaled(pin.noise_volts, 1e6) as u32,
+                pull: pin.pull,
             })
         });
         core::iter::once(SimPart::Board(board)).chain(pins)
@@ -179,6 +191,8 @@ impl Scenario {
             leakage_amps: f64::from(board.leakage_femtoamps) / 1e15,
             unit_hold_ratio: f64::from(board.unit_hold_ppm) / 1e6,
             unit_switch_ratio: f64::from(board.unit_switch_ppm) / 1e6,
+            pull_ohms: board.pull_milliohms as f64 / 1e3,
+            pull_tolerance: f64::from(board.pull_tolerance_ppm) / 1e6,
         };
         let mut wired: Vec<PinSetup, MAX_PINS> = Vec::new();
         for p in pins {
@@ -200,6 +214,7 @@ impl Scenario {
                     hum_volts: f64::from(p.hum_microvolts) / 1e6,
                     hum_hz: f64::from(p.hum_millihertz) / 1e3,
                     noise_volts: f64::from(p.noise_microvolts) / 1e6,
+                    pull: p.pull,
                 })
                 .map_err(|_| bad)?;
         }
