@@ -632,7 +632,7 @@ mod tests {
         let mut b = VirtualBoard::with_realism(&s, &clock, Realism::ideal());
         assert!(b.description().channels[0].pull, "the opted-in pin is offered for pulls");
         assert_eq!(b.description().front_end.pull_milliohms, 160_000_000);
-        let mut mean = |b: &mut VirtualBoard<&VirtualClock>| {
+        let mean = |b: &mut VirtualBoard<&VirtualClock>| {
             // Long sample time, the node settled between conversions (τ ≈ 62 kΩ · 14 pF ≈ 0.9 µs).
             let n = 400;
             (0..n)
