@@ -36,6 +36,7 @@ pub mod noise;
 pub mod output;
 pub mod plan;
 pub mod ports;
+pub mod pull;
 pub mod record;
 pub mod render;
 pub mod run;
