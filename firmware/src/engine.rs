@@ -425,6 +425,8 @@ pub(crate) mod tests {
                 noise_millilsb: 500,
                 leakage_picoamps: 1000,
                 pull_milliohms: 0,
+                pull_tolerance_ppm: 0,
+                pull_supply_microvolts: 0,
                 precharges: Vec::from_slice(&[Precharge { channel: 9, nominal_microvolts: 0 }]).unwrap(),
             },
             channels,

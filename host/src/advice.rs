@@ -765,6 +765,8 @@ mod tests {
             noise_millilsb: 500,
             leakage_picoamps: 0,
             pull_milliohms: 0,
+            pull_tolerance_ppm: 0,
+            pull_supply_microvolts: 0,
             precharges: heapless::Vec::from_slice(&[Precharge { channel: 0, nominal_microvolts: 0 }]).unwrap(),
         };
         BoardModel::from_front_end(&fe)

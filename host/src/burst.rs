@@ -277,6 +277,8 @@ mod tests {
             noise_millilsb: 500,
             leakage_picoamps: 0,
             pull_milliohms: 0,
+            pull_tolerance_ppm: 0,
+            pull_supply_microvolts: 0,
             precharges: heapless::Vec::from_slice(&[
                 Precharge { channel: 20, nominal_microvolts: 100_000 },
                 Precharge { channel: 21, nominal_microvolts: 3_200_000 },

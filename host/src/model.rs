@@ -624,6 +624,8 @@ mod tests {
             noise_millilsb: 1000,
             leakage_picoamps: 0,
             pull_milliohms: 0,
+            pull_tolerance_ppm: 0,
+            pull_supply_microvolts: 0,
             precharges: heapless::Vec::new(),
         };
         let b = BoardModel::from_front_end(&fe);

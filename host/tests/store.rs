@@ -79,7 +79,9 @@ fn run_record(id: &str, board: &str, unit: &str, started: &str) -> RunRecord {
                 switch_tolerance_ppm: 300_000,
                 noise_millilsb: 500,
                 leakage_picoamps: 1_000,
-                pull_milliohms: 0,
+                pull_milliohms: 40_000_000,
+                pull_tolerance_ppm: 250_000,
+                pull_supply_microvolts: 3_300_000,
                 precharges: vec![
                     PrechargeRecord { channel: 16, nominal_microvolts: 0 },
                     PrechargeRecord { channel: 17, nominal_microvolts: 3_300_000 },

@@ -480,6 +480,10 @@ pub struct FrontEnd {
     pub leakage_picoamps: u32,
     /// Pull resistance for pull tests, mΩ; 0 when the board has no usable pulls.
     pub pull_milliohms: u32,
+    /// ±2σ relative uncertainty of the pull resistance, ppm.
+    pub pull_tolerance_ppm: u32,
+    /// The level the pull-up goes to, µV (pull-down: ground; half: half of this).
+    pub pull_supply_microvolts: u32,
     /// Channels that may be converted to precharge the hold capacitor to a known level.
     pub precharges: Vec<Precharge, MAX_PRECHARGES>,
 }
@@ -746,6 +750,8 @@ impl FrontEnd {
             noise_millilsb: u32::MAX,
             leakage_picoamps: u32::MAX,
             pull_milliohms: u32::MAX,
+            pull_tolerance_ppm: u32::MAX,
+            pull_supply_microvolts: u32::MAX,
             precharges,
         }
     }

@@ -38,6 +38,8 @@ pub const NOISE_MILLILSB: u32 = 1_500;
 pub const LEAKAGE_PICOAMPS: u32 = 1_000_000;
 /// The SAADC's resistor ladder (RESP pull-up, pull-down, VDD/2), mΩ.
 pub const LADDER_MILLIOHMS: u32 = 160_000_000;
+/// Its ±2σ tolerance, ppm (±20% as quoted; see profile.toml).
+pub const LADDER_TOLERANCE_PPM: u32 = 200_000;
 
 /// The channel number of the internal VDD input (its PSELP code).
 pub const VDD_CHANNEL: u8 = 9;
@@ -101,6 +103,9 @@ pub fn description(unit_id: u64) -> BoardDescription {
             leakage_picoamps: LEAKAGE_PICOAMPS,
             // The ladder is opt-in per pin: offered only when a pin may use it.
             pull_milliohms: if PINS.iter().any(|p| p.may_pull) { LADDER_MILLIOHMS } else { 0 },
+            pull_tolerance_ppm: LADDER_TOLERANCE_PPM,
+            // The ladder's pull-up goes to VDD (the host measures the real level on VDD_CHANNEL).
+            pull_supply_microvolts: VDD_MICROVOLTS,
             precharges,
         },
         channels,

@@ -42,6 +42,8 @@ pub const LEAKAGE_PICOAMPS: u32 = 1_000_000;
 
 /// The GPIO weak pull resistance, mΩ (reported only when a pin is opted in for pulls).
 pub const PULL_MILLIOHMS: u32 = 40_000_000;
+/// Its ±2σ tolerance, ppm (30–50 kΩ around 40 kΩ; see profile.toml).
+pub const PULL_TOLERANCE_PPM: u32 = 250_000;
 
 /// ADC1 channel of the internal reference VREFINT.
 pub const VREFINT_CHANNEL: u8 = 17;
@@ -110,6 +112,9 @@ pub fn description(unit_id: u64) -> BoardDescription {
             leakage_picoamps: LEAKAGE_PICOAMPS,
             // Pulls are opt-in per pin: none opted in, no pull resistance to offer.
             pull_milliohms: if PINS.iter().any(|p| p.may_pull) { PULL_MILLIOHMS } else { 0 },
+            pull_tolerance_ppm: PULL_TOLERANCE_PPM,
+            // The weak pull-up goes to VDD, which this board ties to VDDA, the reference.
+            pull_supply_microvolts: VREF_MICROVOLTS,
             precharges,
         },
         channels,

@@ -61,6 +61,8 @@ fn board() -> BoardDescription {
             noise_millilsb: 500,
             leakage_picoamps: 10,
             pull_milliohms: 0,
+            pull_tolerance_ppm: 0,
+            pull_supply_microvolts: 0,
             precharges: Vec::from_slice(&[Precharge { channel: 16, nominal_microvolts: 99_000 }]).unwrap_or_default(),
         },
         channels,

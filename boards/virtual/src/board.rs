@@ -594,6 +594,9 @@ fn describe(s: &Scenario) -> BoardDescription {
             noise_millilsb: round(p.adc_noise_lsb * 1e3) as u32,
             leakage_picoamps: round(p.leakage_amps * 1e12) as u32,
             pull_milliohms: if s.pins.iter().any(|pin| pin.pull) { round(p.pull_ohms * 1e3) as u32 } else { 0 },
+            pull_tolerance_ppm: round(p.pull_tolerance * 1e6) as u32,
+            // The simulated board's pull-up goes to its reference.
+            pull_supply_microvolts: uv(p.vref_volts),
             precharges,
         },
         channels,

@@ -202,6 +202,12 @@ pub struct FrontEndRecord {
     pub leakage_picoamps: u32,
     /// Pull resistance, mΩ (0: none).
     pub pull_milliohms: u32,
+    /// ±2σ of the pull resistance, ppm.
+    #[serde(default)]
+    pub pull_tolerance_ppm: u32,
+    /// The level the pull-up goes to, µV.
+    #[serde(default)]
+    pub pull_supply_microvolts: u32,
     /// Precharge sources: (channel, nominal µV).
     pub precharges: Vec<PrechargeRecord>,
 }
@@ -229,6 +235,8 @@ impl From<&FrontEnd> for FrontEndRecord {
             noise_millilsb: fe.noise_millilsb,
             leakage_picoamps: fe.leakage_picoamps,
             pull_milliohms: fe.pull_milliohms,
+            pull_tolerance_ppm: fe.pull_tolerance_ppm,
+            pull_supply_microvolts: fe.pull_supply_microvolts,
             precharges: fe
                 .precharges
                 .iter()
@@ -261,6 +269,8 @@ impl FrontEndRecord {
             noise_millilsb: self.noise_millilsb,
             leakage_picoamps: self.leakage_picoamps,
             pull_milliohms: self.pull_milliohms,
+            pull_tolerance_ppm: self.pull_tolerance_ppm,
+            pull_supply_microvolts: self.pull_supply_microvolts,
             precharges,
         }
     }

@@ -1364,6 +1364,8 @@ mod tests {
             noise_millilsb: 300,
             leakage_picoamps: 0,
             pull_milliohms: 0,
+            pull_tolerance_ppm: 0,
+            pull_supply_microvolts: 0,
             precharges: heapless::Vec::from_slice(&[
                 Precharge { channel: 16, nominal_microvolts: 0 },
                 Precharge { channel: 17, nominal_microvolts: 3_300_000 },

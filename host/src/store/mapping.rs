@@ -65,6 +65,8 @@ const RUN_COLUMNS: &[&str] = &[
     "fe_noise_millilsb",
     "fe_leakage_picoamps",
     "fe_pull_milliohms",
+    "fe_pull_tolerance_ppm",
+    "fe_pull_supply_microvolts",
     "fe_precharges",
     "profile_bits",
     "profile_vref_volts",
@@ -144,6 +146,8 @@ fn run_row(record: &RunRecord) -> Vec<Arg> {
         Arg::int(fe.noise_millilsb),
         Arg::int(fe.leakage_picoamps),
         Arg::int(fe.pull_milliohms),
+        Arg::int(fe.pull_tolerance_ppm),
+        Arg::int(fe.pull_supply_microvolts),
         json(&fe.precharges),
         Arg::int(p.bits),
         Arg::real(p.vref_volts),
@@ -336,6 +340,8 @@ fn run_from_row(id: &str, row: &[Val]) -> Result<(RunMeta, BoardRecord, Profile)
         noise_millilsb: c.int()?,
         leakage_picoamps: c.int()?,
         pull_milliohms: c.int()?,
+        pull_tolerance_ppm: c.int()?,
+        pull_supply_microvolts: c.int()?,
         precharges: c.json::<Vec<PrechargeRecord>>()?,
     };
     let board = BoardRecord { name, firmware, protocol, unit_id: board_unit_id, front_end, channels: Vec::new() };

@@ -24,10 +24,11 @@ const MIGRATIONS: &[Migration] = &[
     Migration { version: 3, name: "check results", sql: include_str!("migrations/0003_checks.sql") },
     Migration { version: 4, name: "unit calibrations", sql: include_str!("migrations/0004_calibrations.sql") },
     Migration { version: 5, name: "pin opt-ins", sql: include_str!("migrations/0005_channel_opt_ins.sql") },
+    Migration { version: 6, name: "pull profile", sql: include_str!("migrations/0006_pull_profile.sql") },
 ];
 
 /// The newest schema version this tool reads and writes.
-pub const SCHEMA_VERSION: i64 = 5;
+pub const SCHEMA_VERSION: i64 = 6;
 
 /// The per-dialect markers and what they stand for.
 fn markers(dialect: Dialect) -> &'static [(&'static str, &'static str)] {

@@ -165,6 +165,9 @@ fn check(board: &str, info: &BoardInfo, pins: &[(u8, &str, bool, bool)]) {
     let (pull, _) = electrical(&path, &t, pull_key);
     let offered = if pins.iter().any(|p| p.2) { scaled(pull, 1e3) } else { 0 };
     assert_eq!(u64::from(fe.pull_milliohms), offered, "{path}: pull resistance offered only to opted-in pins");
+    let (_, pull_tol) = electrical(&path, &t, pull_key);
+    assert_eq!(ppm(pull_tol), fe.pull_tolerance_ppm, "{path}: pull tolerance");
+    assert!(fe.pull_supply_microvolts > 0, "{path}: the pull-up's level is stated");
 
     // Precharge sources and internal channels.
     let pre = t["precharge"].as_array().expect("[[precharge]]");

@@ -19,6 +19,8 @@ fn board(sample_s: &[f64], hold_farads: f64, switch_ohms: f64, bits: u8, vref_vo
         noise_millilsb: 500,
         leakage_picoamps: 0,
         pull_milliohms: 0,
+        pull_tolerance_ppm: 0,
+        pull_supply_microvolts: 0,
         precharges: heapless::Vec::from_slice(&[Precharge { channel: 0, nominal_microvolts: 0 }]).unwrap(),
     };
     BoardModel::from_front_end(&fe)
