@@ -13,7 +13,7 @@
 
 use crate::model::{BoardModel, CellObs};
 use heapless::Vec as HVec;
-use ohmsight_protocol::{Experiment, FrontEnd, MAX_CHANNELS, MAX_RAW_SAMPLES};
+use ohmsight_protocol::{Experiment, FrontEnd, Pull, MAX_CHANNELS, MAX_RAW_SAMPLES};
 
 /// Longest period of a period sweep, ns.
 const LONGEST_PERIOD_NS: u32 = 20_000_000;
@@ -108,6 +108,15 @@ impl ScreenResult {
         Some((long[0].mean + long[1].mean) / 2.0)
     }
 }
+
+/// Longest rest between a pull test's conversions, ns: 200 ms for a setting's 48 conversions
+/// keeps the test under half a minute even for the largest node it serves.
+pub const PULL_REST_MAX_NS: u32 = 4_000_000;
+/// Unrecorded conversions leading each pull setting (the hold capacitor, last at another
+/// level, shares its charge with the node on the first few).
+const PULL_LEAD: u16 = 16;
+/// Recorded conversions of each pull setting.
+const PULL_REPEATS: u16 = 32;
 
 impl Plan {
     /// The plan for a described front end.
@@ -322,6 +331,35 @@ impl Plan {
         }
     }
 
+    /// The pull test of a pin the board lets pull: unpulled, pulled up, pulled down, at the
+    /// longest sample time, each setting led by unrecorded conversions while the node settles.
+    /// `node_farads_high` is the largest node the pin may have (the fit's upper end), which
+    /// sets the rest between conversions: five time constants of the pull alone against the
+    /// node and the hold capacitor (the source in parallel only shortens it), at most
+    /// [`PULL_REST_MAX_NS`]; `None` when the pull is too weak for that node to settle in it, or
+    /// the board has no pull.
+    pub fn pull_test(&self, fe: &FrontEnd, pin: u8, node_farads_high: f64) -> Option<Experiment> {
+        if fe.pull_milliohms == 0 || fe.pull_supply_microvolts == 0 {
+            return None;
+        }
+        let rp = f64::from(fe.pull_milliohms) * 1e-3;
+        let hold = f64::from(fe.hold_attofarads) * 1e-18;
+        let rest_ns = (5.0 * rp * (node_farads_high + hold) * 1e9).ceil();
+        if !rest_ns.is_finite() || rest_ns > f64::from(PULL_REST_MAX_NS) {
+            return None;
+        }
+        let pulls = heapless::Vec::from_slice(&[None, Some(Pull::Up), Some(Pull::Down)]).ok()?;
+        Some(Experiment::PullTest {
+            target: pin,
+            pulls,
+            sample: self.longest,
+            lead: PULL_LEAD,
+            repeats: PULL_REPEATS,
+            rest_ns: rest_ns as u32,
+            settle_ns: rest_ns as u32,
+        })
+    }
+
     /// The order swap that measures the memory of the previous channel: at the pin's settling
     /// sample time (the longest when none settles), after the precharge farther from its level.
     pub fn memory(&self, model: &BoardModel, pin: u8, sample: Option<u8>, level_lsb: f64) -> Experiment {
@@ -382,4 +420,55 @@ fn period_sweep(
 
 fn vec_of<const N: usize>(items: &[u8]) -> HVec<u8, N> {
     HVec::from_slice(&items[..items.len().min(N)]).unwrap_or_default()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ohmsight_protocol::{Precharge, Steps, Timing};
+
+    /// An nRF52840-like front end: TACQ 3–40 µs, 2.5 pF, the 160 kΩ ladder to a 3.0 V VDD.
+    fn nrf_like() -> FrontEnd {
+        FrontEnd {
+            bits: 12,
+            vref_microvolts: 3_600_000,
+            sample_ps: HVec::from_slice(&[3_000_000, 5_000_000, 10_000_000, 15_000_000, 20_000_000, 40_000_000])
+                .unwrap(),
+            conversion_ps: 2_000_000,
+            hold_attofarads: 2_500_000,
+            hold_tolerance_ppm: 200_000,
+            switch_milliohms: 2_000_000,
+            switch_tolerance_ppm: 1_000_000,
+            noise_millilsb: 1_500,
+            leakage_picoamps: 1_000_000,
+            pull_milliohms: 160_000_000,
+            pull_tolerance_ppm: 200_000,
+            pull_supply_microvolts: 3_000_000,
+            precharges: HVec::from_slice(&[
+                Precharge { channel: 9, nominal_microvolts: 3_000_000 },
+                Precharge { channel: 30, nominal_microvolts: 0 },
+            ])
+            .unwrap(),
+        }
+    }
+
+    #[test]
+    fn a_pull_test_rests_five_time_constants_of_the_pull_against_the_node() {
+        let fe = nrf_like();
+        let plan = Plan::new(&fe).unwrap();
+        // 5 · 160 kΩ · (10 pF + 2.5 pF) = 10 µs.
+        let Some(Experiment::PullTest { rest_ns, sample, pulls, .. }) = plan.pull_test(&fe, 3, 10e-12) else {
+            panic!("a pull test")
+        };
+        assert_eq!((rest_ns, sample), (10_000, 5));
+        assert_eq!(pulls.as_slice(), [None, Some(Pull::Up), Some(Pull::Down)]);
+        // The largest node it serves stays within the protocol's limits and half a minute.
+        let farads = f64::from(PULL_REST_MAX_NS) * 1e-9 / (5.0 * 160e3) - 2.5e-12;
+        let exp = plan.pull_test(&fe, 3, farads * 0.999).expect("just within the rest limit");
+        let steps = Steps::new(&exp, Timing { sample_ps: &fe.sample_ps, conversion_ps: fe.conversion_ps }).unwrap();
+        assert!(steps.nominal_ps() < 30_000_000_000_000, "{} ps", steps.nominal_ps());
+        // Too large a node for the pull to settle, or no pull at all: no pull test.
+        assert_eq!(plan.pull_test(&fe, 3, 100e-9), None);
+        assert_eq!(plan.pull_test(&FrontEnd { pull_milliohms: 0, ..fe.clone() }, 3, 10e-12), None);
+    }
 }
