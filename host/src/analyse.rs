@@ -55,6 +55,9 @@ pub struct PinEvidence {
     /// The loading burst, where one ran (after the memory test: nothing the fit replays
     /// follows it).
     pub burst: Option<crate::burst::Burst>,
+    /// The pull test's cells (unpulled, up, down), where one ran: after everything the fit
+    /// replays, and not replayed itself.
+    pub pull: Option<Vec<CellObs>>,
     /// Conversions spent on the pin (runs without records included).
     pub conversions: u64,
     /// The survey steps with at least one experiment on the pin.
@@ -162,6 +165,7 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                 noise: None,
                 swap: None,
                 burst: None,
+                pull: None,
                 conversions: 0,
                 purposes: Vec::new(),
             };
@@ -193,6 +197,12 @@ pub fn pin_evidence(record: &RunRecord, model: &BoardModel) -> Vec<PinEvidence> 
                     if e.received {
                         ev.burst =
                             Some(crate::burst::Burst { event, cells, hum_lsb: None, coherent_var_lsb2: Vec::new() });
+                    }
+                    continue;
+                }
+                if e.purpose == Purpose::Pull {
+                    if e.received {
+                        ev.pull = Some(cells);
                     }
                     continue;
                 }
@@ -349,11 +359,15 @@ pub fn judge_pins(
 /// The report of a record whose pins have been fitted.
 pub fn report(record: &RunRecord, model: &BoardModel, pins: &[PinEvidence], fits: &[Option<Fit>]) -> SurveyReport {
     let stats = &record.run.stats;
+    let mut judged = judge_pins(model, pins, fits, record.run.complete);
+    for (r, ev) in judged.iter_mut().zip(pins) {
+        r.pull_source_ohms = ev.pull.as_deref().and_then(|cells| pull_estimate(model, &record.board.front_end, cells));
+    }
     SurveyReport {
         record: record.clone(),
         board: record.board.clone(),
         model: model.clone(),
-        pins: judge_pins(model, pins, fits, record.run.complete),
+        pins: judged,
         link: LinkStats {
             bytes_sent: stats.link_bytes_sent,
             bytes_received: stats.link_bytes_received,
@@ -365,6 +379,40 @@ pub fn report(record: &RunRecord, model: &BoardModel, pins: &[PinEvidence], fits
         wall_seconds: stats.wall_seconds,
         fault: record.run.fault.clone(),
     }
+}
+
+/// The pull test's source resistance from its cells (unpulled, up, down, up again), against the
+/// pull the board described; no claim when the two pulled-up cells disagree (the node had not
+/// settled); `None` without a pull-up level or without the four cells.
+fn pull_estimate(
+    model: &BoardModel,
+    fe: &crate::record::FrontEndRecord,
+    cells: &[CellObs],
+) -> Option<crate::fit::Interval> {
+    let [_, up, down, again] = cells else { return None };
+    if fe.pull_milliohms == 0 || fe.pull_supply_microvolts == 0 {
+        return None;
+    }
+    let floor = crate::fit::model_floor_lsb(model);
+    let level = |c: &CellObs| crate::pull::Level {
+        volts: model.code_volts(c.mean),
+        se_volts: model.code_volts(
+            (c.variance.max(model.variance_floor_lsb2()) / f64::from(c.count.max(1)) + floor * floor).sqrt(),
+        ),
+    };
+    let pull = crate::pull::PullProfile {
+        ohms: f64::from(fe.pull_milliohms) * 1e-3,
+        tolerance: f64::from(fe.pull_tolerance_ppm) * 1e-6,
+        supply_volts: f64::from(fe.pull_supply_microvolts) * 1e-6,
+    };
+    let (up, again, down) = (level(up), level(again), level(down));
+    // Unsettled: the second pulled-up level, after the pulled-down one, reads lower.
+    if (up.volts - again.volts).abs() > 3.0 * up.se_volts.hypot(again.se_volts) {
+        return Some(crate::fit::Interval::NONE);
+    }
+    let up =
+        crate::pull::Level { volts: (up.volts + again.volts) / 2.0, se_volts: up.se_volts.hypot(again.se_volts) / 2.0 };
+    Some(crate::pull::source_ohms(up, down, &pull))
 }
 
 /// Analyses a whole record: model, evidence, fits, verdicts.

@@ -145,6 +145,9 @@ pub struct PinReport {
     pub memory: Option<Memory>,
     /// What the loading burst showed of a stiff pin's bound, where one ran.
     pub load: Option<crate::burst::LoadTest>,
+    /// The source resistance the pull test found against the board's own pull, where one ran
+    /// ([`crate::pull`]): an independent measurement beside `source_ohms`.
+    pub pull_source_ohms: Option<Interval>,
     /// The fit, where one was made.
     pub fit: Option<Fit>,
     /// Conversions spent on this pin.
@@ -306,6 +309,7 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         noise_codes: Vec::new(),
         memory: None,
         load: None,
+        pull_source_ohms: None,
         fit: None,
         conversions: 0,
         events: Vec::new(),

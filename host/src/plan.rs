@@ -109,6 +109,9 @@ impl ScreenResult {
     }
 }
 
+/// The node a pull test is sized for where the fit could not size the pin's node (a stiff
+/// pin), F; the test's repeated pulled-up setting shows whether it was enough.
+pub const PULL_NODE_UNSIZED_FARADS: f64 = 1e-9;
 /// Longest rest between a pull test's conversions, ns: 200 ms for a setting's 48 conversions
 /// keeps the test under half a minute even for the largest node it serves.
 pub const PULL_REST_MAX_NS: u32 = 4_000_000;
@@ -331,13 +334,15 @@ impl Plan {
         }
     }
 
-    /// The pull test of a pin the board lets pull: unpulled, pulled up, pulled down, at the
-    /// longest sample time, each setting led by unrecorded conversions while the node settles.
-    /// `node_farads_high` is the largest node the pin may have (the fit's upper end), which
-    /// sets the rest between conversions: five time constants of the pull alone against the
-    /// node and the hold capacitor (the source in parallel only shortens it), at most
-    /// [`PULL_REST_MAX_NS`]; `None` when the pull is too weak for that node to settle in it, or
-    /// the board has no pull.
+    /// The pull test of a pin the board lets pull: unpulled, pulled up, pulled down and up
+    /// again, at the longest sample time, each setting led by unrecorded conversions while the
+    /// node settles. The two pulled-up cells follow different levels, so they agree only if the
+    /// node settled: that is the test's own check. `node_farads_high` is the largest node the
+    /// pin may have (the fit's upper end; [`PULL_NODE_UNSIZED_FARADS`] where the fit could not
+    /// size it, which the check then tests), and sets the rest between conversions: five time
+    /// constants of the pull alone against the node and the hold capacitor (the source in
+    /// parallel only shortens it), at most [`PULL_REST_MAX_NS`]. `None` when the pull is too weak
+    /// for that node to settle in it, or the board has no pull.
     pub fn pull_test(&self, fe: &FrontEnd, pin: u8, node_farads_high: f64) -> Option<Experiment> {
         if fe.pull_milliohms == 0 || fe.pull_supply_microvolts == 0 {
             return None;
@@ -348,7 +353,7 @@ impl Plan {
         if !rest_ns.is_finite() || rest_ns > f64::from(PULL_REST_MAX_NS) {
             return None;
         }
-        let pulls = heapless::Vec::from_slice(&[None, Some(Pull::Up), Some(Pull::Down)]).ok()?;
+        let pulls = heapless::Vec::from_slice(&[None, Some(Pull::Up), Some(Pull::Down), Some(Pull::Up)]).ok()?;
         Some(Experiment::PullTest {
             target: pin,
             pulls,
@@ -461,7 +466,7 @@ mod tests {
             panic!("a pull test")
         };
         assert_eq!((rest_ns, sample), (10_000, 5));
-        assert_eq!(pulls.as_slice(), [None, Some(Pull::Up), Some(Pull::Down)]);
+        assert_eq!(pulls.as_slice(), [None, Some(Pull::Up), Some(Pull::Down), Some(Pull::Up)]);
         // The largest node it serves stays within the protocol's limits and half a minute.
         let farads = f64::from(PULL_REST_MAX_NS) * 1e-9 / (5.0 * 160e3) - 2.5e-12;
         let exp = plan.pull_test(&fe, 3, farads * 0.999).expect("just within the rest limit");

@@ -544,6 +544,7 @@ fn measure<L: Link>(
         // Per pin, the burst after the memory test: the burst moves a large open node, and
         // nothing the fit replays comes after it.
         let mut todo: Vec<(Purpose, u8, Experiment)> = Vec::new();
+        let front_end = runner.record.board.front_end.to_front_end();
         for (r, ev) in judged.iter().zip(&evidence).filter(|(_, ev)| ev.complete) {
             let level = r.source_volts.map(|v| volts_to_lsb(v, model.vref_volts, model.bits)).unwrap_or(0.0);
             if memory_planned(r) && ev.swap.is_none() {
@@ -552,6 +553,15 @@ fn measure<L: Link>(
             if load_planned(r) && ev.burst.is_none() {
                 let far = plan.far_from(&model, level);
                 todo.push((Purpose::Load, r.channel, crate::burst::experiment(plan, &model, r.channel, far)));
+            }
+            // Last on the pin, where the board lets it be pulled and the fit bounds its node
+            // (the rest between conversions is sized from that bound).
+            let may_pull = runner.record.board.channels.iter().any(|c| c.channel == r.channel && c.pull);
+            if may_pull && ev.pull.is_none() {
+                let node_high = r.node_farads.high.unwrap_or(crate::plan::PULL_NODE_UNSIZED_FARADS);
+                if let Some(exp) = plan.pull_test(&front_end, r.channel, node_high) {
+                    todo.push((Purpose::Pull, r.channel, exp));
+                }
             }
         }
         runner.plan_more(todo.len() as i64);

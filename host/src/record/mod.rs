@@ -411,6 +411,8 @@ pub enum Purpose {
     Memory,
     /// The loading burst that tests a stiff pin's bound ([`crate::burst`]).
     Load,
+    /// The pull test: the source against the board's own pull ([`crate::pull`]).
+    Pull,
 }
 
 impl Purpose {
@@ -423,14 +425,23 @@ impl Purpose {
             Purpose::Noise => "noise",
             Purpose::Memory => "memory",
             Purpose::Load => "load",
+            Purpose::Pull => "pull",
         }
     }
 
     /// The purpose of a stored name.
     pub fn parse(name: &str) -> Option<Self> {
-        [Purpose::PrechargeLevel, Purpose::Screen, Purpose::Detail, Purpose::Noise, Purpose::Memory, Purpose::Load]
-            .into_iter()
-            .find(|p| p.as_str() == name)
+        [
+            Purpose::PrechargeLevel,
+            Purpose::Screen,
+            Purpose::Detail,
+            Purpose::Noise,
+            Purpose::Memory,
+            Purpose::Load,
+            Purpose::Pull,
+        ]
+        .into_iter()
+        .find(|p| p.as_str() == name)
     }
 }
 
@@ -875,7 +886,7 @@ impl ExperimentRecord {
                     // Until the model replays pulled steps, the pull test is analysed on its own.
                     | ExperimentSpec::PullTest { .. }
             )
-            && !matches!(self.purpose, Purpose::Memory | Purpose::Load)
+            && !matches!(self.purpose, Purpose::Memory | Purpose::Load | Purpose::Pull)
     }
 }
 

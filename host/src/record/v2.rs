@@ -200,6 +200,10 @@ pub struct Pin {
     /// readings do not show); null when it needs no such assumption.
     #[serde(default)]
     pub source_ohms_assumes_node_below_farads: Option<f64>,
+    /// The source resistance the pull test found against the board's own pull, Ω; absent
+    /// where no pull test ran (the pin is not opted in, or the board has no pulls).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pull_source_ohms: Option<IntervalDoc>,
     /// Source voltage, V.
     pub source_volts: Option<f64>,
     /// Noise, LSB rms.
@@ -298,6 +302,7 @@ fn pin_doc(p: &PinReport, advice: &BoardAdvice, record: &RunRecord) -> Pin {
         source_ohms: (&p.source_ohms).into(),
         node_farads: (&p.node_farads).into(),
         source_ohms_assumes_node_below_farads: p.source_assumes_node_below,
+        pull_source_ohms: p.pull_source_ohms.as_ref().map(Into::into),
         source_volts: p.source_volts,
         noise_lsb_rms: p.noise_lsb_rms,
         min_sample_ns: p.min_sample_ns,

@@ -149,7 +149,15 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
             let reason = p.reason.as_ref().map(|why| format!("  ch{} {}: {why}", p.channel, p.verdict.as_str()));
             let missing = (!p.not_measured.is_empty())
                 .then(|| format!("  ch{}: not measured: {}", p.channel, p.not_measured.join(", ")));
-            reason.into_iter().chain(missing)
+            let pull = p.pull_source_ohms.as_ref().map(|iv| match iv.estimate.or(iv.low).or(iv.high) {
+                Some(_) => format!(
+                    "  ch{}: pull test: source {} against the board's pull",
+                    p.channel,
+                    interval_text(iv, units::ohms)
+                ),
+                None => format!("  ch{}: pull test: no claim (the node had not settled under the pull)", p.channel),
+            });
+            reason.into_iter().chain(missing).chain(pull)
         })
         .collect();
     if !notes.is_empty() {

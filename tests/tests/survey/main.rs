@@ -10,4 +10,5 @@ mod demo;
 mod faults;
 mod honesty;
 mod link;
+mod pull;
 mod verdicts;

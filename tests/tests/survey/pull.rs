@@ -1,0 +1,55 @@
+//! The pull test on a simulated nRF52840-like board: the source against the board's own
+//! 160 kΩ ±20% ladder, as a voltage divider (common practice, no source), checked against the
+//! scenario's truth with the unit's real pull drawn within its tolerance.
+
+use ohmsight_tests::{covers, default_board, driven, run, scenario, show};
+use ohmsight_virtual::{BoardProfile, PinSetup, Source};
+
+/// TACQ 3–40 µs at 16 MHz, 2 µs conversions, 2.5 pF, a 2 kΩ switch, the ladder on every pin.
+fn nrf_like() -> BoardProfile {
+    BoardProfile {
+        vref_volts: 3.6,
+        hold_farads: 2.5e-12,
+        hold_tolerance: 0.2,
+        switch_ohms: 2e3,
+        switch_tolerance: 0.5,
+        adc_clock_hz: 16e6,
+        sample_cycles: heapless::Vec::from_slice(&[48.0, 80.0, 160.0, 240.0, 320.0, 640.0]).unwrap(),
+        conversion_cycles: 32.0,
+        adc_noise_lsb: 1.5,
+        pull_ohms: 160e3,
+        pull_tolerance: 0.2,
+        ..default_board()
+    }
+}
+
+fn pulled(pin: PinSetup) -> PinSetup {
+    PinSetup { pull: true, ..pin }
+}
+
+#[test]
+fn the_pull_test_recovers_20k_to_2m_within_30_percent_with_intervals_holding_the_truth() {
+    let truths = [(0, 0.6, 20e3), (1, 2.9, 50e3), (2, 1.2, 200e3), (3, 2.2, 500e3), (4, 0.9, 1e6), (5, 1.8, 2e6)];
+    for seed in [31, 32] {
+        let pins = truths.iter().map(|&(ch, v, r)| pulled(driven(ch, v, r, 10e-12))).collect();
+        let sc = scenario("pull test", seed, nrf_like(), pins);
+        let report = run(&sc);
+        for pin in &sc.pins {
+            let Source::Driven { ohms, .. } = pin.source else { unreachable!() };
+            let p = report.pins.iter().find(|p| p.channel == pin.channel).unwrap();
+            let iv = p.pull_source_ohms.unwrap_or_else(|| {
+                panic!(
+                    "seed {seed} ch{}: no pull test (node {:?}, opted in {:?}, pull experiments {})",
+                    pin.channel,
+                    p.node_farads,
+                    report.record.board.channels.iter().find(|c| c.channel == pin.channel).map(|c| c.pull),
+                    report.record.experiments.iter().filter(|e| e.purpose == ohmsight::record::Purpose::Pull).count()
+                )
+            });
+            println!("seed {seed} ch{} {ohms} Ω: pull test {} (fit {})", pin.channel, show(&iv), show(&p.source_ohms));
+            let est = iv.estimate.unwrap_or_else(|| panic!("ch{}: only a bound: {}", pin.channel, show(&iv)));
+            assert!((est / ohms - 1.0).abs() <= 0.3, "seed {seed} ch{}: {est} for {ohms}", pin.channel);
+            assert!(covers(&iv, ohms), "seed {seed} ch{}: {} misses {ohms}", pin.channel, show(&iv));
+        }
+    }
+}
