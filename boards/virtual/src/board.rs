@@ -314,8 +314,10 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
                 unpulled: None,
             });
         }
-        // Drawn last, so the rest of a seed's unit is the same with or without pulls.
-        b.pull_ohms = p.pull_ohms * (1.0 + on(r.unit_spread, within(p.pull_tolerance, &mut rng), 0.0));
+        // From a stream of its own: drawing it from `rng` would move every later noise sample,
+        // and every survey of every seed with it (a compare test of two surveys noticed).
+        let mut pull_rng = Xoshiro256PlusPlus::seed_from_u64(scenario.seed ^ 0x70_75_6c_6c);
+        b.pull_ohms = p.pull_ohms * (1.0 + on(r.unit_spread, within(p.pull_tolerance, &mut pull_rng), 0.0));
         b.rng = rng;
     }
 
