@@ -6,6 +6,7 @@
 use crate::profile::{PINS, TACQ_MICROS, VDDHDIV5_CHANNEL, VDD_CHANNEL};
 use crate::reg;
 use ohmsight_firmware::{AnalogFrontEnd, FrontEndError, FrontEndErrorKind};
+use ohmsight_protocol::{ErrorKind, Pull};
 
 const SAADC: usize = 0x4000_7000;
 const TASKS_START: usize = SAADC;
@@ -40,7 +41,6 @@ const EVENT_POLLS: u32 = 300_000;
 
 /// The ladder setting of one conversion (CH[n].CONFIG.RESP).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-#[allow(dead_code)] // the engine has no pull test yet; `convert_with` is its entry point
 pub enum Ladder {
     /// Bypass: nothing connected.
     None,
@@ -53,6 +53,15 @@ pub enum Ladder {
 }
 
 impl Ladder {
+    fn from_pull(pull: Option<Pull>) -> Ladder {
+        match pull {
+            None => Ladder::None,
+            Some(Pull::Up) => Ladder::PullUp,
+            Some(Pull::Down) => Ladder::PullDown,
+            Some(Pull::Half) => Ladder::HalfVdd,
+        }
+    }
+
     fn resp(self) -> u32 {
         match self {
             Ladder::None => 0,
@@ -90,6 +99,8 @@ impl FrontEndError for SaadcError {
 /// The SAADC, owned.
 pub struct Saadc {
     result: &'static mut i16,
+    /// The pin a pull test has pulled and its ladder setting; `None` when nothing is pulled.
+    pulled: Option<(u8, Ladder)>,
 }
 
 fn wait_event(addr: usize) -> Result<(), SaadcError> {
@@ -117,7 +128,7 @@ impl Saadc {
             reg::write(CH0_PSELN, 0); // single-ended
             reg::write(ENABLE, 1);
         }
-        Saadc { result }
+        Saadc { result, pulled: None }
     }
 
     /// One conversion of `channel` with TACQ at `sample` and the ladder set to `ladder`.
@@ -172,6 +183,31 @@ impl Saadc {
 impl AnalogFrontEnd for Saadc {
     type Error = SaadcError;
     fn convert(&mut self, channel: u8, sample: u8) -> Result<u16, SaadcError> {
-        self.convert_with(channel, sample, Ladder::None)
+        let ladder = match self.pulled {
+            Some((pin, ladder)) if pin == channel => ladder,
+            _ => Ladder::None,
+        };
+        self.convert_with(channel, sample, ladder)
+    }
+
+    /// The ladder is a setting of the channel's CONFIG, so a pull is kept here and applied to
+    /// every conversion of the pulled pin until it is released.
+    ///
+    /// Not checked on hardware, and not settled from the Product Specification as remembered:
+    /// whether the ladder holds the pin between conversions (the SAADC stopped) or only while the
+    /// channel is acquiring. If only while acquiring, the node moves towards the divider's level
+    /// a little with each conversion of the lead instead of resting there; the host's pull test
+    /// repeats its pulled-up setting after the pulled-down one and makes no claim when the two
+    /// disagree, so an unsettled node gives `unknown`, not a wrong resistance.
+    fn set_pull(&mut self, channel: u8, pull: Option<Pull>) -> Result<(), ErrorKind> {
+        if pull.is_none() {
+            self.pulled = None;
+            return Ok(());
+        }
+        if !PINS.iter().any(|p| p.channel == channel && p.may_pull) {
+            return Err(ErrorKind::NotAllowed);
+        }
+        self.pulled = Some((channel, Ladder::from_pull(pull)));
+        Ok(())
     }
 }

@@ -65,6 +65,19 @@ pub const PINS: [Pin; 7] = [
     Pin { channel: 9, name: "PB1", label: "PB1 (ADC1_IN9)", may_pull: false, may_drive: false },
 ];
 
+// No pull test on this image. A pin the ADC reads is in analog mode, and in analog mode the
+// GPIO's weak pull-up and pull-down are disconnected (RM0383, GPIO "analog configuration", from
+// memory); pulling would mean leaving analog mode, which puts the input buffer on the node the
+// survey measures. The front end keeps the default `set_pull`, which refuses, and no pin may be
+// opted in.
+const _: () = {
+    let mut i = 0;
+    while i < PINS.len() {
+        assert!(!PINS[i].may_pull, "the F411's pulls are off in analog mode: this image has no pull test");
+        i += 1;
+    }
+};
+
 /// `cycles` ADC cycles in ps, rounded to the nearest.
 pub const fn cycles_ps(cycles: u32) -> u32 {
     ((cycles as u64 * 1_000_000_000_000 + ADC_CLOCK_HZ / 2) / ADC_CLOCK_HZ) as u32
