@@ -194,6 +194,9 @@ struct Problem<'a> {
     stalled: std::cell::Cell<bool>,
     /// Levenberg–Marquardt's patience.
     patience: usize,
+    /// Converge only to [`LM_TOL_DECIDE`]: for probes that ask only whether a point is inside
+    /// the threshold, not where its floor lies.
+    coarse: bool,
 }
 
 impl<'a> Problem<'a> {
@@ -239,6 +242,7 @@ impl<'a> Problem<'a> {
             decide: false,
             stalled: std::cell::Cell::new(false),
             patience: LM_PATIENCE,
+            coarse: false,
         }
     }
 
@@ -372,7 +376,7 @@ impl LeastSquaresProblem<f64, Dyn, Dyn> for Problem<'_> {
 }
 
 fn minimize(p: Problem<'_>) -> Problem<'_> {
-    let tol = if p.decide { LM_TOL_DECIDE } else { LM_TOL };
+    let tol = if p.decide || p.coarse { LM_TOL_DECIDE } else { LM_TOL };
     let (p, report) = LevenbergMarquardt::new().with_patience(p.patience).with_tol(tol).minimize(p);
     if report.termination == levenberg_marquardt::TerminationReason::LostPatience {
         p.stalled.set(true);
@@ -648,9 +652,11 @@ fn interval_log<'a>(
     let (p, low) = profile_edge(p, theta, i, lo_b, threshold, sigma, points);
     let (p, high) = profile_edge(p, theta, i, hi_b, threshold, sigma, points);
     let edge = Edge { i, threshold, sigma, points };
-    let (p, low) = beyond_edge(p, &edge, low, lo_b, grid, 2);
-    let (p, high) = beyond_edge(p, &edge, high, hi_b, grid, 2);
-    let estimate = (low.is_some() && high.is_some()).then(|| theta[i].exp());
+    let (p, low, crossed_low) = beyond_edge(p, &edge, low, lo_b, grid, 2);
+    let (p, high, crossed_high) = beyond_edge(p, &edge, high, hi_b, grid, 2);
+    // An interval that spans two valleys has no best value to quote: the optimum found first
+    // need not be the deeper one. Its ends stand, as a range.
+    let estimate = (low.is_some() && high.is_some() && !crossed_low && !crossed_high).then(|| theta[i].exp());
     (p, Interval { estimate, low: low.map(f64::exp), high: high.map(f64::exp) })
 }
 
@@ -664,11 +670,15 @@ struct Edge<'e> {
 }
 
 /// An edge of a profile interval, checked for another valley beyond it: the best grid point
-/// past the edge (by at least a tenth of an e-fold, inside the current bounds) and probes a
-/// decade and three decades past it are profiled. One within the threshold is a second valley
-/// (a small source behind a modest node beside a large one behind a stiff node): the edge
-/// search goes on from there toward `limit`, and the side opens (`None`) once `depth` valleys
-/// have been crossed.
+/// past the edge (by at least a tenth of an e-fold, inside the current bounds) and probes past
+/// it are profiled: for the source resistance a decade and three decades past the edge; for
+/// the node capacitance every half decade up to `limit`, because behind a large node the
+/// loading burst's drift pins the node to a valley well under a decade wide (47 kΩ behind
+/// 10 µF: inside the threshold from about 5 to 25 µF, while the fit had stopped at 55 nF with
+/// an upper end of 277 nF). One within the threshold is a second valley (a small source
+/// behind a modest node beside a large one behind a stiff node): the edge search goes on from
+/// there toward `limit`, and the side opens (`None`) once `depth` valleys have been crossed.
+/// The flag says whether a valley was crossed.
 fn beyond_edge<'a>(
     mut p: Problem<'a>,
     edge: &Edge<'_>,
@@ -676,8 +686,8 @@ fn beyond_edge<'a>(
     limit: f64,
     grid: &[(f64, [f64; N_THETA])],
     depth: u8,
-) -> (Problem<'a>, Option<f64>) {
-    let Some(e) = found else { return (p, None) };
+) -> (Problem<'a>, Option<f64>, bool) {
+    let Some(e) = found else { return (p, None, false) };
     let i = edge.i;
     let dir = (limit - e).signum();
     let inside = |t: &[f64; N_THETA]| {
@@ -688,7 +698,12 @@ fn beyond_edge<'a>(
     let mut past: Vec<[f64; N_THETA]> =
         grid.iter().filter(|(_, t)| dir * (t[i] - e) > 0.1 && inside(t)).take(1).map(|(_, t)| *t).collect();
     let (lo, hi) = p.bounds[i];
-    for k in [1.0, 3.0] {
+    let steps: Vec<f64> = if i == LN_CN {
+        (1..).map(|k| f64::from(k) / 2.0).take_while(|k| k * std::f64::consts::LN_10 < (limit - e).abs()).collect()
+    } else {
+        vec![1.0, 3.0]
+    };
+    for k in steps {
         let x = e + dir * k * std::f64::consts::LN_10;
         if x > lo && x < hi {
             if let Some(&(_, mut t)) = grid.first() {
@@ -700,6 +715,8 @@ fn beyond_edge<'a>(
     let saved_free = p.free.clone();
     p.free.retain(|&f| f != i);
     let mut valley = None;
+    // A probe asks only whether it is inside: a χ² converged to a relative 1e-7 answers that.
+    p.coarse = true;
     for t in past {
         let (q, obj, at) = profile_at(p, i, t[i], t, edge.threshold);
         p = q;
@@ -708,13 +725,15 @@ fn beyond_edge<'a>(
             break;
         }
     }
+    p.coarse = false;
     p.free = saved_free;
     match valley {
-        None => (p, Some(e)),
-        Some(_) if depth == 0 => (p, None),
+        None => (p, Some(e), false),
+        Some(_) if depth == 0 => (p, None, true),
         Some(at) => {
             let (p, next) = profile_edge(p, at, i, limit, edge.threshold, edge.sigma, edge.points);
-            beyond_edge(p, edge, next, limit, grid, depth - 1)
+            let (p, end, _) = beyond_edge(p, edge, next, limit, grid, depth - 1);
+            (p, end, true)
         }
     }
 }

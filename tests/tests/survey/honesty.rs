@@ -277,3 +277,18 @@ fn a_small_source_with_two_explanations_keeps_both_in_its_interval() {
         assert!(!misses(&p.node_farads, 1e-9), "{}", about(p));
     }
 }
+
+#[test]
+fn a_node_pinned_by_the_bursts_drift_stays_inside_its_interval() {
+    // A 47 kΩ divider behind a 10 µF reservoir: the loading burst's drift allows the node only
+    // a valley about half a decade wide around 10 µF, and the fit had stopped in a shallower
+    // one at 55 nF. Its upper-edge search probed a decade and three decades past 277 nF, both
+    // outside that valley, and printed `55.3 nF (27.9–277 nF)`. (A seed where it did.)
+    let pins = vec![driven(0, 1.2, 47e3, 10e-6)];
+    let r = run(&scenario("reservoir divider", 1002, default_board(), pins));
+    let p = pin(&r, 0);
+    assert!(!misses(&p.node_farads, 10e-6), "{}", about(p));
+    let void = p.source_assumes_node_below.is_some_and(|c| 10e-6 > c);
+    assert!(void || !misses(&p.source_ohms, 47e3), "{}", about(p));
+    assert_ne!(p.verdict, Verdict::Floating, "{}", about(p));
+}
