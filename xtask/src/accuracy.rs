@@ -4,6 +4,8 @@
 //! The grid: source resistances at 1 and 3.16 per decade from 100 Ω to 100 MΩ, node
 //! capacitances of 5 pF (a bare pin and short trace), 50 pF (a long trace or a cable), 1 nF
 //! and 100 nF (filter capacitors: the regime where the source only shows between conversions),
+//! and 1, 4.7 and 10 µF (reservoirs a survey's milliseconds barely move: bounds with their
+//! assumption, the loading burst's drift, or `unknown`, never a wrong number),
 //! on two simulated converters (the default 4 pF / 6 kΩ one and the "fast" 8 pF / 1 kΩ one),
 //! over several seeds (each seed is another unit: its hold capacitor, switch, offset and INL
 //! are drawn anew), plus open pins and pins tied to each rail through a small and a large
@@ -33,7 +35,7 @@ use std::sync::Mutex;
 use std::time::Instant;
 
 /// Node capacitances of the full grid, F (see the module docs for why these).
-const NODE_FARADS: [f64; 6] = [5e-12, 50e-12, 1e-9, 100e-9, 1e-6, 4.7e-6];
+const NODE_FARADS: [f64; 7] = [5e-12, 50e-12, 1e-9, 100e-9, 1e-6, 4.7e-6, 10e-6];
 /// Node capacitances of the quick grid, F: one small and one filter capacitor, and one beyond
 /// what a survey's milliseconds resolve.
 const QUICK_NODE_FARADS: [f64; 3] = [5e-12, 1e-9, 4.7e-6];
@@ -1063,10 +1065,10 @@ mod tests {
         assert!((r[0] - 100.0).abs() < 1e-9 && (r[12] - 100e6).abs() < 1e-3);
         assert!((r[1] - 316.227_766).abs() < 1e-3);
         let c = cases(0, false, 3.3);
-        // 13 Rs × 6 Cn driven, 6 open pins, 8 rail pins, and 7 sources × 3 hum levels × 2 mains
+        // 13 Rs × 7 Cn driven, 7 open pins, 8 rail pins, and 7 sources × 3 hum levels × 2 mains
         // frequencies.
-        assert_eq!(c.len(), 13 * 6 + 6 + 8 + 7 * 3 * 2);
-        assert!(NODE_FARADS.contains(&1e-6) && NODE_FARADS.contains(&4.7e-6));
+        assert_eq!(c.len(), 13 * 7 + 7 + 8 + 7 * 3 * 2);
+        assert!(NODE_FARADS.contains(&1e-6) && NODE_FARADS.contains(&4.7e-6) && NODE_FARADS.contains(&10e-6));
         let hum: Vec<(f64, f64)> = c.iter().filter_map(|c| c.hum).collect();
         for v in [0.010, 0.030, 0.050] {
             for hz in [50.0, 60.0] {
