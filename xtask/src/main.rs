@@ -29,6 +29,12 @@ mod setup;
 
 fn main() -> Result<()> {
     let args: Vec<String> = std::env::args().skip(1).collect();
+    // `test` hands its arguments to `cargo test`, whose own `--help` they may hold.
+    let help = |a: &String| a == "--help" || a == "-h";
+    if args.first().is_some_and(help) || (args.first().is_some_and(|c| c != "test") && args.iter().any(help)) {
+        usage();
+        return Ok(());
+    }
     match args.first().map(String::as_str) {
         Some("test") => setup::test(&args[1..]),
         Some("bench") => bench(),
@@ -40,15 +46,20 @@ fn main() -> Result<()> {
         Some("size") => xtask::firmware::size_command(),
         Some("man") => man(),
         _ => {
-            eprintln!("usage: cargo xtask test [ARGS] | bench | study [--ohms R] [--farads C] [--volts V] [--seeds N] [--off a,b] [--board fast]");
-            eprintln!("       cargo xtask firmware <board> | qemu [--scenario FILE] | size | man");
-            eprintln!("       cargo xtask accuracy [--quick] [--seeds N] [--jobs N] [--detail] [--ideal | --off a,b]");
-            eprintln!(
-                "       cargo xtask fuzz [--cases N] [--seed S] [--start I] [--target frames|messages|engine|all]"
-            );
+            usage();
             bail!("unknown or missing command")
         }
     }
+}
+
+fn usage() {
+    eprintln!("usage: cargo xtask test [ARGS] | bench | firmware <board> | qemu [--scenario FILE] | size | man");
+    eprintln!("       cargo xtask accuracy [--quick] [--seeds N] [--jobs N] [--detail] [--ideal | --off a,b]");
+    eprintln!("       cargo xtask fuzz [--cases N] [--seed S] [--start I] [--target frames|messages|engine|all]");
+    eprintln!("       cargo xtask study [--ohms R | --floating] [--farads C] [--volts V] [--hum VOLTS,HZ] [--seeds N]");
+    eprintln!("                         [--board fast] [--hold-tol T] [--switch-tol T] [--ideal | --off a,b]");
+    eprintln!("         (study: one simulated pin over N seeds; STUDY_OBJECTIVE=1 and STUDY_PROFILE=1 print the");
+    eprintln!("          fit's objective at the truth and its profiles)");
 }
 
 /// `cargo xtask man`: `ohmsight.1` and a page per command under `target/man/` (or
