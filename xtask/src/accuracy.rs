@@ -132,6 +132,8 @@ struct Options {
     seeds: usize,
     jobs: usize,
     detail: bool,
+    /// Only the simulated board of this scenario seed (the one a wrong-claim line names).
+    board_seed: Option<u64>,
     /// The simulated board's non-idealities (all on unless switched off).
     realism: Realism,
 }
@@ -205,6 +207,7 @@ pub fn accuracy(args: &[String]) -> Result<()> {
         seeds: 4,
         jobs: std::thread::available_parallelism().map_or(1, |n| n.get()),
         detail: false,
+        board_seed: None,
         realism: Realism::full(),
     };
     let mut it = args.iter();
@@ -218,13 +221,14 @@ pub fn accuracy(args: &[String]) -> Result<()> {
             "--seeds" => opts.seeds = val()?.parse().context("--seeds takes a whole number")?,
             "--jobs" => opts.jobs = val()?.parse().context("--jobs takes a whole number")?,
             "--detail" => opts.detail = true,
+            "--board-seed" => opts.board_seed = Some(val()?.parse().context("--board-seed takes a scenario seed")?),
             "--hum-only" => opts.hum_only = true,
             "--hum-as-noise" => ohmsight::analyse::HUM_WAVEFORM.store(false, Ordering::Relaxed),
             "--ideal" => opts.realism = Realism::ideal(),
             "--off" => crate::switch_off(&mut opts.realism, val()?)?,
             other => bail!(
-                "unknown option {other} (accuracy takes --quick, --seeds N, --jobs N, --detail, --ideal, --off a,b, \
-                 --hum-only, --hum-as-noise)"
+                "unknown option {other} (accuracy takes --quick, --seeds N, --jobs N, --detail, --board-seed S, \
+                 --ideal, --off a,b, --hum-only, --hum-as-noise)"
             ),
         }
     }
@@ -243,7 +247,9 @@ pub fn accuracy(args: &[String]) -> Result<()> {
             }
             for (chunk, pins) in all.chunks(MAX_PINS).enumerate() {
                 let scenario_seed = 50_000 + 1_000 * b as u64 + 10 * seed as u64 + chunk as u64;
-                jobs.push((scenario_seed, b, pins.to_vec()));
+                if opts.board_seed.is_none_or(|s| s == scenario_seed) {
+                    jobs.push((scenario_seed, b, pins.to_vec()));
+                }
             }
         }
     }
@@ -324,7 +330,35 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
     let r = survey(&mut session, &SurveyOptions::default()).context("survey")?;
     let prior = prior_information(&r.model);
     let mut out = Vec::new();
+    // A look at one pin's fit: `ACCURACY_PROFILE=CH` with `--board-seed S` prints its profiles.
+    let look: Option<usize> = std::env::var("ACCURACY_PROFILE").ok().and_then(|v| v.parse().ok());
     for (ch, (case, p)) in cases.iter().zip(&r.pins).enumerate() {
+        if let (Some(f), true) = (&p.fit, look == Some(ch)) {
+            use ohmsight::fit::{profile_objective, FitInput, LN_CN, LN_RS};
+            let input = FitInput { board: &r.model, events: &p.events };
+            let base = ohmsight::fit::objective_at(&input, &f.params);
+            println!("ch{ch}: objective at the fit {base:.1}; profiles above it, half-decade steps:");
+            // ACCURACY_PROFILE_RS=FROM,TO,STEPS_PER_DECADE looks closer at the source.
+            let rs: Vec<f64> = std::env::var("ACCURACY_PROFILE_RS")
+                .ok()
+                .map(|v| v.split(',').filter_map(|x| x.parse().ok()).collect())
+                .unwrap_or_default();
+            let (rs_from, rs_to, rs_steps) = match rs[..] {
+                [a, b, n] => (a, b, n),
+                _ => (10.0, 2e12, 2.0),
+            };
+            for (name, i, first, last, per_decade) in
+                [("Cn", LN_CN, 1e-10, 2e-3, 2.0), ("Rs", LN_RS, rs_from, rs_to, rs_steps)]
+            {
+                let mut line = format!("  {name}:");
+                let mut x: f64 = first;
+                while x < last {
+                    line += &format!(" {x:.3e}:{:.1}", profile_objective(&input, i, x.ln(), &f.params) - base);
+                    x *= 10f64.powf(1.0 / per_decade);
+                }
+                println!("{line}");
+            }
+        }
         let fisher = match (case.truth, &p.fit) {
             (Truth::Driven { volts, ohms }, Some(_)) => {
                 let truth = PinParams {
