@@ -58,6 +58,18 @@ pub struct Step {
     pub pull: Option<Pull>,
 }
 
+impl Step {
+    /// A conversion with no pull connected.
+    const fn unpulled(channel: u8, sample: u8, wait_after_ns: u32, record: StepRecord) -> Step {
+        Step { channel, sample, wait_after_ns, record, pull: None }
+    }
+
+    /// A precharge conversion: nothing recorded, no wait after it, no pull.
+    const fn precharge(channel: u8, sample: u8) -> Step {
+        Step::unpulled(channel, sample, 0, StepRecord::None)
+    }
+}
+
 /// The validated step sequence of one experiment (random access, no allocation).
 #[derive(Debug, Clone)]
 pub struct Steps<'a> {
@@ -260,21 +272,9 @@ impl<'a> Steps<'a> {
                 let j = i % block;
                 let pair = j / 2;
                 if j.is_multiple_of(2) {
-                    Step {
-                        channel: precharges[(pair % np) as usize],
-                        sample: *precharge_sample,
-                        wait_after_ns: 0,
-                        record: StepRecord::None,
-                        pull: None,
-                    }
+                    Step::precharge(precharges[(pair % np) as usize], *precharge_sample)
                 } else {
-                    Step {
-                        channel: *target,
-                        sample: samples[(pair / np) as usize],
-                        wait_after_ns: *rest_ns,
-                        record: StepRecord::Cell(pair as u16),
-                        pull: None,
-                    }
+                    Step::unpulled(*target, samples[(pair / np) as usize], *rest_ns, StepRecord::Cell(pair as u16))
                 }
             }
             Experiment::OrderSwap { a, b, sample, repeats, rest_ns, .. } => {
@@ -282,54 +282,29 @@ impl<'a> Steps<'a> {
                 let second = i % 2 == 1;
                 let channel = if first_phase && !second { *a } else { *b };
                 let cell = if first_phase { 0 } else { 2 } + u16::from(second);
-                Step {
-                    channel,
-                    sample: *sample,
-                    wait_after_ns: if second { *rest_ns } else { 0 },
-                    record: StepRecord::Cell(cell),
-                    pull: None,
-                }
+                Step::unpulled(channel, *sample, if second { *rest_ns } else { 0 }, StepRecord::Cell(cell))
             }
             Experiment::RepeatBurst { target, precharge, precharge_sample, sample, length, rest_ns, .. } => {
                 let block = u32::from(*length) + 1;
                 let j = i % block;
                 if j == 0 {
-                    Step {
-                        channel: *precharge,
-                        sample: *precharge_sample,
-                        wait_after_ns: 0,
-                        record: StepRecord::None,
-                        pull: None,
-                    }
+                    Step::precharge(*precharge, *precharge_sample)
                 } else {
-                    Step {
-                        channel: *target,
-                        sample: *sample,
-                        wait_after_ns: if j == block - 1 { *rest_ns } else { 0 },
-                        record: StepRecord::Cell((j - 1) as u16),
-                        pull: None,
-                    }
+                    Step::unpulled(
+                        *target,
+                        *sample,
+                        if j == block - 1 { *rest_ns } else { 0 },
+                        StepRecord::Cell((j - 1) as u16),
+                    )
                 }
             }
             Experiment::PeriodSweep { target, precharge, precharge_sample, sample, repeats, .. } => {
                 let per = 2 * u32::from(*repeats);
                 let p = (i / per) as usize;
                 if i.is_multiple_of(2) {
-                    Step {
-                        channel: *precharge,
-                        sample: *precharge_sample,
-                        wait_after_ns: 0,
-                        record: StepRecord::None,
-                        pull: None,
-                    }
+                    Step::precharge(*precharge, *precharge_sample)
                 } else {
-                    Step {
-                        channel: *target,
-                        sample: *sample,
-                        wait_after_ns: self.gap_ns[p],
-                        record: StepRecord::Cell(p as u16),
-                        pull: None,
-                    }
+                    Step::unpulled(*target, *sample, self.gap_ns[p], StepRecord::Cell(p as u16))
                 }
             }
             Experiment::PullTest { target, pulls, sample, lead, repeats, rest_ns, .. } => {
@@ -343,33 +318,22 @@ impl<'a> Steps<'a> {
                     pull: pulls[k as usize],
                 }
             }
-            Experiment::NoiseRecord { target, sample, .. } => Step {
-                channel: *target,
-                sample: *sample,
-                wait_after_ns: self.gap_ns[0],
-                record: StepRecord::Raw(i as u16),
-                pull: None,
-            },
+            Experiment::NoiseRecord { target, sample, .. } => {
+                Step::unpulled(*target, *sample, self.gap_ns[0], StepRecord::Raw(i as u16))
+            }
             Experiment::ScanRecord { targets, precharge, precharge_sample, sample, .. } => {
                 let n = targets.len() as u32;
                 let (round, j) = (i / (2 * n), i % (2 * n));
                 let k = j / 2;
                 if j.is_multiple_of(2) {
-                    Step {
-                        channel: *precharge,
-                        sample: *precharge_sample,
-                        wait_after_ns: 0,
-                        record: StepRecord::None,
-                        pull: None,
-                    }
+                    Step::precharge(*precharge, *precharge_sample)
                 } else {
-                    Step {
-                        channel: targets[k as usize],
-                        sample: *sample,
-                        wait_after_ns: if k == n - 1 { self.gap_ns[0] } else { 0 },
-                        record: StepRecord::Raw((round * n + k) as u16),
-                        pull: None,
-                    }
+                    Step::unpulled(
+                        targets[k as usize],
+                        *sample,
+                        if k == n - 1 { self.gap_ns[0] } else { 0 },
+                        StepRecord::Raw((round * n + k) as u16),
+                    )
                 }
             }
         }
