@@ -32,6 +32,12 @@ impl Pin {
     }
 }
 
+/// A channel inside the chip (a precharge source or an internal signal): never pulled or
+/// driven.
+pub fn internal(channel: u8, name: &str, role: ChannelRole) -> ChannelInfo {
+    ChannelInfo { channel, label: label(name), role, pull: false, drive: false }
+}
+
 /// `s` cut to the 24 characters a channel label holds.
 pub fn label(s: &str) -> String<24> {
     let mut out = String::new();

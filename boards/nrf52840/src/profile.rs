@@ -6,12 +6,12 @@
 
 use heapless::Vec;
 use ohmsight_firmware::BoardDescription;
-use ohmsight_protocol::{ChannelInfo, ChannelRole, FrontEnd, Precharge};
+use ohmsight_protocol::{ChannelRole, FrontEnd, Precharge};
 
 #[path = "../../common/pin.rs"]
 mod pin;
-use pin::label;
 pub use pin::Pin;
+use pin::{internal, label};
 
 /// Board (profile) name in the hello.
 pub const NAME: &str = "nrf52840";
@@ -73,20 +73,8 @@ pub fn description(unit_id: u64) -> BoardDescription {
     for p in PINS {
         let _ = channels.push(p.info());
     }
-    let _ = channels.push(ChannelInfo {
-        channel: VDD_CHANNEL,
-        label: label("VDD"),
-        role: ChannelRole::Precharge,
-        pull: false,
-        drive: false,
-    });
-    let _ = channels.push(ChannelInfo {
-        channel: VDDHDIV5_CHANNEL,
-        label: label("VDDH/5 (TACQ >= 10 us)"),
-        role: ChannelRole::Internal,
-        pull: false,
-        drive: false,
-    });
+    let _ = channels.push(internal(VDD_CHANNEL, "VDD", ChannelRole::Precharge));
+    let _ = channels.push(internal(VDDHDIV5_CHANNEL, "VDDH/5 (TACQ >= 10 us)", ChannelRole::Internal));
     BoardDescription {
         name: label(NAME),
         unit_id,

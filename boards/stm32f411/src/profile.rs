@@ -6,12 +6,12 @@
 
 use heapless::Vec;
 use ohmsight_firmware::BoardDescription;
-use ohmsight_protocol::{ChannelInfo, ChannelRole, FrontEnd, Precharge};
+use ohmsight_protocol::{ChannelRole, FrontEnd, Precharge};
 
 #[path = "../../common/pin.rs"]
 mod pin;
-use pin::label;
 pub use pin::Pin;
+use pin::{internal, label};
 
 /// Board (profile) name in the hello.
 pub const NAME: &str = "stm32f411";
@@ -95,20 +95,8 @@ pub fn description(unit_id: u64) -> BoardDescription {
     for p in PINS {
         let _ = channels.push(p.info());
     }
-    let _ = channels.push(ChannelInfo {
-        channel: VREFINT_CHANNEL,
-        label: label("VREFINT (ADC1_IN17)"),
-        role: ChannelRole::Precharge,
-        pull: false,
-        drive: false,
-    });
-    let _ = channels.push(ChannelInfo {
-        channel: TEMPERATURE_CHANNEL,
-        label: label("temperature (IN18)"),
-        role: ChannelRole::Internal,
-        pull: false,
-        drive: false,
-    });
+    let _ = channels.push(internal(VREFINT_CHANNEL, "VREFINT (ADC1_IN17)", ChannelRole::Precharge));
+    let _ = channels.push(internal(TEMPERATURE_CHANNEL, "temperature (IN18)", ChannelRole::Internal));
     BoardDescription {
         name: label(NAME),
         unit_id,
