@@ -396,9 +396,12 @@ fn pull_estimate(
     let floor = crate::fit::model_floor_lsb(model);
     let level = |c: &CellObs| crate::pull::Level {
         volts: model.code_volts(c.mean),
-        se_volts: model.code_volts(
-            (c.variance.max(model.variance_floor_lsb2()) / f64::from(c.count.max(1)) + floor * floor).sqrt(),
-        ),
+        se_volts: model.code_volts(crate::fit::cell_se(
+            c.variance.max(model.variance_floor_lsb2()),
+            c.count,
+            0.0,
+            floor,
+        )),
     };
     let pull = crate::pull::PullProfile {
         ohms: f64::from(fe.pull_milliohms) * 1e-3,

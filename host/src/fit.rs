@@ -572,7 +572,7 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
 /// Standard error of a cell mean: noise over the count, slow interference that the cell's
 /// readings share, plus [`MODEL_FLOOR_LSB`] for what the
 /// model leaves out (converter non-linearity, residual charge, timing jitter).
-fn cell_se(noise_var: f64, count: u32, coherent_var: f64, model_floor: f64) -> f64 {
+pub(crate) fn cell_se(noise_var: f64, count: u32, coherent_var: f64, model_floor: f64) -> f64 {
     (noise_var / f64::from(count.max(1)) + coherent_var + model_floor * model_floor).sqrt()
 }
 

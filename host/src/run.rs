@@ -554,8 +554,8 @@ fn measure<L: Link>(
                 let far = plan.far_from(&model, level);
                 todo.push((Purpose::Load, r.channel, crate::burst::experiment(plan, &model, r.channel, far)));
             }
-            // Last on the pin, where the board lets it be pulled and the fit bounds its node
-            // (the rest between conversions is sized from that bound).
+            // Last on the pin, where the board lets it be pulled; the rest between conversions
+            // is sized from the node's upper end, or from a nominal node where the fit has none.
             let may_pull = runner.record.board.channels.iter().any(|c| c.channel == r.channel && c.pull);
             if may_pull && ev.pull.is_none() {
                 let node_high = r.node_farads.high.unwrap_or(crate::plan::PULL_NODE_UNSIZED_FARADS);
