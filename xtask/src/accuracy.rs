@@ -334,30 +334,18 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
     let look: Option<usize> = std::env::var("ACCURACY_PROFILE").ok().and_then(|v| v.parse().ok());
     for (ch, (case, p)) in cases.iter().zip(&r.pins).enumerate() {
         if let (Some(f), true) = (&p.fit, look == Some(ch)) {
-            use ohmsight::fit::{profile_objective, FitInput, LN_CN, LN_RS};
-            let input = FitInput { board: &r.model, events: &p.events };
-            let base = ohmsight::fit::objective_at(&input, &f.params);
-            println!("ch{ch}: objective at the fit {base:.1}; profiles above it, half-decade steps:");
             // ACCURACY_PROFILE_RS=FROM,TO,STEPS_PER_DECADE looks closer at the source.
             let rs: Vec<f64> = std::env::var("ACCURACY_PROFILE_RS")
                 .ok()
                 .map(|v| v.split(',').filter_map(|x| x.parse().ok()).collect())
                 .unwrap_or_default();
-            let (rs_from, rs_to, rs_steps) = match rs[..] {
-                [a, b, n] => (a, b, n),
-                _ => (10.0, 2e12, 2.0),
-            };
-            for (name, i, first, last, per_decade) in
-                [("Cn", LN_CN, 1e-10, 2e-3, 2.0), ("Rs", LN_RS, rs_from, rs_to, rs_steps)]
-            {
-                let mut line = format!("  {name}:");
-                let mut x: f64 = first;
-                while x < last {
-                    line += &format!(" {x:.3e}:{:.1}", profile_objective(&input, i, x.ln(), &f.params) - base);
-                    x *= 10f64.powf(1.0 / per_decade);
-                }
-                println!("{line}");
-            }
+            println!("ch{ch}:");
+            let input = ohmsight::fit::FitInput { board: &r.model, events: &p.events };
+            crate::print_profiles(
+                &input,
+                &f.params,
+                if let [a, b, n] = rs[..] { (a, b, n) } else { (10.0, 2e12, 2.0) },
+            );
         }
         let fisher = match (case.truth, &p.fit) {
             (Truth::Driven { volts, ohms }, Some(_)) => {

@@ -62,6 +62,33 @@ fn usage() {
     eprintln!("          fit's objective at the truth and its profiles)");
 }
 
+/// A fitted pin's likelihood profiles, for a look at why an interval ends where it does: the
+/// objective with the other parameters re-fitted, above its value at the fit's own node, over
+/// node capacitances at half-decade steps and over source resistances `rs = (from, to, steps
+/// per decade)`. A step far above both neighbours is a re-fit that missed the valley's floor.
+pub(crate) fn print_profiles(
+    input: &ohmsight::fit::FitInput<'_>,
+    params: &ohmsight::model::PinParams,
+    rs: (f64, f64, f64),
+) {
+    use ohmsight::fit::{profile_objective, LN_CN, LN_RS};
+    let prof = |i: usize, x: f64| profile_objective(input, i, x.ln(), params);
+    let base = prof(LN_CN, params.node_farads);
+    println!("  profiles, χ² above the fit's {base:.1}:");
+    // (name, parameter, first and last value, steps per decade, its units)
+    type Row = (&'static str, usize, f64, f64, f64, fn(f64) -> String);
+    let rows: [Row; 2] = [("Cn", LN_CN, 1e-10, 2e-3, 2.0, units::farads), ("Rs", LN_RS, rs.0, rs.1, rs.2, units::ohms)];
+    for (name, i, first, last, per_decade, unit) in rows {
+        let mut line = format!("  {name}:");
+        let mut x = first;
+        while x < last {
+            line += &format!(" {}:{:.1}", unit(x), prof(i, x) - base);
+            x *= 10f64.powf(1.0 / per_decade);
+        }
+        println!("{line}");
+    }
+}
+
 /// `cargo xtask man`: `ohmsight.1` and a page per command under `target/man/` (or
 /// `$CARGO_TARGET_DIR/man/`). The pages come from the binary's own command line definition
 /// (clap_mangen), which it writes when `OHMSIGHT_WRITE_MAN_PAGES` names a folder.
@@ -328,23 +355,7 @@ fn study(args: &[String]) -> Result<()> {
             let at_truth = ohmsight::fit::objective_at(&input, &truth);
             println!("  objective at fit {at_fit:.1}, at truth {at_truth:.1}, cells {}", f.dof + 3);
             if std::env::var_os("STUDY_PROFILE").is_some() {
-                use ohmsight::fit::{profile_objective, LN_CN, LN_RS};
-                let prof = |i: usize, x: f64| profile_objective(&input, i, x.ln(), &f.params);
-                let base = prof(LN_CN, f.params.node_farads);
-                println!("  profiles, χ² above the fit's {base:.1}, half-decade steps:");
-                // (name, parameter, first and last value, its units)
-                type Row = (&'static str, usize, f64, f64, fn(f64) -> String);
-                let rows: [Row; 2] =
-                    [("Cn", LN_CN, 1e-10, 2e-3, units::farads), ("Rs", LN_RS, 10.0, 2e12, units::ohms)];
-                for (name, i, first, last, unit) in rows {
-                    let mut line = format!("  {name}:");
-                    let mut x = first;
-                    while x < last {
-                        line += &format!(" {}:{:.1}", unit(x), prof(i, x) - base);
-                        x *= 10f64.sqrt();
-                    }
-                    println!("{line}");
-                }
+                print_profiles(&input, &f.params, (10.0, 2e12, 2.0));
             }
         }
         println!(
