@@ -155,7 +155,11 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
                     p.channel,
                     interval_text(iv, units::ohms)
                 ),
-                None => format!("  ch{}: pull test: no claim (the node had not settled under the pull)", p.channel),
+                None => format!(
+                    "  ch{}: pull test: no claim (its two pulled-up readings disagree: the node had not settled, \
+                     or the source moved between them, as mains hum does)",
+                    p.channel
+                ),
             });
             reason.into_iter().chain(missing).chain(pull)
         })
