@@ -356,12 +356,32 @@ pub fn judge_pins(
     pins.iter().zip(fits).map(|(pin, fit)| judge_pin(model, pin, fit.clone(), run_complete)).collect()
 }
 
+/// Why a pin opted in for pulls had no pull test in a run that did all it planned: the same
+/// sizing the survey used ([`crate::plan::Plan::pull_test`]) from the fit's upper end of the node.
+fn pull_not_run(fe: &ohmsight_protocol::FrontEnd, node_high: Option<f64>) -> String {
+    let node = node_high.unwrap_or(crate::plan::PULL_NODE_UNSIZED_FARADS);
+    match crate::plan::pull_rest_ns(fe, node) {
+        None => "the board states no pull resistance".into(),
+        Some(ns) => format!(
+            "a node up to {} would need {} between conversions to settle under the pull; the test rests at most {}",
+            crate::units::farads(node),
+            if ns.is_finite() { crate::units::ns(ns) } else { "forever".into() },
+            crate::units::ns(f64::from(crate::plan::PULL_REST_MAX_NS)),
+        ),
+    }
+}
+
 /// The report of a record whose pins have been fitted.
 pub fn report(record: &RunRecord, model: &BoardModel, pins: &[PinEvidence], fits: &[Option<Fit>]) -> SurveyReport {
     let stats = &record.run.stats;
     let mut judged = judge_pins(model, pins, fits, record.run.complete);
+    let front_end = record.board.front_end.to_front_end();
     for (r, ev) in judged.iter_mut().zip(pins) {
         r.pull_source_ohms = ev.pull.as_deref().and_then(|cells| pull_estimate(model, &record.board.front_end, cells));
+        let may_pull = record.board.channels.iter().any(|c| c.channel == r.channel && c.pull);
+        if may_pull && ev.pull.is_none() && ev.complete && record.run.complete {
+            r.pull_not_run = Some(pull_not_run(&front_end, r.node_farads.high));
+        }
     }
     SurveyReport {
         record: record.clone(),

@@ -148,6 +148,8 @@ pub struct PinReport {
     /// The source resistance the pull test found against the board's own pull, where one ran
     /// ([`crate::pull`]): an independent measurement beside `source_ohms`.
     pub pull_source_ohms: Option<Interval>,
+    /// Why a pin opted in for pulls had no pull test, in a run that did all it planned.
+    pub pull_not_run: Option<String>,
     /// The fit, where one was made.
     pub fit: Option<Fit>,
     /// Conversions spent on this pin.
@@ -310,6 +312,7 @@ fn judge(model: &BoardModel, pin: &PinEvidence, fit: Option<Fit>) -> PinReport {
         memory: None,
         load: None,
         pull_source_ohms: None,
+        pull_not_run: None,
         fit: None,
         conversions: 0,
         events: Vec::new(),

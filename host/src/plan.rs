@@ -121,6 +121,19 @@ const PULL_LEAD: u16 = 16;
 /// Recorded conversions of each pull setting.
 const PULL_REPEATS: u16 = 32;
 
+/// The rest a pull test needs between conversions for a node up to `node_farads_high`, ns: five
+/// time constants of the pull alone against the node and the hold capacitor. `None` when the
+/// board has no pull.
+pub fn pull_rest_ns(fe: &FrontEnd, node_farads_high: f64) -> Option<f64> {
+    if fe.pull_milliohms == 0 || fe.pull_supply_microvolts == 0 {
+        return None;
+    }
+    let rp = f64::from(fe.pull_milliohms) * 1e-3;
+    let hold = f64::from(fe.hold_attofarads) * 1e-18;
+    let rest_ns = (5.0 * rp * (node_farads_high + hold) * 1e9).ceil();
+    Some(if rest_ns.is_finite() { rest_ns } else { f64::INFINITY })
+}
+
 impl Plan {
     /// The plan for a described front end.
     pub fn new(fe: &FrontEnd) -> Result<Plan, PlanError> {
@@ -344,15 +357,7 @@ impl Plan {
     /// parallel only shortens it), at most [`PULL_REST_MAX_NS`]. `None` when the pull is too weak
     /// for that node to settle in it, or the board has no pull.
     pub fn pull_test(&self, fe: &FrontEnd, pin: u8, node_farads_high: f64) -> Option<Experiment> {
-        if fe.pull_milliohms == 0 || fe.pull_supply_microvolts == 0 {
-            return None;
-        }
-        let rp = f64::from(fe.pull_milliohms) * 1e-3;
-        let hold = f64::from(fe.hold_attofarads) * 1e-18;
-        let rest_ns = (5.0 * rp * (node_farads_high + hold) * 1e9).ceil();
-        if !rest_ns.is_finite() || rest_ns > f64::from(PULL_REST_MAX_NS) {
-            return None;
-        }
+        let rest_ns = pull_rest_ns(fe, node_farads_high).filter(|&ns| ns <= f64::from(PULL_REST_MAX_NS))?;
         let pulls = heapless::Vec::from_slice(&[None, Some(Pull::Up), Some(Pull::Down), Some(Pull::Up)]).ok()?;
         Some(Experiment::PullTest {
             target: pin,

@@ -204,6 +204,10 @@ pub struct Pin {
     /// where no pull test ran (the pin is not opted in, or the board has no pulls).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub pull_source_ohms: Option<IntervalDoc>,
+    /// Why a pin opted in for pulls had no pull test although the run did all it planned (its
+    /// node may be too large to settle under the pull in the longest rest); absent otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pull_test_not_run: Option<String>,
     /// Source voltage, V.
     pub source_volts: Option<f64>,
     /// Noise, LSB rms.
@@ -303,6 +307,7 @@ fn pin_doc(p: &PinReport, advice: &BoardAdvice, record: &RunRecord) -> Pin {
         node_farads: (&p.node_farads).into(),
         source_ohms_assumes_node_below_farads: p.source_assumes_node_below,
         pull_source_ohms: p.pull_source_ohms.as_ref().map(Into::into),
+        pull_test_not_run: p.pull_not_run.clone(),
         source_volts: p.source_volts,
         noise_lsb_rms: p.noise_lsb_rms,
         min_sample_ns: p.min_sample_ns,

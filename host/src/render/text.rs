@@ -161,7 +161,8 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
                     p.channel
                 ),
             });
-            reason.into_iter().chain(missing).chain(pull)
+            let skipped = p.pull_not_run.as_ref().map(|why| format!("  ch{}: pull test: not run ({why})", p.channel));
+            reason.into_iter().chain(missing).chain(pull).chain(skipped)
         })
         .collect();
     if !notes.is_empty() {

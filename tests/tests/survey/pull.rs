@@ -53,3 +53,34 @@ fn the_pull_test_recovers_20k_to_2m_within_30_percent_with_intervals_holding_the
         }
     }
 }
+
+#[test]
+fn a_pull_test_too_slow_for_the_node_is_skipped_and_says_so() {
+    // The drip-line scenario: a 330 kΩ moisture probe behind a 1 µF reservoir. Five time
+    // constants of the 160 kΩ ladder against 1 µF are 0.8 s between conversions, far past the
+    // test's longest rest, so no pull test runs, and the report says why instead of nothing.
+    let sc = scenario(
+        "drip line",
+        33,
+        nrf_like(),
+        vec![pulled(driven(0, 1.4, 330e3, 1e-6)), pulled(driven(1, 1.1, 47e3, 10e-12))],
+    );
+    let report = run(&sc);
+    let big = report.pins.iter().find(|p| p.channel == 0).unwrap();
+    assert!(big.pull_source_ohms.is_none(), "{:?}", big.pull_source_ohms.map(|iv| show(&iv)));
+    let why = big.pull_not_run.as_deref().expect("a reason for the missing pull test");
+    assert!(why.contains("would need") && why.contains("at most 4.00 ms"), "{why}");
+    // The small node beside it had its test, and no such note.
+    let small = report.pins.iter().find(|p| p.channel == 1).unwrap();
+    assert!(small.pull_source_ohms.is_some() && small.pull_not_run.is_none());
+    let opts = Default::default();
+    let advice = ohmsight::advice::advise(&report, &opts);
+    let text = ohmsight::render::text::survey_text(&report, &advice);
+    assert!(text.contains("ch0: pull test: not run (a node up to"), "{text}");
+    let json = ohmsight::render::survey_json(&report, &advice, &opts);
+    let doc: serde_json::Value = serde_json::from_str(&json).unwrap();
+    let pins = doc["pins"].as_array().unwrap();
+    let ch = |n: u64| pins.iter().find(|p| p["channel"] == n).unwrap();
+    assert!(ch(0)["pull_test_not_run"].as_str().is_some_and(|s| s.contains("would need")), "{}", ch(0));
+    assert!(ch(1).get("pull_test_not_run").is_none());
+}
