@@ -115,6 +115,11 @@ pub const PULL_NODE_UNSIZED_FARADS: f64 = 1e-9;
 /// Longest rest between a pull test's conversions, ns: 200 ms for a setting's 48 conversions
 /// keeps the test under half a minute even for the largest node it serves.
 pub const PULL_REST_MAX_NS: u32 = 4_000_000;
+/// How long each pull setting's recorded conversions span, ns (or a multiple of it): five
+/// periods of 50 Hz mains and six of 60 Hz. Readings spread evenly over whole periods average
+/// the hum, and every harmonic below the count of readings, out of the setting's mean; without
+/// it a setting lasted ~2 ms, a tenth of a period, and hum moved each setting's mean its own way.
+pub const PULL_SPAN_NS: u64 = 100_000_000;
 /// Unrecorded conversions leading each pull setting (the hold capacitor, last at another
 /// level, shares its charge with the node on the first few).
 const PULL_LEAD: u16 = 16;
@@ -352,12 +357,20 @@ impl Plan {
     /// node settles. The two pulled-up cells follow different levels, so they agree only if the
     /// node settled: that is the test's own check. `node_farads_high` is the largest node the
     /// pin may have (the fit's upper end; [`PULL_NODE_UNSIZED_FARADS`] where the fit could not
-    /// size it, which the check then tests), and sets the rest between conversions: five time
-    /// constants of the pull alone against the node and the hold capacitor (the source in
-    /// parallel only shortens it), at most [`PULL_REST_MAX_NS`]. `None` when the pull is too weak
-    /// for that node to settle in it, or the board has no pull.
+    /// size it, which the check then tests), and sets the least rest between conversions: five
+    /// time constants of the pull alone against the node and the hold capacitor (the source in
+    /// parallel only shortens it), at most [`PULL_REST_MAX_NS`]. The rest is then lengthened so
+    /// that each setting's recorded conversions span [`PULL_SPAN_NS`] (or a multiple), evenly:
+    /// mains hum averages out of each setting's mean. `None` when the pull is too weak for that
+    /// node to settle in the longest rest, or the board has no pull.
     pub fn pull_test(&self, fe: &FrontEnd, pin: u8, node_farads_high: f64) -> Option<Experiment> {
-        let rest_ns = pull_rest_ns(fe, node_farads_high).filter(|&ns| ns <= f64::from(PULL_REST_MAX_NS))?;
+        let settle_ns = pull_rest_ns(fe, node_farads_high).filter(|&ns| ns <= f64::from(PULL_REST_MAX_NS))?;
+        // Each setting's recorded conversions evenly over whole mains periods: the rest that
+        // makes their span a multiple of PULL_SPAN_NS, and at least the settling rest.
+        let convert_ns = (f64::from(*fe.sample_ps.get(usize::from(self.longest))?) + f64::from(fe.conversion_ps)) / 1e3;
+        let slot_ns = PULL_SPAN_NS as f64 / f64::from(PULL_REPEATS);
+        let spans = ((settle_ns + convert_ns) / slot_ns).ceil().max(1.0);
+        let rest_ns = (spans * slot_ns - convert_ns).round().max(settle_ns);
         let pulls = heapless::Vec::from_slice(&[None, Some(Pull::Up), Some(Pull::Down), Some(Pull::Up)]).ok()?;
         Some(Experiment::PullTest {
             target: pin,
@@ -366,7 +379,7 @@ impl Plan {
             lead: PULL_LEAD,
             repeats: PULL_REPEATS,
             rest_ns: rest_ns as u32,
-            settle_ns: rest_ns as u32,
+            settle_ns: settle_ns as u32,
         })
     }
 
@@ -466,17 +479,22 @@ mod tests {
     fn a_pull_test_rests_five_time_constants_of_the_pull_against_the_node() {
         let fe = nrf_like();
         let plan = Plan::new(&fe).unwrap();
-        // 5 · 160 kΩ · (10 pF + 2.5 pF) = 10 µs.
-        let Some(Experiment::PullTest { rest_ns, sample, pulls, .. }) = plan.pull_test(&fe, 3, 10e-12) else {
+        let Some(Experiment::PullTest { rest_ns, settle_ns, sample, pulls, .. }) = plan.pull_test(&fe, 3, 10e-12)
+        else {
             panic!("a pull test")
         };
-        assert_eq!((rest_ns, sample), (10_000, 5));
+        // 5 · 160 kΩ · (10 pF + 2.5 pF) = 10 µs settles it; the rest is lengthened to spread the
+        // 32 readings over 100 ms: 3.125 ms a reading, less the 40 µs sample and 2 µs conversion.
+        assert_eq!((rest_ns, settle_ns, sample), (3_083_000, 10_000, 5));
         assert_eq!(pulls.as_slice(), [None, Some(Pull::Up), Some(Pull::Down), Some(Pull::Up)]);
         // The largest node it serves stays within the protocol's limits and half a minute.
         let farads = f64::from(PULL_REST_MAX_NS) * 1e-9 / (5.0 * 160e3) - 2.5e-12;
         let exp = plan.pull_test(&fe, 3, farads * 0.999).expect("just within the rest limit");
         let steps = Steps::new(&exp, Timing { sample_ps: &fe.sample_ps, conversion_ps: fe.conversion_ps }).unwrap();
         assert!(steps.nominal_ps() < 30_000_000_000_000, "{} ps", steps.nominal_ps());
+        // A settling rest past one slot: the readings span two periods' worth, 200 ms.
+        let Experiment::PullTest { rest_ns, repeats, .. } = exp else { unreachable!() };
+        assert_eq!((rest_ns, repeats), (6_250_000 - 42_000, 32));
         // Too large a node for the pull to settle, or no pull at all: no pull test.
         assert_eq!(plan.pull_test(&fe, 3, 100e-9), None);
         assert_eq!(plan.pull_test(&FrontEnd { pull_milliohms: 0, ..fe.clone() }, 3, 10e-12), None);
