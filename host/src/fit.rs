@@ -78,6 +78,17 @@ pub const Z95: f64 = 1.959_964;
 /// 95% point of χ² with one degree of freedom (= Z95²).
 pub const CHI2_95_1DOF: f64 = 3.841_459;
 
+/// How far above the best fit a second, separate valley of a profile may lie and still join
+/// the interval: 9 (three standard deviations; common practice, no source) rather than the 95%
+/// threshold. A distinct explanation of the data that is only a little worse than the best one
+/// is not excluded by a 95% interval's edge: 316 kΩ behind 10 µF read `< 1.18 kΩ`, its true
+/// valley (a large source behind a large node) 4.1–4.4 above the best fit (a small source
+/// behind 1 nF), a ridge of about 100 between them.
+pub const CHI2_SECOND_VALLEY: f64 = 9.0;
+/// How much higher than a second valley the profile must have risen between it and the
+/// interval's edge for the valley to count as separate rather than the first one's shoulder.
+const VALLEY_RIDGE: f64 = CHI2_95_1DOF;
+
 /// An interval for one parameter.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Interval {
@@ -651,7 +662,8 @@ fn interval_log<'a>(
     let threshold = p.objective(&theta) + CHI2_95_1DOF * birge2;
     let (p, low) = profile_edge(p, theta, i, lo_b, threshold, sigma, points);
     let (p, high) = profile_edge(p, theta, i, hi_b, threshold, sigma, points);
-    let edge = Edge { i, threshold, sigma, points };
+    let valley = threshold + (CHI2_SECOND_VALLEY - CHI2_95_1DOF) * birge2;
+    let edge = Edge { i, threshold, valley, sigma, points };
     let (p, low, crossed_low) = beyond_edge(p, &edge, low, lo_b, grid, 2);
     let (p, high, crossed_high) = beyond_edge(p, &edge, high, hi_b, grid, 2);
     // An interval that spans two valleys has no best value to quote: the optimum found first
@@ -665,6 +677,8 @@ fn interval_log<'a>(
 struct Edge<'e> {
     i: usize,
     threshold: f64,
+    /// The level a separate second valley must reach ([`CHI2_SECOND_VALLEY`]).
+    valley: f64,
     sigma: f64,
     points: Option<&'e [f64]>,
 }
@@ -730,23 +744,31 @@ fn beyond_edge<'a>(
     let saved_free = p.free.clone();
     p.free.retain(|&f| f != i);
     let mut valley = None;
+    // Probes already made: distance past the edge and objective. A probe above the threshold
+    // but within the second-valley level counts when a nearer probe stood higher by the ridge.
+    let mut seen: Vec<(f64, f64)> = Vec::new();
     // A probe asks only whether it is inside: a χ² converged to a relative 1e-7 answers that.
     p.coarse = true;
     for t in past {
         let (q, obj, at) = profile_at(p, i, t[i], t, edge.threshold);
         p = q;
-        if obj <= edge.threshold {
-            valley = Some(at);
+        let d = dir * (t[i] - e);
+        let ridge = seen.iter().any(|&(dq, oq)| dq < d && oq >= obj + VALLEY_RIDGE);
+        if obj <= edge.threshold || (obj <= edge.valley && ridge) {
+            valley = Some((at, obj > edge.threshold));
             break;
         }
+        seen.push((d, obj));
     }
     p.coarse = false;
     p.free = saved_free;
     match valley {
         None => (p, Some(e), false),
         Some(_) if depth == 0 => (p, None, true),
-        Some(at) => {
-            let (p, next) = profile_edge(p, at, i, limit, edge.threshold, edge.sigma, edge.points);
+        Some((at, second)) => {
+            // A valley above the threshold is walked at its own level.
+            let level = if second { edge.valley } else { edge.threshold };
+            let (p, next) = profile_edge(p, at, i, limit, level, edge.sigma, edge.points);
             let (p, end, _) = beyond_edge(p, edge, next, limit, grid, depth - 1);
             (p, end, true)
         }
