@@ -121,6 +121,8 @@ struct Outcome {
     conversions: u64,
     /// Fisher information of the data at the truth (driven pins with a fit).
     fisher: Option<DMatrix<f64>>,
+    /// The same with each cell's variance raised by the fit's model floor (see [`pin_fisher`]).
+    fisher_floor: Option<DMatrix<f64>>,
     /// Prior information of the nuisance parameters (diagonal).
     prior: [f64; F_N],
 }
@@ -335,9 +337,17 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
     let mut session = Session::new(link);
     let r = survey(&mut session, &SurveyOptions::default()).context("survey")?;
     let prior = prior_information(&r.model);
+    let floor = ohmsight::fit::model_floor_lsb(&r.model);
     let mut out = Vec::new();
     // A look at one pin's fit: `ACCURACY_PROFILE=CH` with `--board-seed S` prints its profiles.
     let look: Option<usize> = std::env::var("ACCURACY_PROFILE").ok().and_then(|v| v.parse().ok());
+    if look.is_some() {
+        println!(
+            "unit {seed}: hold capacitor {:+.1}%, switch {:+.1}% of the profile's",
+            (hold / profile.hold_farads - 1.0) * 100.0,
+            (switch / profile.switch_ohms - 1.0) * 100.0
+        );
+    }
     for (ch, (case, p)) in cases.iter().zip(&r.pins).enumerate() {
         if let (Some(f), true) = (&p.fit, look == Some(ch)) {
             // ACCURACY_PROFILE_RS=FROM,TO,STEPS_PER_DECADE looks closer at the source.
@@ -353,7 +363,7 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
                 if let [a, b, n] = rs[..] { (a, b, n) } else { (10.0, 2e12, 2.0) },
             );
         }
-        let fisher = match (case.truth, &p.fit) {
+        let (fisher, fisher_floor) = match (case.truth, &p.fit) {
             (Truth::Driven { volts, ohms }, Some(_)) => {
                 let truth = PinParams {
                     source_ohms: ohms,
@@ -364,9 +374,12 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
                     overhead_s,
                     leak_amps: 0.0,
                 };
-                Some(pin_fisher(&r.model, &p.events, &truth))
+                (
+                    Some(pin_fisher(&r.model, &p.events, &truth, 0.0)),
+                    Some(pin_fisher(&r.model, &p.events, &truth, floor)),
+                )
             }
-            _ => None,
+            _ => (None, None),
         };
         out.push(Outcome {
             case: *case,
@@ -380,6 +393,7 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
             fit_sd_ln_rs: p.fit.as_ref().map(|f| f.sigma_ln_rs),
             conversions: p.conversions,
             fisher,
+            fisher_floor,
             prior,
         });
     }
@@ -400,10 +414,20 @@ fn prior_information(model: &BoardModel) -> [f64; F_N] {
 
 /// Fisher information of one pin's cell means about θ = (Vs, ln Rs, ln Cn, ln Ch/Ch₀,
 /// ln Rm/Rm₀, overhead µs) at `truth`, for the exact experiments and counts the survey ran,
-/// each reading with the converter's noise plus quantization (`σ² + 1/12` LSB²).
-fn pin_fisher(model: &BoardModel, events: &[Event], truth: &PinParams) -> DMatrix<f64> {
-    let counts: Vec<f64> =
-        events.iter().filter_map(|e| e.cells.as_ref()).flatten().map(|c| f64::from(c.count)).collect();
+/// each reading with the converter's noise plus quantization (`σ² + 1/12` LSB²). With
+/// `floor_lsb` > 0, each cell mean's variance is `σ²/n + floor²` instead of `σ²/n`: the bound
+/// for data whose cells carry the error the fit allows for what its model leaves out
+/// ([`ohmsight::fit::MODEL_FLOOR_LSB`]: non-linearity, kT/C, charge left behind), as a count
+/// `n / (1 + n·floor²/σ²)`.
+fn pin_fisher(model: &BoardModel, events: &[Event], truth: &PinParams, floor_lsb: f64) -> DMatrix<f64> {
+    let sigma2 = model.variance_floor_lsb2();
+    let counts: Vec<f64> = events
+        .iter()
+        .filter_map(|e| e.cells.as_ref())
+        .flatten()
+        .map(|c| f64::from(c.count))
+        .map(|n| n / (1.0 + n * floor_lsb * floor_lsb / sigma2))
+        .collect();
     let theta = [
         truth.source_volts,
         truth.source_ohms.ln(),
@@ -427,7 +451,7 @@ fn pin_fisher(model: &BoardModel, events: &[Event], truth: &PinParams) -> DMatri
         predict(model, &p, events, &mut out);
         out
     };
-    fisher_gaussian(mean_codes, &theta, &steps, &counts, model.variance_floor_lsb2())
+    fisher_gaussian(mean_codes, &theta, &steps, &counts, sigma2)
 }
 
 /// Fisher information of independent Gaussian cell means: cell `k` averages `counts[k]`
@@ -531,8 +555,12 @@ struct Group {
     node_farads: f64,
     /// Fitted ln Rs of each seed.
     ln_rs: Vec<f64>,
+    /// Where each seed's pin was: scenario seed and channel (for `--board-seed`).
+    pins: Vec<(u64, u8)>,
     /// √ of the bound for ln Rs.
     bound_sd: f64,
+    /// √ of the bound with the model floor in each cell ([`pin_fisher`]).
+    floor_sd: f64,
 }
 
 impl Group {
@@ -558,30 +586,37 @@ impl Group {
 /// data information over the prior) plus the prior information.
 fn groups(outcomes: &[Outcome]) -> Vec<Group> {
     // (board, Rs bits, Cn bits) → (fitted ln Rs, data information, prior information)
-    type Seeds<'a> = (Vec<f64>, Vec<&'a DMatrix<f64>>, [f64; F_N]);
+    type Seeds<'a> = (Vec<f64>, Vec<(&'a DMatrix<f64>, &'a DMatrix<f64>)>, [f64; F_N], Vec<(u64, u8)>);
     let mut map: BTreeMap<(usize, u64, u64), Seeds<'_>> = BTreeMap::new();
     for o in outcomes {
-        let (Truth::Driven { ohms, .. }, Some(ln), Some(j)) = (o.case.truth, o.best_ln_rs, &o.fisher) else {
+        let (Truth::Driven { ohms, .. }, Some(ln), Some(j), Some(jf)) =
+            (o.case.truth, o.best_ln_rs, &o.fisher, &o.fisher_floor)
+        else {
             continue;
         };
         let e = map.entry((o.case.board, ohms.to_bits(), o.case.node_farads.to_bits())).or_insert((
             Vec::new(),
             Vec::new(),
             o.prior,
+            Vec::new(),
         ));
         e.0.push(ln);
-        e.1.push(j);
+        e.1.push((j, jf));
+        e.3.push((o.scenario_seed, o.channel));
     }
     map.into_iter()
-        .filter(|(_, (ln, _, _))| ln.len() >= 2)
-        .map(|((board, r, c), (ln_rs, js, prior))| {
-            let mean = js.iter().fold(DMatrix::zeros(F_N, F_N), |acc, j| acc + *j) / js.len() as f64;
+        .filter(|(_, (ln, _, _, _))| ln.len() >= 2)
+        .map(|((board, r, c), (ln_rs, js, prior, pins))| {
+            let mean = js.iter().fold(DMatrix::zeros(F_N, F_N), |acc, (j, _)| acc + *j) / js.len() as f64;
+            let mean_floor = js.iter().fold(DMatrix::zeros(F_N, F_N), |acc, (_, j)| acc + *j) / js.len() as f64;
             Group {
                 ohms: f64::from_bits(r),
                 board,
                 node_farads: f64::from_bits(c),
                 ln_rs,
+                pins,
                 bound_sd: variance_bound(&mean, &prior, F_LN_RS).sqrt(),
+                floor_sd: variance_bound(&mean_floor, &prior, F_LN_RS).sqrt(),
             }
         })
         .collect()
@@ -764,20 +799,28 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
         }
         println!("\nEvery (board, Rs, Cn) point: fitted ln Rs over seeds against the bound");
         println!(
-            "{:<8} {:>10} {:>9} {:>10} {:>10} {:>10} {:>9}",
-            "board", "Rs", "Cn", "mean err", "obs sd", "CRLB sd", "var/CRLB"
+            "{:<8} {:>10} {:>9} {:>10} {:>10} {:>10} {:>9} {:>9}  each seed's error (board seed, channel)",
+            "board", "Rs", "Cn", "mean err", "obs sd", "CRLB sd", "var/CRLB", "floor sd"
         );
         for g in &groups {
             let m = g.ln_rs.iter().sum::<f64>() / g.ln_rs.len() as f64;
+            let each: Vec<String> = g
+                .ln_rs
+                .iter()
+                .zip(&g.pins)
+                .map(|(l, (seed, ch))| format!("{:+.1}% ({seed} ch{ch})", ((l - g.ohms.ln()).exp() - 1.0) * 100.0))
+                .collect();
             println!(
-                "{:<8} {:>10} {:>9} {:>10} {:>10.4} {:>10.4} {:>9.2}",
+                "{:<8} {:>10} {:>9} {:>10} {:>10.4} {:>10.4} {:>9.2} {:>9.4}  {}",
                 BOARD_NAMES[g.board],
                 units::ohms(g.ohms),
                 units::farads(g.node_farads),
                 format!("{:+.1}%", ((m - g.ohms.ln()).exp() - 1.0) * 100.0),
                 g.variance().sqrt(),
                 g.bound_sd,
-                g.variance() / g.bound_sd.powi(2)
+                g.variance() / g.bound_sd.powi(2),
+                g.floor_sd,
+                each.join(" ")
             );
         }
     }
@@ -875,6 +918,25 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
         "        (pooled over all {} resolvable points {}; {gross} of them above 10×, where a seed's fit went astray)",
         all_groups.len(),
         ratio_text(pooled_ratio(&all_groups)),
+    );
+    // The same against the bound whose cells carry the model floor: how much of the gap is the
+    // floor the fit allows for what it does not model, rather than the fit's search.
+    let floor_worst = decades
+        .iter()
+        .filter(|&&d| d >= from)
+        .filter_map(|&d| {
+            let mut r: Vec<f64> = groups
+                .iter()
+                .filter(|g| decade(g.ohms) == d && g.resolvable())
+                .map(|g| g.variance() / g.floor_sd.powi(2))
+                .collect();
+            median(&mut r).map(|m| (d, m))
+        })
+        .max_by(|a, b| a.1.total_cmp(&b.1));
+    println!(
+        "        (against the bound with the fit's model floor of {} LSB in every cell: worst median per decade {})",
+        ohmsight::fit::MODEL_FLOOR_LSB,
+        floor_worst.map_or("—".into(), |(d, r)| format!("{r:.2} at {}", decade_label(d, &grid)))
     );
     misses += hum_report(all);
     misses + wrong_report(all, opts)
@@ -1113,7 +1175,15 @@ mod tests {
     fn variance_ratios_pool_by_degrees_of_freedom() {
         // Sample variances 1 (3 dof, bound 0.5 → ratio 2) and 0.5 (1 dof, bound 1 → 0.5):
         // pooled (3·2 + 1·0.5)/4.
-        let g = |ln_rs: Vec<f64>, bound_sd: f64| Group { ohms: 1e3, board: 0, node_farads: 1e-12, ln_rs, bound_sd };
+        let g = |ln_rs: Vec<f64>, bound_sd: f64| Group {
+            ohms: 1e3,
+            board: 0,
+            node_farads: 1e-12,
+            ln_rs,
+            pins: Vec::new(),
+            bound_sd,
+            floor_sd: bound_sd,
+        };
         let a = g(vec![-1.5, -0.5, 0.5, 1.5], (0.5f64 * 5.0 / 3.0).sqrt());
         let b = g(vec![0.0, 1.0], 1.0);
         assert!((a.variance() - 5.0 / 3.0).abs() < 1e-12 && (b.variance() - 0.5).abs() < 1e-12);
