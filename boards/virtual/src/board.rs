@@ -239,7 +239,9 @@ impl<C: Deref<Target = VirtualClock>> VirtualBoard<C> {
         b.full_scale = (1u64 << p.bits) as f64;
         b.vref = p.vref_volts;
         b.bits = p.bits;
-        // The unit: within the profile's ±2σ tolerance (truncated normal, σ = tolerance / 2).
+        // The unit: within the profile's ±2σ tolerance (a normal draw, σ = tolerance / 2,
+        // clamped to ±tolerance: about one unit in 22 sits exactly at an edge of its tolerance,
+        // just past the ±1.96σ of a 95% interval that the profile's prior alone sets).
         let within = |tol: f64, rng: &mut Xoshiro256PlusPlus| (normal(rng) * tol / 2.0).clamp(-tol, tol);
         // Every draw is made whatever is switched on, so one seed gives one unit.
         let on = |flag: bool, v: f64, off: f64| if flag { v } else { off };
