@@ -157,7 +157,7 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
                 ),
                 None => format!(
                     "  ch{}: pull test: no claim (its two pulled-up readings disagree: the node had not settled, \
-                     or the source moved between them, as mains hum does)",
+                     or the source moved between them: a drift, or interference the readings do not average out)",
                     p.channel
                 ),
             });
