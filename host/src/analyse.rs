@@ -378,8 +378,7 @@ pub fn report(record: &RunRecord, model: &BoardModel, pins: &[PinEvidence], fits
     let front_end = record.board.front_end.to_front_end();
     for (r, ev) in judged.iter_mut().zip(pins) {
         r.pull_source_ohms = ev.pull.as_deref().and_then(|cells| pull_estimate(model, &record.board.front_end, cells));
-        let may_pull = record.board.channels.iter().any(|c| c.channel == r.channel && c.pull);
-        if may_pull && ev.pull.is_none() && ev.complete && record.run.complete {
+        if record.board.may_pull(r.channel) && ev.pull.is_none() && ev.complete && record.run.complete {
             r.pull_not_run = Some(pull_not_run(&front_end, r.node_farads.high));
         }
     }

@@ -556,8 +556,7 @@ fn measure<L: Link>(
             }
             // Last on the pin, where the board lets it be pulled; the rest between conversions
             // is sized from the node's upper end, or from a nominal node where the fit has none.
-            let may_pull = runner.record.board.channels.iter().any(|c| c.channel == r.channel && c.pull);
-            if may_pull && ev.pull.is_none() {
+            if runner.record.board.may_pull(r.channel) && ev.pull.is_none() {
                 let node_high = r.node_farads.high.unwrap_or(crate::plan::PULL_NODE_UNSIZED_FARADS);
                 if let Some(exp) = plan.pull_test(&front_end, r.channel, node_high) {
                     todo.push((Purpose::Pull, r.channel, exp));

@@ -293,6 +293,13 @@ pub struct BoardRecord {
     pub channels: Vec<ChannelRecord>,
 }
 
+impl BoardRecord {
+    /// Whether the board opts `channel` in for pulls (the pull test runs only there).
+    pub fn may_pull(&self, channel: u8) -> bool {
+        self.channels.iter().any(|c| c.channel == channel && c.pull)
+    }
+}
+
 /// The name of a channel role in records.
 pub fn role_name(role: ChannelRole) -> &'static str {
     match role {

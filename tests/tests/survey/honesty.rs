@@ -316,24 +316,23 @@ fn a_second_explanation_only_a_little_worse_is_not_excluded() {
     // just outside the 95% threshold. The source read `< 1.18 kΩ`, 268 times too low, with no
     // assumption. A separate valley within 9 of the best fit now joins the interval. (A seed
     // where it did; the accuracy grid's board 50035.)
-    let d = |ch, v, r, c| driven(ch, v, r, c);
     let pins = vec![
-        hum(d(0, 2.608, 10e3, 10e-12), 0.010, 50.0),
-        hum(d(1, 1.342, 470e3, 10e-12), 0.050, 50.0),
-        d(2, 1.715, 100.0, 1e-9),
-        d(3, 0.677, 10e6, 1e-6),
-        d(4, 2.044, 3.162e3, 1e-9),
-        d(5, 0.712, 10e3, 4.7e-6),
-        d(6, 2.087, 1e6, 5e-12),
-        d(7, 1.734, 316.2e3, 10e-6),
-        hum(d(8, 0.985, 1e3, 10e-12), 0.050, 50.0),
-        d(9, 2.253, 1e3, 4.7e-6),
-        d(10, 1.681, 100e3, 50e-12),
+        hum(driven(0, 2.608, 10e3, 10e-12), 0.010, 50.0),
+        hum(driven(1, 1.342, 470e3, 10e-12), 0.050, 50.0),
+        driven(2, 1.715, 100.0, 1e-9),
+        driven(3, 0.677, 10e6, 1e-6),
+        driven(4, 2.044, 3.162e3, 1e-9),
+        driven(5, 0.712, 10e3, 4.7e-6),
+        driven(6, 2.087, 1e6, 5e-12),
+        driven(7, 1.734, 316.2e3, 10e-6),
+        hum(driven(8, 0.985, 1e3, 10e-12), 0.050, 50.0),
+        driven(9, 2.253, 1e3, 4.7e-6),
+        driven(10, 1.681, 100e3, 50e-12),
         floating(11, 1e-6),
-        d(12, 1.162, 31.62e6, 1e-9),
-        d(13, 2.911, 1e6, 4.7e-6),
-        d(14, 2.175, 3.162e3, 10e-6),
-        d(15, 1.525, 1e6, 100e-9),
+        driven(12, 1.162, 31.62e6, 1e-9),
+        driven(13, 2.911, 1e6, 4.7e-6),
+        driven(14, 2.175, 3.162e3, 10e-6),
+        driven(15, 1.525, 1e6, 100e-9),
     ];
     let truths: Vec<(u8, Option<f64>, f64)> = pins
         .iter()
