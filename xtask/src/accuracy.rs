@@ -581,6 +581,42 @@ impl Group {
     }
 }
 
+/// An interval with both ends: the only kind whose coverage is the nominal 95%.
+fn is_two_sided(iv: &Interval) -> bool {
+    iv.low.is_some() && iv.high.is_some()
+}
+
+/// How many reported `Rs` hold the truth, by kind of statement.
+#[derive(Debug, PartialEq)]
+struct Coverage {
+    /// Two-sided intervals, and how many of them hold the truth.
+    two_sided: usize,
+    inside: usize,
+    /// One-sided bounds, and how many are on the truth's side.
+    bounds: usize,
+    bounds_on_side: usize,
+    /// Everything, with a pin of neither end counted as holding the truth.
+    all: usize,
+    all_inside: usize,
+}
+
+impl Coverage {
+    fn of(fits: &[(&Interval, f64)]) -> Self {
+        let count = |pick: &dyn Fn(&Interval) -> bool| {
+            let these: Vec<&(&Interval, f64)> = fits.iter().filter(|(iv, _)| pick(iv)).collect();
+            (these.len(), these.iter().filter(|(iv, t)| covers(iv, *t)).count())
+        };
+        let (two_sided, inside) = count(&is_two_sided);
+        let (bounds, bounds_on_side) = count(&|iv: &Interval| iv.low.is_some() != iv.high.is_some());
+        let (all, all_inside) = count(&|_: &Interval| true);
+        Self { two_sided, inside, bounds, bounds_on_side, all, all_inside }
+    }
+    /// The two-sided intervals' coverage (0 when there are none).
+    fn share(&self) -> f64 {
+        self.inside as f64 / self.two_sided.max(1) as f64
+    }
+}
+
 /// Groups the driven pins by (board, Rs, Cn) and computes each group's bound from the Fisher
 /// information averaged over its seeds (the units differ: the Van Trees bound averages the
 /// data information over the prior) plus the prior information.
@@ -686,8 +722,8 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
         let here: Vec<&&Outcome> = driven.iter().filter(|o| decade(ohms_of(o)) == d).collect();
         let mut errs: Vec<f64> = here.iter().filter_map(|o| rel_err(o)).collect();
         let bounds = here.iter().filter(|o| o.best_ln_rs.is_some() && o.source_ohms.estimate.is_none()).count();
-        let fitted: Vec<&&&Outcome> = here.iter().filter(|o| o.best_ln_rs.is_some()).collect();
-        let inside = fitted.iter().filter(|o| covers(&o.source_ohms, ohms_of(o))).count();
+        let two_sided: Vec<&&&Outcome> = here.iter().filter(|o| is_two_sided(&o.source_ohms)).collect();
+        let inside = two_sided.iter().filter(|o| covers(&o.source_ohms, ohms_of(o))).count();
         let mut conv: Vec<f64> = here.iter().map(|o| o.conversions as f64).collect();
         let gs: Vec<&Group> = groups.iter().filter(|g| decade(g.ohms) == d).collect();
         let mut sd: Vec<f64> = gs.iter().map(|g| g.bound_sd).collect();
@@ -718,7 +754,7 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
             bounds,
             pct(median(&mut errs)),
             pct(percentile(&mut errs, 0.95)),
-            format!("{inside}/{}", fitted.len()),
+            format!("{inside}/{}", two_sided.len()),
             ratio_text(z_rms),
             median(&mut conv).map_or("—".into(), |c| format!("{c:.0}")),
             median(&mut sd).map_or("—".into(), |s| if s.is_finite() { format!("{:.3}", s) } else { "∞".into() }),
@@ -730,7 +766,7 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
     }
     println!(
         "  med/p95 err: |Rs_fit/Rs − 1|, the best fit even where only a bound is reported; bounds: pins\n  \
-         reported only as a bound; coverage: truth inside the 95% interval (bounds on their side); z rms:\n  \
+         reported only as a bound; coverage: truth inside the 95% interval, over two-sided intervals; z rms:\n  \
          rms of ln(Rs_fit/Rs)/σ_fit over estimates (1.00 when the fit's σ is right); conv/pin: median\n  \
          conversions per pin; CRLB sd: median bound on the sd of ln Rs; resolv: (board, Rs, Cn) points\n  \
          with CRLB sd < {RESOLVABLE_SIGMA}; var/CRLB: median over those points of the observed variance of\n  \
@@ -832,18 +868,33 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
         misses += usize::from(!ok);
         println!("  {}  {what}", if ok { "PASS" } else { "MISS" });
     };
-    let fitted: Vec<&&Outcome> = driven.iter().filter(|o| o.best_ln_rs.is_some()).collect();
-    let inside = fitted.iter().filter(|o| covers(&o.source_ohms, ohms_of(o))).count();
-    let share = inside as f64 / fitted.len().max(1) as f64;
+    // Coverage is a property of two-sided 95% intervals. A one-sided bound can miss only on its
+    // one side (about 2.5% of the time at the same Δχ² level, less where a wide interval was
+    // turned into a bound), and a pin with neither end cannot miss at all: counting them would
+    // lift the share toward 100% however the intervals behave. They are counted beside it, and
+    // a bound on the wrong side is a wrong claim below.
+    let fits: Vec<(&Interval, f64)> =
+        driven.iter().filter(|o| o.best_ln_rs.is_some()).map(|o| (&o.source_ohms, ohms_of(o))).collect();
+    let c = Coverage::of(&fits);
+    let share = c.share();
     verdict_line(
         (COVERAGE_TARGET.0..=COVERAGE_TARGET.1).contains(&share),
         format!(
-            "interval coverage {inside}/{} = {:.1}% (target {:.0}–{:.0}%)",
-            fitted.len(),
+            "interval coverage {}/{} = {:.1}% over two-sided 95% intervals (target {:.0}–{:.0}%)",
+            c.inside,
+            c.two_sided,
             share * 100.0,
             COVERAGE_TARGET.0 * 100.0,
             COVERAGE_TARGET.1 * 100.0
         ),
+    );
+    println!(
+        "        (one-sided bounds on their side: {}/{}; with the bounds and the open-ended pins counted as inside, {}/{} = {:.1}%)",
+        c.bounds_on_side,
+        c.bounds,
+        c.all_inside,
+        c.all,
+        100.0 * c.all_inside as f64 / c.all.max(1) as f64
     );
     // The error of the numbers the survey reports (an estimate with its interval); pins given
     // only a bound or `unknown` have no number to be wrong by, and the coverage and wrong-claims
@@ -1091,6 +1142,18 @@ fn hum_report(all: &[Outcome]) -> usize {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn coverage_counts_only_two_sided_intervals() {
+        let iv = |low: Option<f64>, high: Option<f64>| Interval { estimate: None, low, high };
+        let (hit, miss) = (iv(Some(90.0), Some(110.0)), iv(Some(120.0), Some(150.0)));
+        let (below, wrong_side, open) = (iv(None, Some(200.0)), iv(Some(150.0), None), iv(None, None));
+        let fits = [(&hit, 100.0), (&miss, 100.0), (&below, 100.0), (&wrong_side, 100.0), (&open, 100.0)];
+        let c = Coverage::of(&fits);
+        let want = Coverage { two_sided: 2, inside: 1, bounds: 2, bounds_on_side: 1, all: 5, all_inside: 3 };
+        assert_eq!(c, want);
+        assert!((c.share() - 0.5).abs() < 1e-12);
+    }
 
     #[test]
     fn line_fit_bound_matches_the_textbook() {
