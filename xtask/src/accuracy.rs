@@ -374,10 +374,19 @@ fn survey_board(profile: &BoardProfile, seed: u64, cases: &[Case], realism: Real
                     overhead_s,
                     leak_amps: 0.0,
                 };
-                (
-                    Some(pin_fisher(&r.model, &p.events, &truth, 0.0)),
-                    Some(pin_fisher(&r.model, &p.events, &truth, floor)),
-                )
+                let (j, jf) =
+                    (pin_fisher(&r.model, &p.events, &truth, 0.0), pin_fisher(&r.model, &p.events, &truth, floor));
+                if look == Some(ch) {
+                    let own = |j: &DMatrix<f64>| variance_bound(j, &prior, F_LN_RS).sqrt();
+                    println!(
+                        "  ln Rs: the fit's σ {:.4}; this pin's bound {:.4}, with the model floor {:.4}; {} conversions",
+                        p.fit.as_ref().map_or(f64::NAN, |f| f.sigma_ln_rs),
+                        own(&j),
+                        own(&jf),
+                        p.conversions
+                    );
+                }
+                (Some(j), Some(jf))
             }
             _ => (None, None),
         };
@@ -436,7 +445,7 @@ fn pin_fisher(model: &BoardModel, events: &[Event], truth: &PinParams, floor_lsb
         (truth.switch_ohms / model.switch_ohms).ln(),
         truth.overhead_s * 1e6,
     ];
-    let steps = [2e-5 * model.vref_volts, 2e-3, 2e-3, 2e-3, 2e-3, 1e-2];
+    let base = [2e-5 * model.vref_volts, 2e-3, 2e-3, 2e-3, 2e-3, 1e-2];
     let mean_codes = |t: &[f64]| {
         let p = PinParams {
             source_volts: t[F_VS],
@@ -451,7 +460,37 @@ fn pin_fisher(model: &BoardModel, events: &[Event], truth: &PinParams, floor_lsb
         predict(model, &p, events, &mut out);
         out
     };
+    let steps = local_steps(&mean_codes, &theta, &base, DERIVATIVE_REACH_LSB);
     fisher_gaussian(mean_codes, &theta, &steps, &counts, sigma2)
+}
+
+/// Largest move of any cell mean a derivative's step may make, LSB. A mean code is not a
+/// straight line in the level behind it: averaging quantized readings leaves a ripple of one
+/// LSB period (about ±0.002 LSB at 0.5 LSB of noise, ±1.5% in the slope). A central
+/// difference over a step that moves a cell by a good part of an LSB samples that ripple
+/// differently for each parameter, and the errors no longer cancel along a direction that
+/// changes no reading at all (the network's scale: source and switch resistance down by k,
+/// both capacitors up by k). There they added information the data do not hold, and on a
+/// 1 MΩ source behind 50 pF bounded ln Rs at 0.010, below the 0.022 its priors alone allow.
+const DERIVATIVE_REACH_LSB: f64 = 0.02;
+
+/// Each parameter's step for central differences: `base`, shrunk so that no output moves by
+/// more than `reach` either way (taken from a first difference at `base`; the outputs are
+/// smooth, so the move scales with the step).
+fn local_steps(mu: &impl Fn(&[f64]) -> Vec<f64>, theta: &[f64], base: &[f64], reach: f64) -> Vec<f64> {
+    (0..theta.len())
+        .map(|i| {
+            let (mut up, mut dn) = (theta.to_vec(), theta.to_vec());
+            up[i] += base[i];
+            dn[i] -= base[i];
+            let moved = mu(&up).iter().zip(mu(&dn)).fold(0.0f64, |m, (a, b)| m.max((a - b).abs() / 2.0));
+            if moved > reach {
+                base[i] * reach / moved
+            } else {
+                base[i]
+            }
+        })
+        .collect()
 }
 
 /// Fisher information of independent Gaussian cell means: cell `k` averages `counts[k]`
@@ -1171,6 +1210,43 @@ mod tests {
         let got_b = variance_bound(&j, &[0.0, 0.0], 1);
         assert!((got_a / want_a - 1.0).abs() < 1e-9, "A: {got_a} vs {want_a}");
         assert!((got_b / want_b - 1.0).abs() < 1e-9, "B: {got_b} vs {want_b}");
+    }
+
+    #[test]
+    fn a_direction_no_reading_sees_adds_no_information() {
+        // A node C₁ sharing charge with C₂, then settling through R: scaling R by 1/k and both
+        // capacitors by k changes no reading (τ = R(C₁+C₂) and C₁/(C₁+C₂) stay), as in the
+        // survey's network. Each mean code carries the ripple that averaging quantized readings
+        // leaves: with Gaussian noise σ the mean of the rounded value is x + Σₘ (−1)ᵐ/(πm)
+        // e^(−2π²m²σ²) sin 2πmx (the Fourier series of the rounding error averaged over the
+        // noise; Widrow & Kollár, Quantization Noise, 2008, ch. 5 — from memory), of which the
+        // first term is kept. With a prior on ln C₂ alone (σ = 0.0244, a ±5% hold capacitor as
+        // 2σ), nothing but that prior fixes the scale, so no bound on ln R may fall below
+        // 0.0244 (Kay 1993 ch. 10 for the Bayesian bound; the scale direction has no data
+        // information at all).
+        let sd_prior = (1.05f64).ln() / 2.0;
+        let t: Vec<f64> = (1..=24).map(|k| 0.25 * k as f64).collect();
+        let ripple = (-2.0 * std::f64::consts::PI.powi(2) * 0.25).exp() / std::f64::consts::PI;
+        let mu = |p: &[f64]| -> Vec<f64> {
+            let (r, c1, c2) = (p[0].exp(), p[1].exp(), p[2].exp());
+            t.iter()
+                .map(|t| {
+                    let x = 3000.0 * c1 / (c1 + c2) * (-t / (r * (c1 + c2))).exp();
+                    x - ripple * (2.0 * std::f64::consts::PI * x).sin()
+                })
+                .collect()
+        };
+        let theta = [0.0, (0.6f64).ln(), (0.4f64).ln()];
+        let prior = [0.0, 0.0, 1.0 / (sd_prior * sd_prior)];
+        let base = [2e-3; 3];
+        let sd =
+            |steps: &[f64]| variance_bound(&fisher_gaussian(mu, &theta, steps, &[64.0; 24], 0.33), &prior, 0).sqrt();
+        let fine = sd(&local_steps(&mu, &theta, &base, DERIVATIVE_REACH_LSB));
+        assert!(fine >= 0.99 * sd_prior, "bound {fine:.4} below the prior's {sd_prior:.4}");
+        assert!(fine <= 1.05 * sd_prior, "bound {fine:.4}: the other directions are well measured");
+        // The same with every step at its base: the ripple leaks information onto the scale.
+        let coarse = sd(&base);
+        assert!(coarse < 0.9 * sd_prior, "the fixed steps should have shown the artefact: {coarse:.4}");
     }
 
     #[test]
