@@ -536,13 +536,19 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
     let dof = p.obs.len().saturating_sub(3);
     let birge2 = if dof > 0 { (chi2 / dof as f64).max(1.0) } else { 1.0 };
     // Covariance of the free parameters from the Jacobian at the optimum.
-    let j = p.jacobian_for_covariance(&theta);
-    let jtj = j.transpose() * &j;
-    let cov = pseudo_inverse(&jtj) * birge2;
     let free = p.free.clone();
-    let var = |i: usize| free.iter().position(|&f| f == i).map(|c| cov[(c, c)]).unwrap_or(0.0).max(0.0);
+    let covariance = |j: DMatrix<f64>| pseudo_inverse(&(j.transpose() * &j)) * birge2;
+    let variance =
+        |cov: &DMatrix<f64>, i: usize| free.iter().position(|&f| f == i).map(|c| cov[(c, c)]).unwrap_or(0.0).max(0.0);
+    // The profile searches start from the Wald ends of the fit's own (chord) Jacobian: only a
+    // starting point, which moves an end only where a profile has two valleys, and the same
+    // starts as the search has always had. What is reported (σ of ln Rs, the source's volts)
+    // comes from the slopes themselves.
+    let start_cov = covariance(p.jacobian_at(&theta));
+    let (s_rs, s_cn) = (variance(&start_cov, LN_RS).sqrt(), variance(&start_cov, LN_CN).sqrt());
+    let cov = covariance(p.jacobian_for_covariance(&theta));
+    let var = |i: usize| variance(&cov, i);
     let sigma_ln_rs = var(LN_RS).sqrt();
-    let (s_rs, s_cn) = (var(LN_RS).sqrt(), var(LN_CN).sqrt());
     let (rs_points, cn_points) = (goals.points(LN_RS, b), goals.points(LN_CN, b));
     let (p, mut source_ohms) = interval_log(p, theta, LN_RS, s_rs, birge2, &starts, rs_points.as_deref());
     // An interval spanning more than a factor of BOUND_RATIO is a bound, not a measurement:

@@ -107,3 +107,39 @@ fn ladder_on_the_default_board() {
 fn ladder_on_a_faster_board_with_fractional_cycles() {
     coverage(fast_board(), &[4, 5]);
 }
+
+#[test]
+fn no_sigma_is_smaller_than_the_hold_capacitors_prior_allows() {
+    // Scaling every resistance of the network by 1/k and every capacitance by k changes no
+    // reading: the time constants and the capacitor ratios stay. Only the fit's priors on the
+    // hold capacitor (σ = ln 1.05 / 2 for ±5% as 2σ) and on the switch (ln 1.10 / 2) fix that
+    // scale, so no σ of ln Rs can be below 1/√(1/σ_Ch² + 1/σ_Rm²) = 0.0217, however good the
+    // data (Kay 1993 ch. 10, the Bayesian bound with Gaussian priors; from memory). Chords
+    // across the ripple of averaged quantized readings once made it 0.017 for 1 MΩ behind 50 pF.
+    let pins = vec![
+        driven(0, 1.2, 1e6, 50e-12),
+        driven(1, 0.9, 3.16e6, 5e-12),
+        driven(2, 2.1, 470e3, 10e-12),
+        driven(3, 1.6, 1e6, 5e-12),
+        driven(4, 0.7, 100e3, 1e-9),
+        driven(5, 2.4, 47e3, 50e-12),
+    ];
+    for (board, seed) in [(fast_board(), 51019), (default_board(), 50018)] {
+        let (ch, rm) = (board.hold_tolerance, board.switch_tolerance);
+        let prior = |t: f64| (1.0 + t).ln() / 2.0;
+        let least = 1.0 / (prior(ch).powi(-2) + prior(rm).powi(-2)).sqrt();
+        let r = run(&scenario("scale", seed, board, pins.clone()));
+        let mut fitted = 0;
+        for p in &r.pins {
+            let Some(f) = p.fit.as_ref().filter(|_| p.source_ohms.estimate.is_some()) else { continue };
+            fitted += 1;
+            assert!(
+                f.sigma_ln_rs >= 0.99 * least,
+                "seed {seed} ch{}: σ(ln Rs) {:.4} below the {least:.4} the priors allow",
+                p.channel,
+                f.sigma_ln_rs
+            );
+        }
+        assert!(fitted >= 4, "seed {seed}: only {fitted} pins measured");
+    }
+}
