@@ -346,8 +346,8 @@ impl<'a> Problem<'a> {
     /// The Jacobian for the covariance at the optimum: each step shrunk until it moves no cell
     /// mean by more than [`COVARIANCE_REACH_LSB`], so that the slopes are the model's own and
     /// not chords across the ripple of averaged quantized readings.
-    fn jacobian_for_covariance(&self, t: &[f64; N_THETA]) -> DMatrix<f64> {
-        let j = self.jacobian_at(t);
+    /// `j` is the chord Jacobian at `t` ([`Self::jacobian_at`]), which sizes the steps.
+    fn jacobian_for_covariance(&self, t: &[f64; N_THETA], j: DMatrix<f64>) -> DMatrix<f64> {
         let mut steps: Vec<f64> = self.free.iter().map(|&i| Self::step(i, self.input.board.vref_volts)).collect();
         let mut shrunk = false;
         for (col, h) in steps.iter_mut().enumerate() {
@@ -544,9 +544,10 @@ pub fn fit_pin_for<'a>(input: &'a FitInput<'a>, goals: &Goals) -> Option<Fit> {
     // starting point, which moves an end only where a profile has two valleys, and the same
     // starts as the search has always had. What is reported (σ of ln Rs, the source's volts)
     // comes from the slopes themselves.
-    let start_cov = covariance(p.jacobian_at(&theta));
+    let chords = p.jacobian_at(&theta);
+    let start_cov = covariance(chords.clone());
     let (s_rs, s_cn) = (variance(&start_cov, LN_RS).sqrt(), variance(&start_cov, LN_CN).sqrt());
-    let cov = covariance(p.jacobian_for_covariance(&theta));
+    let cov = covariance(p.jacobian_for_covariance(&theta, chords));
     let var = |i: usize| variance(&cov, i);
     let sigma_ln_rs = var(LN_RS).sqrt();
     let (rs_points, cn_points) = (goals.points(LN_RS, b), goals.points(LN_CN, b));
