@@ -73,8 +73,9 @@ pub const STIFF_NODE_FARADS: f64 = 2e-6;
 /// that cross a good part of an LSB sample it differently for each parameter, and along the
 /// network's scale (resistances down by k, capacitances up by k), which changes no reading,
 /// they then find information the data do not hold: a 1 MΩ source behind 50 pF got σ(ln Rs)
-/// 0.017, below the 0.024 its hold capacitor's prior alone allows.
-const COVARIANCE_REACH_LSB: f64 = 0.02;
+/// 0.017, below the 0.024 its hold capacitor's prior alone allows. The accuracy benchmark's
+/// Cramér–Rao bound takes its slopes to the same reach.
+pub const COVARIANCE_REACH_LSB: f64 = 0.02;
 
 /// Intervals of the coarse scan of the other log-parameter at each profile point.
 const PROFILE_SCAN: u8 = 16;

@@ -20,7 +20,7 @@
 use anyhow::{bail, Context, Result};
 use indicatif::{ProgressBar, ProgressStyle};
 use nalgebra::DMatrix;
-use ohmsight::fit::{nuisance_prior_sd, Interval};
+use ohmsight::fit::{nuisance_prior_sd, Interval, COVARIANCE_REACH_LSB};
 use ohmsight::link::InProcessLink;
 use ohmsight::model::{predict, BoardModel, Event, PinParams};
 use ohmsight::session::Session;
@@ -460,23 +460,14 @@ fn pin_fisher(model: &BoardModel, events: &[Event], truth: &PinParams, floor_lsb
         predict(model, &p, events, &mut out);
         out
     };
-    let steps = local_steps(&mean_codes, &theta, &base, DERIVATIVE_REACH_LSB);
+    let steps = local_steps(&mean_codes, &theta, &base, COVARIANCE_REACH_LSB);
     fisher_gaussian(mean_codes, &theta, &steps, &counts, sigma2)
 }
 
-/// Largest move of any cell mean a derivative's step may make, LSB. A mean code is not a
-/// straight line in the level behind it: averaging quantized readings leaves a ripple of one
-/// LSB period (about ±0.002 LSB at 0.5 LSB of noise, ±1.5% in the slope). A central
-/// difference over a step that moves a cell by a good part of an LSB samples that ripple
-/// differently for each parameter, and the errors no longer cancel along a direction that
-/// changes no reading at all (the network's scale: source and switch resistance down by k,
-/// both capacitors up by k). There they added information the data do not hold, and on a
-/// 1 MΩ source behind 50 pF bounded ln Rs at 0.010, below the 0.022 its priors alone allow.
-const DERIVATIVE_REACH_LSB: f64 = 0.02;
-
 /// Each parameter's step for central differences: `base`, shrunk so that no output moves by
 /// more than `reach` either way (taken from a first difference at `base`; the outputs are
-/// smooth, so the move scales with the step).
+/// smooth, so the move scales with the step). The bound takes its slopes as the fit's
+/// covariance does, to [`COVARIANCE_REACH_LSB`], which says why chords would not do.
 fn local_steps(mu: &impl Fn(&[f64]) -> Vec<f64>, theta: &[f64], base: &[f64], reach: f64) -> Vec<f64> {
     (0..theta.len())
         .map(|i| {
@@ -756,13 +747,14 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
     decades.dedup();
     decades.sort_unstable();
     decades.dedup();
-    let mut decade_ratio: Vec<(i32, f64)> = Vec::new();
+    // (decade, median var/CRLB, the same against the bound with the model floor)
+    let mut decade_ratio: Vec<(i32, f64, f64)> = Vec::new();
     for &d in &decades {
         let here: Vec<&&Outcome> = driven.iter().filter(|o| decade(ohms_of(o)) == d).collect();
         let mut errs: Vec<f64> = here.iter().filter_map(|o| rel_err(o)).collect();
         let bounds = here.iter().filter(|o| o.best_ln_rs.is_some() && o.source_ohms.estimate.is_none()).count();
-        let two_sided: Vec<&&&Outcome> = here.iter().filter(|o| is_two_sided(&o.source_ohms)).collect();
-        let inside = two_sided.iter().filter(|o| covers(&o.source_ohms, ohms_of(o))).count();
+        let fits: Vec<(&Interval, f64)> = here.iter().map(|o| (&o.source_ohms, ohms_of(o))).collect();
+        let coverage = Coverage::of(&fits);
         let mut conv: Vec<f64> = here.iter().map(|o| o.conversions as f64).collect();
         let gs: Vec<&Group> = groups.iter().filter(|g| decade(g.ohms) == d).collect();
         let mut sd: Vec<f64> = gs.iter().map(|g| g.bound_sd).collect();
@@ -773,8 +765,9 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
         let mse_mean = (!mse.is_empty()).then(|| mse.iter().sum::<f64>() / mse.len() as f64);
         let pooled = pooled_ratio(&res);
         let med_ratio = median(&mut ratio);
-        if let Some(r) = med_ratio {
-            decade_ratio.push((d, r));
+        let mut floor_ratio: Vec<f64> = res.iter().map(|g| g.variance() / g.floor_sd.powi(2)).collect();
+        if let (Some(r), Some(f)) = (med_ratio, median(&mut floor_ratio)) {
+            decade_ratio.push((d, r, f));
         }
         // The fit's own σ against its actual error: 1.0 when the reported intervals are right.
         let zs: Vec<f64> = here
@@ -793,7 +786,7 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
             bounds,
             pct(median(&mut errs)),
             pct(percentile(&mut errs, 0.95)),
-            format!("{inside}/{}", two_sided.len()),
+            format!("{}/{}", coverage.inside, coverage.two_sided),
             ratio_text(z_rms),
             median(&mut conv).map_or("—".into(), |c| format!("{c:.0}")),
             median(&mut sd).map_or("—".into(), |s| if s.is_finite() { format!("{:.3}", s) } else { "∞".into() }),
@@ -992,7 +985,10 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
         );
     }
     let from = decade(CRLB_FROM_OHMS);
-    let worst = decade_ratio.iter().copied().filter(|(d, _)| *d >= from).max_by(|a, b| a.1.total_cmp(&b.1));
+    let worst_of = |pick: fn(&(i32, f64, f64)) -> f64| {
+        decade_ratio.iter().filter(|r| r.0 >= from).map(|r| (r.0, pick(r))).max_by(|a, b| a.1.total_cmp(&b.1))
+    };
+    let worst = worst_of(|r| r.1);
     let all_groups: Vec<&Group> = groups.iter().filter(|g| g.resolvable()).collect();
     let grid: Vec<f64> = groups.iter().map(|g| g.ohms).collect();
     verdict_line(
@@ -1011,18 +1007,7 @@ fn report(all: &[Outcome], opts: &Options) -> usize {
     );
     // The same against the bound whose cells carry the model floor: how much of the gap is the
     // floor the fit allows for what it does not model, rather than the fit's search.
-    let floor_worst = decades
-        .iter()
-        .filter(|&&d| d >= from)
-        .filter_map(|&d| {
-            let mut r: Vec<f64> = groups
-                .iter()
-                .filter(|g| decade(g.ohms) == d && g.resolvable())
-                .map(|g| g.variance() / g.floor_sd.powi(2))
-                .collect();
-            median(&mut r).map(|m| (d, m))
-        })
-        .max_by(|a, b| a.1.total_cmp(&b.1));
+    let floor_worst = worst_of(|r| r.2);
     println!(
         "        (against the bound with the fit's model floor of {} LSB in every cell: worst median per decade {})",
         ohmsight::fit::MODEL_FLOOR_LSB,
@@ -1241,7 +1226,7 @@ mod tests {
         let base = [2e-3; 3];
         let sd =
             |steps: &[f64]| variance_bound(&fisher_gaussian(mu, &theta, steps, &[64.0; 24], 0.33), &prior, 0).sqrt();
-        let fine = sd(&local_steps(&mu, &theta, &base, DERIVATIVE_REACH_LSB));
+        let fine = sd(&local_steps(&mu, &theta, &base, COVARIANCE_REACH_LSB));
         assert!(fine >= 0.99 * sd_prior, "bound {fine:.4} below the prior's {sd_prior:.4}");
         assert!(fine <= 1.05 * sd_prior, "bound {fine:.4}: the other directions are well measured");
         // The same with every step at its base: the ripple leaks information onto the scale.
