@@ -213,13 +213,14 @@ pub fn describe(t: &LoadTest, source_high: f64, assumed_farads: f64) -> String {
         )
     } else if t.moved() {
         format!(
-            "a burst of {} conversions moved it {} LSB (±{}) toward the precharge: a source below {} behind less than {}, or an open pin{}; the survey's conversions cannot tell them apart",
+            "a burst of {} conversions moved it {} LSB (±{}) toward the precharge: a source below {} behind less than {}, or a node of more than {} behind a larger source or none{}; the survey's conversions cannot tell them apart",
             t.conversions,
             lsb(t.drift_lsb),
             lsb(t.se_lsb),
             crate::units::ohms(source_high),
             farads(assumed_farads),
-            t.open_farads.map(|c| format!(" behind about {}", farads(c))).unwrap_or_default(),
+            farads(assumed_farads),
+            t.open_farads.map(|c| format!(" (an open pin: about {})", farads(c))).unwrap_or_default(),
         )
     } else {
         format!(
@@ -253,7 +254,13 @@ mod tests {
         };
         assert!(t.moved());
         let words = describe(&t, 13.2e6, 2e-6);
-        assert!(words.contains("or an open pin behind about 4.70 µF"), "{words}");
+        // The truth may also be a source above the bound behind a node above the assumption
+        // (470 kΩ behind 2.2 µF reads this way), so the note names that too.
+        assert!(
+            words
+                .contains("or a node of more than 2.00 µF behind a larger source or none (an open pin: about 4.70 µF)"),
+            "{words}"
+        );
         // Within four standard errors of no drift: a stiff source, not moved.
         let still = LoadTest { drift_lsb: 0.3, se_lsb: 0.1, open_farads: Some(42.7e-6), ..t };
         assert!(!still.moved());
