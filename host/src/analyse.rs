@@ -357,13 +357,15 @@ pub fn judge_pins(
 }
 
 /// Why a pin opted in for pulls had no pull test in a run that did all it planned: the same
-/// sizing the survey used ([`crate::plan::Plan::pull_test`]) from the fit's upper end of the node.
-fn pull_not_run(fe: &ohmsight_protocol::FrontEnd, node_high: Option<f64>) -> String {
-    let node = node_high.unwrap_or(crate::plan::PULL_NODE_UNSIZED_FARADS);
+/// sizing the survey used ([`crate::plan::Plan::pull_test`]) from the fit's node
+/// ([`crate::plan::pull_node_farads`]).
+fn pull_not_run(fe: &ohmsight_protocol::FrontEnd, node_farads: &crate::fit::Interval) -> String {
+    let (node, upper) = crate::plan::pull_node_farads(node_farads);
     match crate::plan::pull_rest_ns(fe, node) {
         None => "the board states no pull resistance".into(),
         Some(ns) => format!(
-            "a node up to {} would need {} between conversions to settle under the pull; the test rests at most {}",
+            "a node {} {} would need {} between conversions to settle under the pull; the test rests at most {}",
+            if upper { "up to" } else { "of at least" },
             crate::units::farads(node),
             if ns.is_finite() { crate::units::ns(ns) } else { "forever".into() },
             crate::units::ns(f64::from(crate::plan::PULL_REST_MAX_NS)),
@@ -379,7 +381,7 @@ pub fn report(record: &RunRecord, model: &BoardModel, pins: &[PinEvidence], fits
     for (r, ev) in judged.iter_mut().zip(pins) {
         r.pull_source_ohms = ev.pull.as_deref().and_then(|cells| pull_estimate(model, &record.board.front_end, cells));
         if record.board.may_pull(r.channel) && ev.pull.is_none() && ev.complete && record.run.complete {
-            r.pull_not_run = Some(pull_not_run(&front_end, r.node_farads.high));
+            r.pull_not_run = Some(pull_not_run(&front_end, &r.node_farads));
         }
     }
     SurveyReport {

@@ -112,6 +112,17 @@ impl ScreenResult {
 /// The node a pull test is sized for where the fit could not size the pin's node (a stiff
 /// pin), F; the test's repeated pulled-up setting shows whether it was enough.
 pub const PULL_NODE_UNSIZED_FARADS: f64 = 1e-9;
+
+/// The node a pin's pull test is sized for, F, and whether that is the fit's upper end (`true`)
+/// or only the least the node holds (`false`): the upper end where the fit has one; otherwise
+/// its lower end where that is larger than [`PULL_NODE_UNSIZED_FARADS`] (a node open above but
+/// at least 800 nF is no 1 nF node), else that nominal node.
+pub fn pull_node_farads(node: &crate::fit::Interval) -> (f64, bool) {
+    match node.high {
+        Some(h) => (h, true),
+        None => (node.low.unwrap_or(0.0).max(PULL_NODE_UNSIZED_FARADS), false),
+    }
+}
 /// Longest rest between a pull test's conversions, ns: 200 ms for a setting's 48 conversions
 /// keeps the test under half a minute even for the largest node it serves.
 pub const PULL_REST_MAX_NS: u32 = 4_000_000;
@@ -356,8 +367,8 @@ impl Plan {
     /// again, at the longest sample time, each setting led by unrecorded conversions while the
     /// node settles. The two pulled-up cells follow different levels, so they agree only if the
     /// node settled: that is the test's own check. `node_farads_high` is the largest node the
-    /// pin may have (the fit's upper end; [`PULL_NODE_UNSIZED_FARADS`] where the fit could not
-    /// size it, which the check then tests), and sets the least rest between conversions: five
+    /// pin may have ([`pull_node_farads`]: the fit's upper end, else the least it holds, else
+    /// [`PULL_NODE_UNSIZED_FARADS`], which the check then tests), and sets the least rest between conversions: five
     /// time constants of the pull alone against the node and the hold capacitor (the source in
     /// parallel only shortens it), at most [`PULL_REST_MAX_NS`]. The rest is then lengthened so
     /// that each setting's recorded conversions span [`PULL_SPAN_NS`] (or a multiple), evenly:
@@ -498,5 +509,12 @@ mod tests {
         // Too large a node for the pull to settle, or no pull at all: no pull test.
         assert_eq!(plan.pull_test(&fe, 3, 100e-9), None);
         assert_eq!(plan.pull_test(&FrontEnd { pull_milliohms: 0, ..fe.clone() }, 3, 10e-12), None);
+        // Sized by the node's upper end; open above, by the least it holds (never below the
+        // nominal unsized node); with neither, by the nominal one.
+        let iv = |low, high| crate::fit::Interval { estimate: None, low, high };
+        assert_eq!(pull_node_farads(&iv(Some(0.5e-6), Some(1.5e-6))), (1.5e-6, true));
+        assert_eq!(pull_node_farads(&iv(Some(0.5e-6), None)), (0.5e-6, false));
+        assert_eq!(pull_node_farads(&iv(Some(1e-12), None)), (PULL_NODE_UNSIZED_FARADS, false));
+        assert_eq!(pull_node_farads(&crate::fit::Interval::NONE), (PULL_NODE_UNSIZED_FARADS, false));
     }
 }

@@ -555,10 +555,11 @@ fn measure<L: Link>(
                 todo.push((Purpose::Load, r.channel, crate::burst::experiment(plan, &model, r.channel, far)));
             }
             // Last on the pin, where the board lets it be pulled; the rest between conversions
-            // is sized from the node's upper end, or from a nominal node where the fit has none.
+            // is sized from the node's upper end, or from the least it holds where the fit has
+            // none (see plan::pull_node_farads).
             if runner.record.board.may_pull(r.channel) && ev.pull.is_none() {
-                let node_high = r.node_farads.high.unwrap_or(crate::plan::PULL_NODE_UNSIZED_FARADS);
-                if let Some(exp) = plan.pull_test(&front_end, r.channel, node_high) {
+                let (node, _) = crate::plan::pull_node_farads(&r.node_farads);
+                if let Some(exp) = plan.pull_test(&front_end, r.channel, node) {
                     todo.push((Purpose::Pull, r.channel, exp));
                 }
             }
