@@ -41,8 +41,12 @@ const NODE_FARADS: [f64; 7] = [5e-12, 50e-12, 1e-9, 100e-9, 1e-6, 4.7e-6, 10e-6]
 const QUICK_NODE_FARADS: [f64; 3] = [5e-12, 1e-9, 4.7e-6];
 /// Sources measured through mains hum, Ω.
 const HUM_OHMS: [f64; 7] = [1e3, 4.7e3, 10e3, 47e3, 100e3, 470e3, 1e6];
-/// Hum amplitudes at the source, V (0 is the plain grid).
+/// Hum amplitudes at the source, V (0: the quiet twins of [`quiet_cases`]).
 const HUM_VOLTS: [f64; 3] = [0.010, 0.030, 0.050];
+/// Scenario seeds of the quiet twins of the hum cases start this far above a board's and
+/// seed's grid boards (which use the ten seeds above `50_000 + 1_000·board + 10·seed`), so the
+/// grid's own boards are dealt exactly as without them.
+const QUIET_SEED_OFFSET: u64 = 500;
 /// Hum frequencies, Hz.
 const HUM_HZ: [f64; 2] = [50.0, 60.0];
 /// Node capacitance of the hum cases, F (a pin and a short trace).
@@ -190,6 +194,17 @@ fn cases(board: usize, quick: bool, vref: f64) -> Vec<Case> {
     out
 }
 
+/// The quiet twins of the 30 mV, 50 Hz hum cases: the same sources (level and resistance) and
+/// node with no hum (0 V, labelled 50 Hz), on boards of their own: the row the hum rows are
+/// compared with.
+fn quiet_cases(board: usize, quick: bool, vref: f64) -> Vec<Case> {
+    cases(board, quick, vref)
+        .into_iter()
+        .filter(|c| c.hum == Some((0.030, HUM_HZ[0])))
+        .map(|c| Case { hum: Some((0.0, HUM_HZ[0])), ..c })
+        .collect()
+}
+
 fn setup(channel: u8, case: &Case) -> PinSetup {
     let pin = match case.truth {
         Truth::Driven { volts, ohms } | Truth::Rail { volts, ohms } => driven(channel, volts, ohms, case.node_farads),
@@ -255,6 +270,14 @@ pub fn accuracy(args: &[String]) -> Result<()> {
             fastrand::Rng::with_seed(0x5eed_0000 + 100 * b as u64 + seed as u64).shuffle(&mut all);
             for (chunk, pins) in all.chunks(MAX_PINS).enumerate() {
                 let scenario_seed = 50_000 + 1_000 * b as u64 + 10 * seed as u64 + chunk as u64;
+                if opts.board_seed.is_none_or(|s| s == scenario_seed) {
+                    jobs.push((scenario_seed, b, pins.to_vec()));
+                }
+            }
+            // The hum cases' quiet twins, on boards of their own (the grid's deal unchanged).
+            let quiet = quiet_cases(b, opts.quick, profile.vref_volts);
+            for (chunk, pins) in quiet.chunks(MAX_PINS).enumerate() {
+                let scenario_seed = 50_000 + 1_000 * b as u64 + QUIET_SEED_OFFSET + 10 * seed as u64 + chunk as u64;
                 if opts.board_seed.is_none_or(|s| s == scenario_seed) {
                     jobs.push((scenario_seed, b, pins.to_vec()));
                 }
@@ -1118,6 +1141,8 @@ fn hum_report(all: &[Outcome]) -> usize {
             && covers(&o.source_ohms, ohms_of(o))
     };
     let mut misses = 0;
+    // The quiet row's count of sources within 10% with the truth inside, for the hum rows.
+    let mut quiet: Option<(usize, usize)> = None;
     for (mv, hz) in levels {
         let here: Vec<&&Outcome> = hum
             .iter()
@@ -1131,9 +1156,12 @@ fn hum_report(all: &[Outcome]) -> usize {
         let inside = fitted.iter().filter(|o| covers(&o.source_ohms, ohms_of(o))).count();
         let low = one_k.iter().filter(|o| low_ok(o)).count();
         let good = rest.iter().filter(|o| close(o)).count();
+        if mv == 0 {
+            quiet = Some((good, rest.len()));
+        }
         println!(
             "{:<14} {:>5} {:>9} {:>9} {:>9} {:>10} {:>8}",
-            format!("{mv} mV {hz} Hz"),
+            if mv == 0 { "quiet".to_string() } else { format!("{mv} mV {hz} Hz") },
             here.len(),
             format!("{low}/{}", one_k.len()),
             format!("{good}/{}", rest.len()),
@@ -1150,6 +1178,11 @@ fn hum_report(all: &[Outcome]) -> usize {
                 one_k.len(),
                 rest.len()
             );
+            if let Some((q, n)) = quiet {
+                println!(
+                    "        the 30 mV 50 Hz sources with no hum (other units): within 10% with the truth inside {q}/{n}"
+                );
+            }
             let short = one_k.iter().filter(|o| !low_ok(o)).chain(rest.iter().filter(|o| !close(o)));
             for o in short {
                 println!("        {}", case_text(o));
@@ -1158,7 +1191,8 @@ fn hum_report(all: &[Outcome]) -> usize {
     }
     println!(
         "  1 kΩ ≤ 3k: 1 kΩ sources reported as at most 3 kΩ; ≤ 10% err: 4.7 kΩ–1 MΩ sources whose estimate is within\n  \
-         10% and whose interval holds the truth; med err over those; coverage: truth inside the interval"
+         10% and whose interval holds the truth; med err over those; coverage: truth inside the interval;\n  \
+         quiet: the 30 mV 50 Hz sources and node with no hum, on boards of their own"
     );
     misses
 }
@@ -1293,6 +1327,29 @@ mod tests {
             Truth::Driven { volts, .. } => (0.3..=3.0).contains(&volts),
             _ => true,
         }));
+        // And the level 0: the hum cases' sources with no hum.
+        let q = quiet_cases(0, false, 3.3);
+        assert_eq!(q.len(), HUM_OHMS.len());
+        assert!(q.iter().all(|c| c.hum.is_some_and(|(v, _)| v == 0.0) && c.node_farads == HUM_NODE_FARADS));
+        // Twins of the 30 mV, 50 Hz cases: the same levels.
+        let twins: Vec<f64> = c
+            .iter()
+            .filter(|c| c.hum == Some((0.030, 50.0)))
+            .chain(&q)
+            .map(|c| match c.truth {
+                Truth::Driven { volts, .. } => volts,
+                _ => f64::NAN,
+            })
+            .collect();
+        assert_eq!(twins[..q.len()], twins[q.len()..]);
+        let ohms: Vec<f64> = q
+            .iter()
+            .map(|c| match c.truth {
+                Truth::Driven { ohms, .. } => ohms,
+                _ => f64::NAN,
+            })
+            .collect();
+        assert_eq!(ohms, HUM_OHMS.to_vec());
     }
 
     #[test]
