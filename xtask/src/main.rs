@@ -308,6 +308,10 @@ fn study(args: &[String]) -> Result<()> {
         }
     }
     let source = if floating { Source::Floating } else { Source::Driven { volts, ohms } };
+    // An open pin's source is infinite: its coverage is judged against that, not --ohms.
+    if floating {
+        ohms = f64::INFINITY;
+    }
     println!(
         "truth: {} {}  Cn {}",
         if floating { "floating".to_string() } else { units::ohms(ohms) },
@@ -337,7 +341,7 @@ fn study(args: &[String]) -> Result<()> {
         let ok = (void || ohmsight_tests::covers(&rs, ohms)) && ohmsight_tests::covers(&p.node_farads, farads);
         inside += usize::from(ok);
         let fit = p.fit.as_ref();
-        if let (Some(f), Some(e)) = (fit, rs.estimate) {
+        if let (Some(f), Some(e)) = (fit.filter(|_| !floating), rs.estimate) {
             zs.push((e / ohms).ln() / f.sigma_ln_rs);
         }
         if let Some(f) = fit.filter(|_| std::env::var_os("STUDY_OBJECTIVE").is_some()) {
