@@ -368,8 +368,8 @@ impl Plan {
     /// node settles. The two pulled-up cells follow different levels, so they agree only if the
     /// node settled: that is the test's own check. `node_farads_high` is the largest node the
     /// pin may have ([`pull_node_farads`]: the fit's upper end, else the least it holds, else
-    /// [`PULL_NODE_UNSIZED_FARADS`], which the check then tests), and sets the least rest between conversions: five
-    /// time constants of the pull alone against the node and the hold capacitor (the source in
+    /// [`PULL_NODE_UNSIZED_FARADS`], which the check then tests), and sets the least rest
+    /// between conversions: five time constants of the pull alone against the node and the hold capacitor (the source in
     /// parallel only shortens it), at most [`PULL_REST_MAX_NS`]. The rest is then lengthened so
     /// that each setting's recorded conversions span [`PULL_SPAN_NS`] (or a multiple), evenly:
     /// mains hum averages out of each setting's mean. `None` when the pull is too weak for that

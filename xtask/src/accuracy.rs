@@ -41,7 +41,7 @@ const NODE_FARADS: [f64; 7] = [5e-12, 50e-12, 1e-9, 100e-9, 1e-6, 4.7e-6, 10e-6]
 const QUICK_NODE_FARADS: [f64; 3] = [5e-12, 1e-9, 4.7e-6];
 /// Sources measured through mains hum, Ω.
 const HUM_OHMS: [f64; 7] = [1e3, 4.7e3, 10e3, 47e3, 100e3, 470e3, 1e6];
-/// Hum amplitudes at the source, V (0: the quiet twins of [`quiet_cases`]).
+/// Hum amplitudes at the source, V (0: the quiet twins of [`quiet_twins`]).
 const HUM_VOLTS: [f64; 3] = [0.010, 0.030, 0.050];
 /// Scenario seeds of the quiet twins of the hum cases start this far above a board's and
 /// seed's grid boards (which use the ten seeds above `50_000 + 1_000·board + 10·seed`), so the
@@ -194,14 +194,14 @@ fn cases(board: usize, quick: bool, vref: f64) -> Vec<Case> {
     out
 }
 
-/// The quiet twins of the 30 mV, 50 Hz hum cases: the same sources (level and resistance) and
-/// node with no hum (0 V, labelled 50 Hz), on boards of their own: the row the hum rows are
-/// compared with.
-fn quiet_cases(board: usize, quick: bool, vref: f64) -> Vec<Case> {
-    cases(board, quick, vref)
-        .into_iter()
+/// The quiet twins of the 30 mV, 50 Hz hum cases among `cases`: the same sources (level and
+/// resistance) and node with no hum (0 V, labelled 50 Hz), on boards of their own: the row the
+/// hum rows are compared with.
+fn quiet_twins(cases: &[Case]) -> Vec<Case> {
+    cases
+        .iter()
         .filter(|c| c.hum == Some((0.030, HUM_HZ[0])))
-        .map(|c| Case { hum: Some((0.0, HUM_HZ[0])), ..c })
+        .map(|c| Case { hum: Some((0.0, HUM_HZ[0])), ..*c })
         .collect()
 }
 
@@ -262,24 +262,22 @@ pub fn accuracy(args: &[String]) -> Result<()> {
             if opts.hum_only {
                 all.retain(|c| c.hum.is_some());
             }
+            let quiet = quiet_twins(&all);
             // Each seed deals the cases onto its boards in another order. The pins of one board
             // share its unit (hold capacitor, switch, offset), so with one order every seed
             // would put the same cases together and the points' variances over seeds would all
             // be drawn from the same few units: their median would then be one unit draw's luck
             // (at c98ceaf every 5 pF point of the default board read 1.8–2.6 together).
             fastrand::Rng::with_seed(0x5eed_0000 + 100 * b as u64 + seed as u64).shuffle(&mut all);
-            for (chunk, pins) in all.chunks(MAX_PINS).enumerate() {
-                let scenario_seed = 50_000 + 1_000 * b as u64 + 10 * seed as u64 + chunk as u64;
-                if opts.board_seed.is_none_or(|s| s == scenario_seed) {
-                    jobs.push((scenario_seed, b, pins.to_vec()));
-                }
-            }
-            // The hum cases' quiet twins, on boards of their own (the grid's deal unchanged).
-            let quiet = quiet_cases(b, opts.quick, profile.vref_volts);
-            for (chunk, pins) in quiet.chunks(MAX_PINS).enumerate() {
-                let scenario_seed = 50_000 + 1_000 * b as u64 + QUIET_SEED_OFFSET + 10 * seed as u64 + chunk as u64;
-                if opts.board_seed.is_none_or(|s| s == scenario_seed) {
-                    jobs.push((scenario_seed, b, pins.to_vec()));
+            // The grid's boards, then the quiet twins on boards of their own (the grid's deal
+            // unchanged).
+            let first_seed = 50_000 + 1_000 * b as u64 + 10 * seed as u64;
+            for (cases, first_seed) in [(&all, first_seed), (&quiet, first_seed + QUIET_SEED_OFFSET)] {
+                for (chunk, pins) in cases.chunks(MAX_PINS).enumerate() {
+                    let scenario_seed = first_seed + chunk as u64;
+                    if opts.board_seed.is_none_or(|s| s == scenario_seed) {
+                        jobs.push((scenario_seed, b, pins.to_vec()));
+                    }
                 }
             }
         }
@@ -1327,29 +1325,13 @@ mod tests {
             Truth::Driven { volts, .. } => (0.3..=3.0).contains(&volts),
             _ => true,
         }));
-        // And the level 0: the hum cases' sources with no hum.
-        let q = quiet_cases(0, false, 3.3);
+        // And the level 0: twins of the 30 mV, 50 Hz cases, the same sources with no hum.
+        let q = quiet_twins(&c);
         assert_eq!(q.len(), HUM_OHMS.len());
         assert!(q.iter().all(|c| c.hum.is_some_and(|(v, _)| v == 0.0) && c.node_farads == HUM_NODE_FARADS));
-        // Twins of the 30 mV, 50 Hz cases: the same levels.
-        let twins: Vec<f64> = c
-            .iter()
-            .filter(|c| c.hum == Some((0.030, 50.0)))
-            .chain(&q)
-            .map(|c| match c.truth {
-                Truth::Driven { volts, .. } => volts,
-                _ => f64::NAN,
-            })
-            .collect();
-        assert_eq!(twins[..q.len()], twins[q.len()..]);
-        let ohms: Vec<f64> = q
-            .iter()
-            .map(|c| match c.truth {
-                Truth::Driven { ohms, .. } => ohms,
-                _ => f64::NAN,
-            })
-            .collect();
-        assert_eq!(ohms, HUM_OHMS.to_vec());
+        let at_30: Vec<Truth> = c.iter().filter(|c| c.hum == Some((0.030, 50.0))).map(|c| c.truth).collect();
+        assert_eq!(q.iter().map(|c| c.truth).collect::<Vec<_>>(), at_30);
+        assert!(q.iter().zip(HUM_OHMS).all(|(c, r)| matches!(c.truth, Truth::Driven { ohms, .. } if ohms == r)));
     }
 
     #[test]

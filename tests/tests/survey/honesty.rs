@@ -39,6 +39,16 @@ fn board() -> &'static SurveyReport {
     })
 }
 
+/// Each pin's channel, source resistance (`None` for an open pin) and node, as wired.
+fn truths(pins: &[PinSetup]) -> Vec<(u8, Option<f64>, f64)> {
+    pins.iter()
+        .map(|p| match p.source {
+            ohmsight_virtual::Source::Driven { ohms, .. } => (p.channel, Some(ohms), p.node_farads),
+            _ => (p.channel, None, p.node_farads),
+        })
+        .collect()
+}
+
 fn pin(r: &SurveyReport, ch: u8) -> &PinReport {
     r.pins.iter().find(|p| p.channel == ch).expect("pin surveyed")
 }
@@ -334,13 +344,7 @@ fn a_second_explanation_only_a_little_worse_is_not_excluded() {
         driven(14, 2.175, 3.162e3, 10e-6),
         driven(15, 1.525, 1e6, 100e-9),
     ];
-    let truths: Vec<(u8, Option<f64>, f64)> = pins
-        .iter()
-        .map(|p| match p.source {
-            ohmsight_virtual::Source::Driven { ohms, .. } => (p.channel, Some(ohms), p.node_farads),
-            _ => (p.channel, None, p.node_farads),
-        })
-        .collect();
+    let truths = truths(&pins);
     let r = run(&scenario("greenhouse controller", 50035, default_board(), pins));
     for (ch, ohms, farads) in truths {
         let p = pin(&r, ch);
@@ -368,11 +372,11 @@ fn a_node_that_moved_under_the_burst_keeps_every_explanation_in_its_note() {
         driven(2, 1.5, 470e3, 2.2e-6),
         driven(3, 1.5, 470e3, 3.3e-6),
     ];
-    let truths: Vec<(u8, f64, f64)> =
-        vec![(0, 150e3, 2.2e-6), (1, 150e3, 3.3e-6), (2, 470e3, 2.2e-6), (3, 470e3, 3.3e-6)];
+    let truths = truths(&pins);
     let r = run(&scenario("pump-house logger", 1331, default_board(), pins));
     let mut moved = 0;
     for (ch, ohms, farads) in truths {
+        let ohms = ohms.expect("every divider is driven");
         let p = pin(&r, ch);
         assert_ne!(p.verdict, Verdict::Floating, "{}", about(p));
         assert!(!misses(&p.node_farads, farads), "{}", about(p));
