@@ -76,7 +76,10 @@ pub fn open_pty() -> io::Result<(TTYPort, String)> {
 ///
 /// A port that reports a hang-up (a pseudo-terminal whose client closed it) is watched until a
 /// client opens it again; a half-received request of the client that left is discarded, and so
-/// is whatever it left unread. `on_event` hears of clients coming and going.
+/// is whatever it left unread. A fresh port is not cleared: no client has been there, and a
+/// client may open it the moment the first look sees nobody. (One that opens the port in the
+/// instant after another left can lose its first bytes with the leaver's; the host asks for its
+/// hello again.) `on_event` hears of clients coming and going.
 pub fn serve<P: SerialPort>(
     port: &mut P,
     scenario: &Scenario,
@@ -113,7 +116,12 @@ pub fn serve<P: SerialPort>(
                 odd_errors = if e.kind() == ErrorKind::BrokenPipe { 0 } else { odd_errors + 1 };
                 if !hung_up {
                     hung_up = true;
-                    forget_client(&mut engine, port);
+                    // Only a client that was here can have left bytes behind. A new
+                    // pseudo-terminal holds none, and clearing it could drop the first bytes
+                    // of a client that opens it between the poll and the clear.
+                    if connected {
+                        forget_client(&mut engine, port);
+                    }
                 }
                 if connected {
                     connected = false;
@@ -252,6 +260,149 @@ mod tests {
         assert_eq!(stats.clients, 2, "{events:?}");
         assert_eq!(events.iter().filter(|e| matches!(e, ServeEvent::ClientLeft { .. })).count(), 2, "{events:?}");
         assert!(stats.bytes_in > 0 && stats.bytes_out > stats.bytes_in);
+    }
+
+    /// A port that reports a hang-up on its first read while a client opens it and sends
+    /// `arriving` at that very moment: the race of a client that opens a fresh pseudo-terminal
+    /// between the server's poll and whatever the server does about the hang-up.
+    struct RacingPort {
+        arriving: Vec<u8>,
+        unread: std::sync::Mutex<Vec<u8>>,
+        written: Vec<u8>,
+        reads: usize,
+        stop: Arc<AtomicBool>,
+    }
+
+    impl io::Read for RacingPort {
+        fn read(&mut self, buf: &mut [u8]) -> io::Result<usize> {
+            self.reads += 1;
+            if self.reads == 1 {
+                self.unread.lock().unwrap().extend_from_slice(&self.arriving);
+                return Err(io::Error::from(ErrorKind::BrokenPipe));
+            }
+            if self.reads > 20 {
+                self.stop.store(true, Ordering::Relaxed);
+            }
+            let mut unread = self.unread.lock().unwrap();
+            if unread.is_empty() {
+                return Err(io::Error::from(ErrorKind::TimedOut));
+            }
+            let n = unread.len().min(buf.len());
+            buf[..n].copy_from_slice(&unread[..n]);
+            unread.drain(..n);
+            Ok(n)
+        }
+    }
+
+    impl io::Write for RacingPort {
+        fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
+            self.written.extend_from_slice(buf);
+            Ok(buf.len())
+        }
+        fn flush(&mut self) -> io::Result<()> {
+            Ok(())
+        }
+    }
+
+    impl SerialPort for RacingPort {
+        fn clear(&self, _: ClearBuffer) -> serialport::Result<()> {
+            self.unread.lock().unwrap().clear();
+            Ok(())
+        }
+        fn set_timeout(&mut self, _: Duration) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn name(&self) -> Option<String> {
+            None
+        }
+        fn baud_rate(&self) -> serialport::Result<u32> {
+            Ok(115_200)
+        }
+        fn data_bits(&self) -> serialport::Result<serialport::DataBits> {
+            Ok(serialport::DataBits::Eight)
+        }
+        fn flow_control(&self) -> serialport::Result<serialport::FlowControl> {
+            Ok(serialport::FlowControl::None)
+        }
+        fn parity(&self) -> serialport::Result<serialport::Parity> {
+            Ok(serialport::Parity::None)
+        }
+        fn stop_bits(&self) -> serialport::Result<serialport::StopBits> {
+            Ok(serialport::StopBits::One)
+        }
+        fn timeout(&self) -> Duration {
+            READ_SLICE
+        }
+        fn set_baud_rate(&mut self, _: u32) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn set_data_bits(&mut self, _: serialport::DataBits) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn set_flow_control(&mut self, _: serialport::FlowControl) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn set_parity(&mut self, _: serialport::Parity) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn set_stop_bits(&mut self, _: serialport::StopBits) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn write_request_to_send(&mut self, _: bool) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn write_data_terminal_ready(&mut self, _: bool) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn read_clear_to_send(&mut self) -> serialport::Result<bool> {
+            Ok(true)
+        }
+        fn read_data_set_ready(&mut self) -> serialport::Result<bool> {
+            Ok(true)
+        }
+        fn read_ring_indicator(&mut self) -> serialport::Result<bool> {
+            Ok(false)
+        }
+        fn read_carrier_detect(&mut self) -> serialport::Result<bool> {
+            Ok(true)
+        }
+        fn bytes_to_read(&self) -> serialport::Result<u32> {
+            Ok(self.unread.lock().unwrap().len() as u32)
+        }
+        fn bytes_to_write(&self) -> serialport::Result<u32> {
+            Ok(0)
+        }
+        fn try_clone(&self) -> serialport::Result<Box<dyn SerialPort>> {
+            Err(serialport::Error::new(serialport::ErrorKind::Unknown, "not in this test"))
+        }
+        fn set_break(&self) -> serialport::Result<()> {
+            Ok(())
+        }
+        fn clear_break(&self) -> serialport::Result<()> {
+            Ok(())
+        }
+    }
+
+    #[test]
+    fn a_client_that_opens_the_fresh_port_as_it_is_polled_is_answered() {
+        // The first look at a new pseudo-terminal sees no client; one opens it and sends a hello
+        // before the server acts on that. Nobody was there before, so nothing may be cleared.
+        let mut frame = [0u8; ohmsight_protocol::MAX_FRAME];
+        let n = ohmsight_protocol::encode_frame(&Request::Hello { protocol: PROTOCOL_VERSION, seq: 7 }, &mut frame)
+            .unwrap();
+        let stop = Arc::new(AtomicBool::new(false));
+        let mut port = RacingPort {
+            arriving: frame[..n].to_vec(),
+            unread: Default::default(),
+            written: Vec::new(),
+            reads: 0,
+            stop: stop.clone(),
+        };
+        let stats = serve(&mut port, &one_pin(), &stop, &mut |_| {}).unwrap();
+        let mut acc = ohmsight_protocol::FrameAccumulator::new();
+        let answers: Vec<_> = port.written.iter().filter_map(|&b| acc.push::<Response>(b)).collect();
+        assert!(matches!(answers[..], [Ok(Response::Hello { seq: 7, .. })]), "{answers:?}");
+        assert_eq!((stats.clients, stats.bytes_in), (1, n as u64));
     }
 
     #[test]
