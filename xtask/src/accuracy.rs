@@ -1065,7 +1065,11 @@ fn case_text(o: &Outcome) -> String {
         Truth::Floating => "open".into(),
         Truth::Rail { volts, ohms } => format!("rail {} behind {}", units::volts(volts), units::ohms(ohms)),
     };
-    let hum = o.case.hum.map_or(String::new(), |(v, hz)| format!(", hum {:.0} mV {hz:.0} Hz", v * 1e3));
+    let hum = match o.case.hum {
+        Some((0.0, _)) => ", no hum".to_string(),
+        Some((v, hz)) => format!(", hum {:.0} mV {hz:.0} Hz", v * 1e3),
+        None => String::new(),
+    };
     format!(
         "{} board (seed {} ch{}), {truth}, Cn {}{hum}: {} Rs {}{} Cn {}",
         BOARD_NAMES[o.case.board],
@@ -1167,6 +1171,12 @@ fn hum_report(all: &[Outcome]) -> usize {
             format!("{inside}/{}", fitted.len()),
             here.iter().filter(|o| o.verdict == Verdict::Unknown).count()
         );
+        if mv == 0 {
+            // The quiet sources that fall short too, to set beside the hum rows' list.
+            for o in rest.iter().filter(|o| !close(o)) {
+                println!("        {}", case_text(o));
+            }
+        }
         if mv == 30 {
             let ok = low == one_k.len() && good == rest.len();
             misses += usize::from(!ok);
