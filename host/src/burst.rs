@@ -22,8 +22,12 @@ use ohmsight_protocol::{Experiment, MAX_CONVERSIONS, MAX_PERIODS};
 
 /// Blocks of the burst (cells of its period sweep).
 pub const BLOCKS: usize = 12;
-/// Length of one block, s.
-pub const BLOCK_S: f64 = 10e-3;
+/// Length of one block, s. The drift of a large open node grows with the burst while its
+/// standard error hardly falls (the model's floor sets most of it), so the largest open node the
+/// burst tells from a stiff source grows about as the burst's length: 12 × 40 ms reaches about
+/// 100–200 µF on the default board, 12 × 10 ms reached a few tens of microfarads (an open pin
+/// behind 47 µF read `driven`).
+pub const BLOCK_S: f64 = 40e-3;
 /// Drift, in standard errors beyond what the assumption allows, that refutes it. A refuted
 /// bound turns a `driven` verdict into `unknown`, so the evidence must be strong.
 pub const Z_REFUTE: f64 = 4.0;
@@ -203,13 +207,15 @@ pub fn describe(t: &LoadTest, source_high: f64, assumed_farads: f64) -> String {
     let farads = crate::units::farads;
     if t.refuted {
         format!(
-            "a stiff reading that drifted {} LSB toward the precharge under a burst of {} conversions, where no source below {} behind less than {} drifts more than {} LSB: an open pin{}, or a large source behind a node of that size",
+            "a stiff reading that drifted {} LSB toward the precharge under a burst of {} conversions, where no source below {} behind less than {} drifts more than {} LSB: an open pin{}, or a source behind a smaller node, with the source above {} or the node above {}",
             lsb(t.drift_lsb),
             t.conversions,
             crate::units::ohms(source_high),
             farads(assumed_farads),
             lsb(t.allowed_lsb),
             t.open_farads.map(|c| format!(" behind about {}", farads(c))).unwrap_or_default(),
+            crate::units::ohms(source_high),
+            farads(assumed_farads),
         )
     } else if t.moved() {
         format!(
@@ -265,6 +271,17 @@ mod tests {
         let still = LoadTest { drift_lsb: 0.3, se_lsb: 0.1, open_farads: Some(42.7e-6), ..t };
         assert!(!still.moved());
         assert!(describe(&still, 1.2e3, 2e-6).contains("not an open pin unless its node holds more than 42.7 µF"));
+        // Refuted: 100 kΩ behind 4.7 µF (a sump monitor's pump-current input) drifts like an
+        // open pin behind 9.14 µF. A source pulls its node back, so a driven node that drifts as
+        // much is smaller than the open one: the note must not name a node "of that size".
+        let refuted = LoadTest { refuted: true, drift_lsb: 8.91, allowed_lsb: 0.0, open_farads: Some(9.14e-6), ..t };
+        let words = describe(&refuted, 4.09e3, 2e-6);
+        assert!(
+            words.contains(
+                "an open pin behind about 9.14 µF, or a source behind a smaller node, with the source above 4.09 kΩ or the node above 2.00 µF"
+            ),
+            "{words}"
+        );
     }
     use crate::model::Event;
     use ohmsight_protocol::{FrontEnd, Precharge};

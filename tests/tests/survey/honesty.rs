@@ -409,3 +409,33 @@ fn an_open_pin_seen_only_through_slow_drift_keeps_its_filter_inside_the_node_int
         assert!(p.node_farads.low.is_some(), "seed {seed}: the case: a node interval: {}", about(p));
     }
 }
+
+#[test]
+fn an_open_pin_behind_47_uf_is_not_called_driven_and_a_stiff_source_behind_it_still_is() {
+    // A cellar sump monitor: an open float switch whose 47 µF debounce capacitor stays on the
+    // pin, a level buffer behind the same capacitor, and the pump's current sense (100 kΩ
+    // behind 4.7 µF, 50 mV of 50 Hz). With a 120 ms burst such a pin read `driven < 3.92 kΩ if
+    // C < 2.00 µF` (a survey of the same board with one more pin: a drift of 0.30 ± 0.11 LSB,
+    // under four standard errors; reach 32.2 µF), and this test failed on its verdict. A 480 ms
+    // burst moves it four times as far (1.19 LSB) against about the same standard error (0.10
+    // LSB, set mostly by the model's floor).
+    let pins = vec![floating(0, 47e-6), driven(1, 1.2, 100.0, 47e-6), hum(driven(2, 0.7, 100e3, 4.7e-6), 0.050, 50.0)];
+    let r = run(&scenario("cellar sump monitor", 4242, default_board(), pins));
+    let open = pin(&r, 0);
+    assert!(matches!(open.verdict, Verdict::Floating | Verdict::Unknown), "{}", about(open));
+    assert!(open.source_ohms.high.is_none(), "no upper bound on an open pin: {}", about(open));
+    // The case: the burst refutes the stiff bound, and names the capacitor (45.9 µF here).
+    let t = open.load.as_ref().filter(|t| t.refuted).unwrap_or_else(|| panic!("refuted: {}", about(open)));
+    let named = t.open_farads.unwrap_or(f64::NAN);
+    assert!((named / 47e-6 - 1.0).abs() < 0.25, "{} names {named:e}", about(open));
+    let stiff = pin(&r, 1);
+    assert_eq!(stiff.verdict, Verdict::Driven, "{}", about(stiff));
+    let t = stiff.load.as_ref().expect("a stiff pin gets a loading burst");
+    assert!(!t.moved() && t.open_farads.is_some_and(|c| c > 100e-6), "{}: {t:?}", about(stiff));
+    // The pump input moves under the burst like an open pin behind about 9 µF: not driven,
+    // and its note never sends the reader to a node of that size.
+    let pump = pin(&r, 2);
+    assert_eq!(pump.verdict, Verdict::Unknown, "{}", about(pump));
+    assert!(pump.load.as_ref().is_some_and(|t| t.moved()), "{}", about(pump));
+    assert!(!pump.reason.as_deref().unwrap_or_default().contains("of that size"), "{}", about(pump));
+}
