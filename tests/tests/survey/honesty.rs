@@ -53,6 +53,19 @@ fn pin(r: &SurveyReport, ch: u8) -> &PinReport {
     r.pins.iter().find(|p| p.channel == ch).expect("pin surveyed")
 }
 
+/// What an open pin behind `farads` may be reported as: `floating` or `unknown`, no upper bound
+/// on its source, no node claim that misses the capacitor, and where the loading burst refuted
+/// or moved it, an open node named within 25% of the capacitor. `case` heads each message.
+fn assert_open_pin(p: &PinReport, farads: f64, case: &str) {
+    assert!(matches!(p.verdict, Verdict::Floating | Verdict::Unknown), "{case}{}", about(p));
+    assert!(p.source_ohms.high.is_none(), "{case}no upper bound on an open pin: {}", about(p));
+    assert!(!misses(&p.node_farads, farads), "{case}{}", about(p));
+    if let Some(t) = p.load.as_ref().filter(|t| t.refuted || t.moved()) {
+        let named = t.open_farads.unwrap_or(f64::NAN);
+        assert!((named / farads - 1.0).abs() < 0.25, "{case}{} names {named:e}", about(p));
+    }
+}
+
 fn about(p: &PinReport) -> String {
     format!(
         "ch{} {}: Rs {}{} Cn {} reason {:?}",
@@ -84,10 +97,7 @@ fn a_node_larger_than_the_survey_can_move_is_a_bound_with_its_reason() {
 #[test]
 fn open_pins_behind_filter_capacitors_are_never_driven() {
     for ch in [4, 5] {
-        let p = pin(board(), ch);
-        assert!(matches!(p.verdict, Verdict::Floating | Verdict::Unknown), "{}", about(p));
-        assert!(p.source_ohms.high.is_none(), "no upper bound on an open pin: {}", about(p));
-        assert!(!misses(&p.node_farads, 100e-9), "{}", about(p));
+        assert_open_pin(pin(board(), ch), 100e-9, "");
     }
 }
 
@@ -248,16 +258,8 @@ fn an_open_pin_behind_microfarads_is_not_called_driven_and_a_stiff_source_still_
     ];
     let r = run(&scenario("big filters", 1317, default_board(), pins));
     for (ch, c) in [(0, 4.7e-6), (1, 10e-6)] {
-        let p = pin(&r, ch);
-        assert!(matches!(p.verdict, Verdict::Floating | Verdict::Unknown), "{}", about(p));
-        assert!(p.source_ohms.high.is_none(), "no upper bound on an open pin: {}", about(p));
-        assert!(!misses(&p.node_farads, c), "{}", about(p));
-        // Where the burst decided it (or moved it), the open node it names is the filter,
-        // within 25%.
-        if let Some(t) = p.load.as_ref().filter(|t| t.refuted || t.moved()) {
-            let named = t.open_farads.unwrap_or(f64::NAN);
-            assert!((named / c - 1.0).abs() < 0.25, "{} names {named:e}", about(p));
-        }
+        // Where the burst decided it (or moved it), the open node it names is the filter.
+        assert_open_pin(pin(&r, ch), c, "");
     }
     // The 10 µF pin is the case under test: stiff to the survey, decided by the burst.
     assert!(pin(&r, 1).load.as_ref().is_some_and(|t| t.refuted), "{}", about(pin(&r, 1)));
@@ -403,9 +405,7 @@ fn an_open_pin_seen_only_through_slow_drift_keeps_its_filter_inside_the_node_int
     for seed in [1019, 1022] {
         let r = run(&scenario("unplugged sensor", seed, default_board(), vec![floating(0, 10e-6)]));
         let p = pin(&r, 0);
-        assert_ne!(p.verdict, Verdict::Driven, "seed {seed}: {}", about(p));
-        assert!(p.source_ohms.high.is_none(), "seed {seed}: no upper bound on an open pin: {}", about(p));
-        assert!(!misses(&p.node_farads, 10e-6), "seed {seed}: {}", about(p));
+        assert_open_pin(p, 10e-6, &format!("seed {seed}: "));
         assert!(p.node_farads.low.is_some(), "seed {seed}: the case: a node interval: {}", about(p));
     }
 }
@@ -422,12 +422,9 @@ fn an_open_pin_behind_47_uf_is_not_called_driven_and_a_stiff_source_behind_it_st
     let pins = vec![floating(0, 47e-6), driven(1, 1.2, 100.0, 47e-6), hum(driven(2, 0.7, 100e3, 4.7e-6), 0.050, 50.0)];
     let r = run(&scenario("cellar sump monitor", 4242, default_board(), pins));
     let open = pin(&r, 0);
-    assert!(matches!(open.verdict, Verdict::Floating | Verdict::Unknown), "{}", about(open));
-    assert!(open.source_ohms.high.is_none(), "no upper bound on an open pin: {}", about(open));
-    // The case: the burst refutes the stiff bound, and names the capacitor (45.9 µF here).
-    let t = open.load.as_ref().filter(|t| t.refuted).unwrap_or_else(|| panic!("refuted: {}", about(open)));
-    let named = t.open_farads.unwrap_or(f64::NAN);
-    assert!((named / 47e-6 - 1.0).abs() < 0.25, "{} names {named:e}", about(open));
+    assert_open_pin(open, 47e-6, "");
+    // The case: the burst refutes the stiff bound (and names the capacitor: 45.9 µF here).
+    assert!(open.load.as_ref().is_some_and(|t| t.refuted), "refuted: {}", about(open));
     let stiff = pin(&r, 1);
     assert_eq!(stiff.verdict, Verdict::Driven, "{}", about(stiff));
     let t = stiff.load.as_ref().expect("a stiff pin gets a loading burst");
