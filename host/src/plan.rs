@@ -123,6 +123,7 @@ pub fn pull_node_farads(node: &crate::fit::Interval) -> (f64, bool) {
         None => (node.low.unwrap_or(0.0).max(PULL_NODE_UNSIZED_FARADS), false),
     }
 }
+
 /// Longest rest between a pull test's conversions, ns: 200 ms for a setting's 48 conversions
 /// keeps the test under half a minute even for the largest node it serves.
 pub const PULL_REST_MAX_NS: u32 = 4_000_000;
@@ -366,16 +367,17 @@ impl Plan {
     /// The pull test of a pin the board lets pull: unpulled, pulled up, pulled down and up
     /// again, at the longest sample time, each setting led by unrecorded conversions while the
     /// node settles. The two pulled-up cells follow different levels, so they agree only if the
-    /// node settled: that is the test's own check. `node_farads_high` is the largest node the
-    /// pin may have ([`pull_node_farads`]: the fit's upper end, else the least it holds, else
+    /// node settled: that is the test's own check. `node_farads` is the node the test is sized
+    /// for ([`pull_node_farads`]: the fit's upper end, else the least it holds, else
     /// [`PULL_NODE_UNSIZED_FARADS`], which the check then tests), and sets the least rest
-    /// between conversions: five time constants of the pull alone against the node and the hold capacitor (the source in
-    /// parallel only shortens it), at most [`PULL_REST_MAX_NS`]. The rest is then lengthened so
-    /// that each setting's recorded conversions span [`PULL_SPAN_NS`] (or a multiple), evenly:
-    /// mains hum averages out of each setting's mean. `None` when the pull is too weak for that
-    /// node to settle in the longest rest, or the board has no pull.
-    pub fn pull_test(&self, fe: &FrontEnd, pin: u8, node_farads_high: f64) -> Option<Experiment> {
-        let settle_ns = pull_rest_ns(fe, node_farads_high).filter(|&ns| ns <= f64::from(PULL_REST_MAX_NS))?;
+    /// between conversions: five time constants of the pull alone against the node and the
+    /// hold capacitor (the source in parallel only shortens it), at most [`PULL_REST_MAX_NS`].
+    /// The rest is then lengthened so that each setting's recorded conversions span
+    /// [`PULL_SPAN_NS`] (or a multiple), evenly: mains hum averages out of each setting's mean.
+    /// `None` when the pull is too weak for that node to settle in the longest rest, or the
+    /// board has no pull.
+    pub fn pull_test(&self, fe: &FrontEnd, pin: u8, node_farads: f64) -> Option<Experiment> {
+        let settle_ns = pull_rest_ns(fe, node_farads).filter(|&ns| ns <= f64::from(PULL_REST_MAX_NS))?;
         // Each setting's recorded conversions evenly over whole mains periods: the rest that
         // makes their span a multiple of PULL_SPAN_NS, and at least the settling rest.
         let convert_ns = (f64::from(*fe.sample_ps.get(usize::from(self.longest))?) + f64::from(fe.conversion_ps)) / 1e3;
