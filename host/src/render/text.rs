@@ -147,8 +147,24 @@ pub fn survey_text(r: &SurveyReport, advice: &BoardAdvice) -> String {
         .iter()
         .flat_map(|p| {
             let reason = p.reason.as_ref().map(|why| format!("  ch{} {}: {why}", p.channel, p.verdict.as_str()));
-            let missing = (!p.not_measured.is_empty())
-                .then(|| format!("  ch{}: not measured: {}", p.channel, p.not_measured.join(", ")));
+            // A stiff pin's verdict stands on its loading burst: without it, say what is open.
+            let unburst = p.not_measured.contains(&"load") && matches!(p.verdict, Verdict::Driven | Verdict::AtRail);
+            let missing = (!p.not_measured.is_empty()).then(|| {
+                format!(
+                    "  ch{}: not measured: {}{}",
+                    p.channel,
+                    p.not_measured.join(", "),
+                    if unburst {
+                        format!(
+                            " (without its loading burst, `{}` does not rule out an open pin behind a large capacitor; \
+                             `survey --resume` runs it)",
+                            p.verdict.as_str()
+                        )
+                    } else {
+                        String::new()
+                    }
+                )
+            });
             let pull = p.pull_source_ohms.as_ref().map(|iv| match iv.estimate.or(iv.low).or(iv.high) {
                 Some(_) => format!(
                     "  ch{}: pull test: source {} against the board's pull",

@@ -65,6 +65,28 @@ fn a_link_that_dies_mid_survey_keeps_what_was_measured() {
 }
 
 #[test]
+fn a_stiff_pin_cut_before_its_loading_burst_says_an_open_pin_is_not_ruled_out() {
+    // A boiler-room logger's unplugged input with 100 µF left on it: stiff to the survey's
+    // conversions, so only the loading burst at the end of the survey tells it from a driven
+    // pin. Cut before the burst, the table still reads `driven` with the stiff bound; the notes
+    // must say what the missing burst leaves open.
+    let s = scenario("boiler room logger", 24, default_board(), vec![floating(0, 100e-6)]);
+    let mut session = Session::new(InProcessLink::new(&s));
+    let clean = survey(&mut session, &SurveyOptions::default()).unwrap();
+    assert_eq!(clean.pins[0].verdict, ohmsight::Verdict::Unknown, "the burst decides it: {:?}", clean.pins[0].reason);
+    // The burst runs last: go quiet two frames before the end, inside it (on this scenario
+    // every cut from 2 to 11 frames before the end leaves only the burst missing).
+    let total = session.link().frames_sent();
+    let mut session = Session::new(InProcessLink::new(&s).silent_after(total - 2));
+    let r = survey(&mut session, &SurveyOptions::default()).expect("a partial survey is still a report");
+    let p = &r.pins[0];
+    assert!(p.not_measured.contains(&"load"), "{:?} {:?}", p.verdict, p.not_measured);
+    assert_eq!(p.verdict, ohmsight::Verdict::Driven, "the case: a stiff verdict without its burst");
+    let text = ohmsight::render::text::survey_text(&r, &ohmsight::advice::advise(&r, &Default::default()));
+    assert!(text.contains("does not rule out an open pin behind a large capacitor"), "{text}");
+}
+
+#[test]
 fn a_board_that_never_answers_still_gets_a_document() {
     let s = scenario("dead board", 23, default_board(), vec![driven(0, 1.0, 22e3, 10e-12)]);
     let mut session = Session::new(InProcessLink::new(&s).silent_after(0));
